@@ -1,0 +1,38 @@
+# trailcast: two commands do the whole set-up on a fresh machine: `make run` and `make test`.
+PYTHON ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+HOST ?= 127.0.0.1
+PORT ?= 8000
+
+.PHONY: install run test bench lint clean
+
+$(BIN)/python:
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+
+# Re-install whenever pyproject.toml changes.
+$(STAMP): pyproject.toml | $(BIN)/python
+	$(BIN)/python -m pip install --quiet -e '.[test]'
+	touch $(STAMP)
+
+install: $(STAMP)
+
+run: $(STAMP)
+	mkdir -p var
+	$(BIN)/trailcast serve --host $(HOST) --port $(PORT)
+
+# pytest exit code 5 means "no tests collected": that is a failure for us, never hidden.
+test: $(STAMP)
+	$(BIN)/python -m pytest
+
+bench: $(STAMP)
+	$(BIN)/python -m benchmarks
+
+lint: $(STAMP)
+	$(BIN)/ruff check dynamics service tests benchmarks
+	$(BIN)/ruff format --check dynamics service tests benchmarks
+
+clean:
+	rm -rf $(VENV) build *.egg-info .pytest_cache
