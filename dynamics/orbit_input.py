@@ -1,0 +1,305 @@
+"""The parent-orbit input shared by every trailcast command and endpoint.
+
+JSON form (keys kept stable; units fixed)::
+
+    {"name": "C/2031 Q7 (invented)",
+     "epoch": 2472000.5,                 # JD TDB, or ISO 8601 text with a scale
+     "q": 0.9921, "e": 0.9873,           # perihelion distance (au), eccentricity
+     "i": 71.4, "node": 141.2, "peri": 196.8,   # deg, ecliptic and equinox J2000
+     "tp": "2031-09-14T06:00:00 TDB",   # perihelion time, JD TDB or ISO 8601 with a scale
+     "nongrav": {"a1": 1e-9, "a2": 1e-10, "a3": 0.0},   # optional, au/day^2 (Marsden et al. 1973)
+     "covariance": [[...6 x 6...]],      # optional, over (q, e, i, node, peri, tp) in
+                                         # (au, 1, deg, deg, deg, day)
+     "solutions": [{...}, ...]}          # optional alternative orbit fits, same keys
+
+Elements are heliocentric osculating elements at ``epoch``. :func:`parse_orbit` validates a
+mapping and returns an :class:`OrbitInput`; every failure raises
+:class:`~dynamics.errors.InvalidOrbit` naming the field (dotted path for nested ones).
+"""
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .constants import GM_SUN_AU3_D2
+from .errors import InvalidOrbit, InvalidTime, OutsideTimeSpan
+from .timescales import parse_time_tdb_jd
+
+#: Keys an orbit object may carry.
+ORBIT_KEYS = (
+    "name",
+    "epoch",
+    "q",
+    "e",
+    "i",
+    "node",
+    "peri",
+    "tp",
+    "nongrav",
+    "covariance",
+    "solutions",
+)
+#: Order of the covariance matrix rows and columns, with their units.
+COVARIANCE_ORDER = (
+    ("q", "au"),
+    ("e", "1"),
+    ("i", "deg"),
+    ("node", "deg"),
+    ("peri", "deg"),
+    ("tp", "day"),
+)
+#: Upper limit on eccentricity accepted (interstellar objects so far have e < 7).
+MAX_ECCENTRICITY = 100.0
+#: Longest name accepted.
+MAX_NAME_LENGTH = 200
+#: Most alternative solutions accepted in one input.
+MAX_SOLUTIONS = 64
+
+
+@dataclass(frozen=True)
+class NonGravParams:
+    """Marsden, Sekanina & Yeomans (1973) non-gravitational parameters (au/day^2).
+
+    The acceleration is ``(A1 R + A2 T + A3 N) g(r)`` with the standard water-ice g(r) law
+    (see :mod:`dynamics.constants` and domain notes); R radial, T transverse, N normal.
+    """
+
+    a1_au_d2: float = 0.0
+    a2_au_d2: float = 0.0
+    a3_au_d2: float = 0.0
+
+
+@dataclass(frozen=True)
+class OrbitInput:
+    """A validated parent orbit: heliocentric osculating elements, ecliptic J2000.
+
+    Attributes carry their units in their names. ``solutions`` holds alternative fits (each an
+    :class:`OrbitInput` without solutions of its own); ``covariance`` is a 6 x 6 array over
+    :data:`COVARIANCE_ORDER` or None.
+    """
+
+    name: str
+    epoch_tdb_jd: float
+    q_au: float
+    e: float
+    incl_deg: float
+    node_deg: float
+    peri_deg: float
+    tp_tdb_jd: float
+    nongrav: NonGravParams | None = None
+    covariance: np.ndarray | None = field(default=None, compare=False)
+    solutions: tuple["OrbitInput", ...] = ()
+
+    @property
+    def a_au(self) -> float:
+        """Semi-major axis (au): negative for hyperbolic orbits, infinite for a parabola."""
+        return math.inf if self.e == 1.0 else self.q_au / (1.0 - self.e)
+
+    @property
+    def period_days(self) -> float:
+        """Keplerian (heliocentric two-body) period in days; infinite when e >= 1."""
+        if self.e >= 1.0:
+            return math.inf
+        return 2.0 * math.pi * self.a_au**1.5 / math.sqrt(GM_SUN_AU3_D2)
+
+    @property
+    def aphelion_au(self) -> float:
+        return math.inf if self.e >= 1.0 else self.q_au * (1.0 + self.e) / (1.0 - self.e)
+
+    def to_json(self) -> dict:
+        """The orbit as its JSON input object (times as JD TDB numbers)."""
+        out = {
+            "name": self.name,
+            "epoch": self.epoch_tdb_jd,
+            "q": self.q_au,
+            "e": self.e,
+            "i": self.incl_deg,
+            "node": self.node_deg,
+            "peri": self.peri_deg,
+            "tp": self.tp_tdb_jd,
+        }
+        if self.nongrav is not None:
+            out["nongrav"] = {
+                "a1": self.nongrav.a1_au_d2,
+                "a2": self.nongrav.a2_au_d2,
+                "a3": self.nongrav.a3_au_d2,
+            }
+        if self.covariance is not None:
+            out["covariance"] = self.covariance.tolist()
+        if self.solutions:
+            out["solutions"] = [s.to_json() for s in self.solutions]
+        return out
+
+
+def parse_orbit(data, *, path: str = "", allow_solutions: bool = True) -> OrbitInput:
+    """Validate an orbit mapping (parsed JSON) and return an :class:`OrbitInput`.
+
+    Parameters
+    ----------
+    data : Mapping
+        The orbit object, keys as in the module docstring.
+    path : str
+        Prefix for field names in error messages (used for nested solutions).
+    allow_solutions : bool
+        False for the members of ``solutions`` (they may not nest).
+
+    Raises
+    ------
+    InvalidOrbit
+        Naming the first offending field: a missing key, an unknown key, a value that is not a
+        finite number, e < 0, q <= 0, angles out of range, a malformed time, a covariance that is
+        not a symmetric positive semi-definite 6 x 6 matrix.
+
+    Examples
+    --------
+    >>> o = parse_orbit({"name": "demo", "epoch": 2460000.5, "q": 1.0, "e": 0.5, "i": 10,
+    ...                  "node": 20, "peri": 30, "tp": "2023-02-25T00:00:00 TDB"})
+    >>> round(o.a_au, 6), o.tp_tdb_jd
+    (2.0, 2460000.5)
+    >>> parse_orbit({"name": "x", "epoch": 2460000.5, "q": -1, "e": 0.5, "i": 10,
+    ...              "node": 20, "peri": 30, "tp": 2460000.5})
+    Traceback (most recent call last):
+    ...
+    dynamics.errors.InvalidOrbit: q: perihelion distance must be > 0 au, got -1.0
+    """
+    if not isinstance(data, Mapping):
+        raise InvalidOrbit(
+            path.rstrip(".") or "orbit", "expected a JSON object with the orbit's keys"
+        )
+    unknown = sorted(set(data) - set(ORBIT_KEYS))
+    if unknown:
+        raise InvalidOrbit(
+            path + unknown[0], f"unknown key; expected some of {', '.join(ORBIT_KEYS)}"
+        )
+    for key in ("name", "epoch", "q", "e", "i", "node", "peri", "tp"):
+        if key not in data or data[key] is None:
+            raise InvalidOrbit(path + key, "missing (required)")
+
+    name = data["name"]
+    if not isinstance(name, str) or not name.strip():
+        raise InvalidOrbit(path + "name", "must be a non-empty string")
+    if len(name) > MAX_NAME_LENGTH:
+        raise InvalidOrbit(path + "name", f"longer than {MAX_NAME_LENGTH} characters")
+
+    q = _number(data, "q", path)
+    e = _number(data, "e", path)
+    incl = _number(data, "i", path)
+    node = _number(data, "node", path)
+    peri = _number(data, "peri", path)
+    if q <= 0.0:
+        raise InvalidOrbit(path + "q", f"perihelion distance must be > 0 au, got {q!r}")
+    if e < 0.0:
+        raise InvalidOrbit(path + "e", f"eccentricity must be >= 0, got {e!r}")
+    if e > MAX_ECCENTRICITY:
+        raise InvalidOrbit(
+            path + "e", f"eccentricity above {MAX_ECCENTRICITY} is not a comet orbit"
+        )
+    if not 0.0 <= incl <= 180.0:
+        raise InvalidOrbit(path + "i", f"inclination must be in [0, 180] deg, got {incl!r}")
+    if not 0.0 <= node < 360.0:
+        raise InvalidOrbit(
+            path + "node", f"longitude of the ascending node must be in [0, 360) deg, got {node!r}"
+        )
+    if not 0.0 <= peri < 360.0:
+        raise InvalidOrbit(
+            path + "peri", f"argument of perihelion must be in [0, 360) deg, got {peri!r}"
+        )
+
+    epoch = _time(data, "epoch", path)
+    tp = _time(data, "tp", path)
+
+    nongrav = None
+    if data.get("nongrav") is not None:
+        ng = data["nongrav"]
+        if not isinstance(ng, Mapping):
+            raise InvalidOrbit(
+                path + "nongrav", 'expected an object {"a1", "a2", "a3"} in au/day^2'
+            )
+        extra = sorted(set(ng) - {"a1", "a2", "a3"})
+        if extra:
+            raise InvalidOrbit(
+                f"{path}nongrav.{extra[0]}", "unknown key; expected a1, a2, a3 (au/day^2)"
+            )
+        vals = [_number(ng, k, f"{path}nongrav.", default=0.0) for k in ("a1", "a2", "a3")]
+        for k, v in zip(("a1", "a2", "a3"), vals, strict=True):
+            if abs(v) > 1e-5:  # 1e-5 au/d^2 at 1 au is ~3e-2 of solar gravity: not a comet fit
+                raise InvalidOrbit(
+                    f"{path}nongrav.{k}", f"|{k}| = {abs(v)!r} au/day^2 is implausibly large"
+                )
+        nongrav = NonGravParams(*vals)
+
+    covariance = None
+    if data.get("covariance") is not None:
+        covariance = _covariance(data["covariance"], path + "covariance")
+
+    solutions: tuple[OrbitInput, ...] = ()
+    if data.get("solutions") is not None:
+        if not allow_solutions:
+            raise InvalidOrbit(path + "solutions", "alternative solutions cannot nest")
+        sols = data["solutions"]
+        if not isinstance(sols, list | tuple) or not sols:
+            raise InvalidOrbit(path + "solutions", "expected a non-empty list of orbit objects")
+        if len(sols) > MAX_SOLUTIONS:
+            raise InvalidOrbit(path + "solutions", f"at most {MAX_SOLUTIONS} alternative solutions")
+        solutions = tuple(
+            parse_orbit(s, path=f"{path}solutions.{k}.", allow_solutions=False)
+            for k, s in enumerate(sols)
+        )
+
+    return OrbitInput(
+        name=name.strip(),
+        epoch_tdb_jd=epoch,
+        q_au=q,
+        e=e,
+        incl_deg=incl,
+        node_deg=node,
+        peri_deg=peri,
+        tp_tdb_jd=tp,
+        nongrav=nongrav,
+        covariance=covariance,
+        solutions=solutions,
+    )
+
+
+def _number(data, key, path, default=None) -> float:
+    if key not in data or data[key] is None:
+        if default is not None:
+            return default
+        raise InvalidOrbit(path + key, "missing (required)")
+    v = data[key]
+    if isinstance(v, bool) or not isinstance(v, int | float | np.integer | np.floating):
+        raise InvalidOrbit(path + key, f"expected a number, got {type(v).__name__}")
+    v = float(v)
+    if not math.isfinite(v):
+        raise InvalidOrbit(path + key, "must be a finite number")
+    return v
+
+
+def _time(data, key, path) -> float:
+    try:
+        return parse_time_tdb_jd(data[key], field=key)
+    except (InvalidTime, OutsideTimeSpan) as exc:
+        raise InvalidOrbit(path + key, str(exc)) from None
+
+
+def _covariance(value, field_name) -> np.ndarray:
+    try:
+        c = np.array(value, dtype=float)
+    except (TypeError, ValueError):
+        raise InvalidOrbit(field_name, "expected a 6 x 6 array of numbers") from None
+    if c.shape != (6, 6):
+        raise InvalidOrbit(
+            field_name, f"expected 6 x 6 over (q, e, i, node, peri, tp), got shape {c.shape}"
+        )
+    if not np.all(np.isfinite(c)):
+        raise InvalidOrbit(field_name, "must hold finite numbers only")
+    scale = np.sqrt(np.abs(np.diag(c))) + 1e-300
+    corr = c / np.outer(scale, scale)
+    if not np.allclose(corr, corr.T, rtol=0.0, atol=1e-9):
+        raise InvalidOrbit(field_name, "must be symmetric")
+    if np.any(np.diag(c) < 0.0) or np.min(np.linalg.eigvalsh(0.5 * (corr + corr.T))) < -1e-9:
+        raise InvalidOrbit(field_name, "must be positive semi-definite (a covariance)")
+    c.setflags(write=False)
+    return c

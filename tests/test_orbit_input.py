@@ -1,0 +1,117 @@
+"""Orbit input: validation names the offending field; valid inputs keep their values."""
+
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from dynamics.constants import GAUSSIAN_K
+from dynamics.errors import InvalidOrbit
+from dynamics.orbit_input import parse_orbit
+
+EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
+
+GOOD = {
+    "name": "test orbit (invented)",
+    "epoch": 2460000.5,
+    "q": 1.0,
+    "e": 0.5,
+    "i": 10.0,
+    "node": 20.0,
+    "peri": 30.0,
+    "tp": 2459990.5,
+}
+
+
+def with_(**changes):
+    d = dict(GOOD)
+    for k, v in changes.items():
+        if v is ...:
+            d.pop(k)
+        else:
+            d[k] = v
+    return d
+
+
+@pytest.mark.reference
+def test_period_follows_keplers_third_law():
+    # P = 2 pi a^1.5 / k with the Gaussian constant (IAU 1976): a = 1 au gives the sidereal
+    # year of a massless body, 365.2568983 days (Explanatory Supplement, Gauss's year).
+    o = parse_orbit(with_(q=0.5, e=0.5))
+    assert o.a_au == pytest.approx(1.0)
+    assert o.period_days == pytest.approx(2 * math.pi / GAUSSIAN_K, rel=1e-12)
+    assert o.period_days == pytest.approx(365.2568983, abs=1e-6)
+
+
+def test_iso_times_with_scale_are_accepted():
+    o = parse_orbit(with_(epoch="2000-01-01T12:00:00 TDB", tp="1999-12-31T12:00:00 TDB"))
+    assert o.epoch_tdb_jd == 2451545.0
+    assert o.tp_tdb_jd == 2451544.0
+
+
+@pytest.mark.parametrize(
+    ("changes", "field"),
+    [
+        ({"q": ...}, "q"),
+        ({"name": ...}, "name"),
+        ({"tp": ...}, "tp"),
+        ({"e": -0.1}, "e"),
+        ({"q": 0.0}, "q"),
+        ({"q": float("nan")}, "q"),
+        ({"e": float("inf")}, "e"),
+        ({"i": 181.0}, "i"),
+        ({"i": -1.0}, "i"),
+        ({"node": 360.0}, "node"),
+        ({"peri": -0.5}, "peri"),
+        ({"q": "1.0"}, "q"),
+        ({"e": True}, "e"),
+        ({"epoch": "2000-01-01T12:00:00"}, "epoch"),  # no scale
+        ({"tp": "not a date TDB"}, "tp"),
+        ({"name": ""}, "name"),
+        ({"incl": 10.0}, "incl"),  # unknown key (typo for i)
+        ({"nongrav": {"a1": "x"}}, "nongrav.a1"),
+        ({"nongrav": {"b1": 1e-9}}, "nongrav.b1"),
+        ({"covariance": [[1.0] * 5] * 5}, "covariance"),
+        ({"covariance": (-np.eye(6)).tolist()}, "covariance"),
+        ({"solutions": [with_(e=-1.0)]}, "solutions.0.e"),
+        ({"solutions": [with_(solutions=[GOOD])]}, "solutions.0.solutions"),
+        ({"solutions": []}, "solutions"),
+    ],
+)
+def test_invalid_orbits_name_the_field(changes, field):
+    with pytest.raises(InvalidOrbit) as info:
+        parse_orbit(with_(**changes))
+    assert info.value.field == field
+
+
+def test_not_an_object():
+    with pytest.raises(InvalidOrbit):
+        parse_orbit([1, 2, 3])
+
+
+def test_covariance_and_solutions_are_kept():
+    cov = np.diag([1e-8, 1e-9, 1e-6, 1e-6, 1e-6, 1e-4])
+    o = parse_orbit(
+        with_(
+            covariance=cov.tolist(), solutions=[with_(e=0.51), with_(e=0.49)], nongrav={"a1": 1e-9}
+        )
+    )
+    assert o.covariance.shape == (6, 6)
+    assert [s.e for s in o.solutions] == [0.51, 0.49]
+    assert o.nongrav.a1_au_d2 == 1e-9 and o.nongrav.a3_au_d2 == 0.0
+    assert parse_orbit(o.to_json()) == o  # the JSON form round-trips
+
+
+@pytest.mark.parametrize("e", [1.0, 1.000000001, 4.5])
+def test_open_orbits_are_accepted(e):
+    o = parse_orbit(with_(e=e))
+    assert math.isinf(o.period_days)
+
+
+def test_demo_comet_is_valid_and_invented():
+    data = json.loads((EXAMPLES / "demo-comet.json").read_text())
+    o = parse_orbit(data)
+    assert "invented" in o.name
+    assert o.e < 1.0
