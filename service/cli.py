@@ -1,0 +1,195 @@
+"""The ``trailcast`` command line: a thin layer over :mod:`dynamics` and the web service.
+
+Every command prints a readable table by default and JSON with ``--json``. Bad input gives one
+line on stderr and exit status 2; nothing is written in that case.
+"""
+
+import argparse
+import json
+import math
+import sys
+from pathlib import Path
+
+from dynamics import __version__
+from dynamics.errors import TrailcastError
+
+CAUTION = (
+    "Predictions are model estimates with real uncertainty, above all in intensity. Spacecraft "
+    "operators: defer to the responsible agencies' meteoroid assessments. Observers: usual "
+    "night-time and outdoor safety."
+)
+
+
+class UsageError(Exception):
+    """Bad command-line input (reported on one line, exit status 2)."""
+
+
+def load_orbit_file(path: str):
+    """Read and validate an orbit JSON file (see :mod:`dynamics.orbit_input`)."""
+    from dynamics.orbit_input import parse_orbit
+
+    try:
+        text = Path(path).read_text(encoding="utf-8")
+    except OSError as exc:
+        raise UsageError(f"cannot read {path}: {exc.strerror or exc}") from None
+    try:
+        data = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise UsageError(f"{path}: not valid JSON ({exc.msg} at line {exc.lineno})") from None
+    return parse_orbit(data)
+
+
+# --- commands -----------------------------------------------------------------------------------
+
+
+def cmd_serve(args) -> int:
+    import uvicorn
+
+    from .main import create_app
+    from .settings import Settings
+
+    settings = Settings.from_env()
+    settings.data_dir.mkdir(parents=True, exist_ok=True)
+    uvicorn.run(create_app(settings), host=args.host, port=args.port, log_level="info")
+    return 0
+
+
+def cmd_check(args) -> int:
+    from dynamics.timescales import format_iso, format_utc
+
+    orbit = load_orbit_file(args.orbit)
+    summary = {
+        "name": orbit.name,
+        "epoch_tdb": format_iso(orbit.epoch_tdb_jd, "TDB"),
+        "perihelion_utc": format_utc(orbit.tp_tdb_jd),
+        "q_au": orbit.q_au,
+        "e": orbit.e,
+        "a_au": orbit.a_au if math.isfinite(orbit.a_au) else None,
+        "aphelion_au": orbit.aphelion_au if math.isfinite(orbit.aphelion_au) else None,
+        "period_years": orbit.period_days / 365.25 if math.isfinite(orbit.period_days) else None,
+        "orbit_type": "elliptic"
+        if orbit.e < 1.0
+        else ("parabolic" if orbit.e == 1.0 else "hyperbolic"),
+        "nongrav": orbit.nongrav is not None,
+        "covariance": orbit.covariance is not None,
+        "solutions": len(orbit.solutions),
+    }
+    if args.json:
+        print(json.dumps(summary, indent=2))
+        return 0
+    width = max(len(k) for k in summary)
+    print(f"Orbit {orbit.name}: valid")
+    for key, value in summary.items():
+        if key == "name":
+            continue
+        shown = "-" if value is None else (f"{value:.6g}" if isinstance(value, float) else value)
+        print(f"  {key:<{width}}  {shown}")
+    return 0
+
+
+def cmd_solar_longitude(args) -> int:
+    import numpy as np
+
+    from dynamics.solar_longitude import solar_longitude_deg, times_of_solar_longitude_tdb
+    from dynamics.timescales import calendar_year_tdb_jd, format_utc, iso_to_tdb_jd
+
+    if args.at is not None:
+        t = iso_to_tdb_jd(args.at)
+        lam = float(solar_longitude_deg(t, kind=args.kind))
+        out = {
+            "time_utc": format_utc(t),
+            "solar_longitude_deg": lam,
+            "kind": args.kind,
+            "equinox": "J2000",
+        }
+        print(
+            json.dumps(out, indent=2)
+            if args.json
+            else f"{out['time_utc']}  lambda_sun = {lam:.5f} deg ({args.kind}, J2000)"
+        )
+        return 0
+    if args.longitude is None or args.year is None:
+        raise UsageError("give --at TIME, or LONGITUDE_DEG with --year YEAR")
+    if not 0.0 <= args.longitude < 360.0:
+        raise UsageError(f"longitude must be in [0, 360) deg, got {args.longitude}")
+    start, end = calendar_year_tdb_jd(args.year)
+    times = np.atleast_1d(times_of_solar_longitude_tdb(args.longitude, start, end, kind=args.kind))
+    instants = [format_utc(t, decimals=0) for t in times]
+    if args.json:
+        print(
+            json.dumps(
+                {
+                    "solar_longitude_deg": args.longitude,
+                    "kind": args.kind,
+                    "year": args.year,
+                    "times_utc": instants,
+                },
+                indent=2,
+            )
+        )
+    else:
+        for s in instants:
+            print(f"{s}  lambda_sun = {args.longitude:.5f} deg ({args.kind}, J2000)")
+    return 0
+
+
+# --- parser -------------------------------------------------------------------------------------
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="trailcast",
+        description="Predict meteor-shower outbursts from the orbits of parent comets.",
+        epilog=CAUTION,
+    )
+    parser.add_argument("--version", action="version", version=f"trailcast {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    p = sub.add_parser("serve", help="run the web service (what `make run` starts)")
+    p.add_argument("--host", default="127.0.0.1", help="address to listen on (default 127.0.0.1)")
+    p.add_argument("--port", type=int, default=8000, help="port (default 8000)")
+    p.set_defaults(func=cmd_serve)
+
+    p = sub.add_parser("check", help="validate an orbit file and summarise it")
+    p.add_argument("orbit", metavar="ORBIT.json")
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.set_defaults(func=cmd_check)
+
+    p = sub.add_parser(
+        "solar-longitude",
+        help="solar longitude (J2000) at a time, or the UTC instants of a longitude in a year",
+    )
+    p.add_argument("longitude", nargs="?", type=float, metavar="LONGITUDE_DEG")
+    p.add_argument("--year", type=int, help="calendar year (UTC) to search")
+    p.add_argument(
+        "--at", metavar="TIME", help="ISO 8601 time with scale, e.g. 1999-11-18T02:04:00Z"
+    )
+    p.add_argument(
+        "--kind",
+        choices=("geometric", "apparent"),
+        default="geometric",
+        help="geometric (default) or apparent (with aberration) solar longitude",
+    )
+    p.add_argument("--json", action="store_true", help="print JSON")
+    p.set_defaults(func=cmd_solar_longitude)
+    return parser
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # argparse already printed its one-line usage error
+        return int(exc.code or 0)
+    try:
+        return int(args.func(args) or 0)
+    except (UsageError, TrailcastError) as exc:
+        print(f"trailcast {args.command}: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("trailcast: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())
