@@ -133,6 +133,65 @@ def cmd_solar_longitude(args) -> int:
     return 0
 
 
+def cmd_geometry(args) -> int:
+    from dynamics.geometry import quick_look
+
+    orbit = load_orbit_file(args.orbit)
+    result = quick_look(orbit, args.year).to_json()
+    if args.json:
+        print(json.dumps(result, indent=2))
+        return 0
+    print(_geometry_table(result))
+    return 0
+
+
+def _fmt(value, spec: str) -> str:
+    return "-" if value is None else format(value, spec)
+
+
+def _geometry_table(res: dict) -> str:
+    """Readable quick-look table (the same numbers as the JSON)."""
+    eo = res["earth_orbit"]
+    lines = [
+        f"Geometry of {res['name']} against Earth's orbit ({eo['model']})",
+        f"  MOID  {_fmt(res['moid_au'], '.5f')} au",
+        "",
+        "  Closest points (every local minimum of the orbit distance; lambda_sun geometric, J2000)",
+        "    dist_au   lambda_sun   RA      Dec     Vg km/s  Vinf km/s  Earth passes (UTC)",
+    ]
+    for p in res["moid_points"]:
+        r = p["radiant"] or {}
+        lines.append(
+            f"    {p['distance_au']:<9.5f} {p['solar_longitude_deg']:>8.3f}   "
+            f"{_fmt(r.get('ra_deg'), '6.1f')}  {_fmt(r.get('dec_deg'), '+6.1f')}  "
+            f"{_fmt(r.get('vg_km_s'), '7.2f')}  {_fmt(r.get('vinf_km_s'), '9.2f')}  "
+            f"{p['earth_passage_utc'] or '-'}"
+        )
+    lines += [
+        "",
+        "  Nodes (miss distance = parent minus Earth's orbit at the node's longitude)",
+        "    node        r_au      miss_au     lambda_sun   Earth passes (UTC)",
+    ]
+    for n in res["nodes"]:
+        lines.append(
+            f"    {n['kind']:<11} {_fmt(n['r_au'], '<9.5f'):<9} {_fmt(n['miss_distance_au'], '+.5f'):>9}"
+            f"   {_fmt(n['solar_longitude_deg'], '8.3f'):>8}     {n['earth_passage_utc'] or '-'}"
+        )
+    rad = res["radiant"]
+    if rad:
+        lines += ["", f"  Radiant method: {rad['method']}"]
+    rule = res["similar_showers_rule"]
+    shown = ", ".join(f"{s['name']} (D_SH {s['d_sh']:.3f})" for s in res["similar_showers"])
+    lines += [
+        f"  Similar showers (D_SH < {rule['max']}): {shown or 'none'}",
+        "",
+        f"  Verdict: {res['verdict']}",
+    ]
+    lines += [f"  Note: {n}" for n in res["notes"]]
+    lines += ["", *(f"  Caution: {c}" for c in res["cautions"])]
+    return "\n".join(lines)
+
+
 # --- parser -------------------------------------------------------------------------------------
 
 
@@ -172,6 +231,17 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--json", action="store_true", help="print JSON")
     p.set_defaults(func=cmd_solar_longitude)
+
+    p = sub.add_parser(
+        "geometry",
+        help="quick-look geometry: Earth MOID, nodes, theoretical radiant, similar showers",
+    )
+    p.add_argument("orbit", metavar="ORBIT.json")
+    p.add_argument(
+        "--year", type=int, help="calendar year (UTC, 1800-2199) for Earth's passage times"
+    )
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.set_defaults(func=cmd_geometry)
     return parser
 
 

@@ -8,7 +8,7 @@ from dynamics import __version__
 
 from . import storage
 from .problems import install_problem_handlers, problem
-from .routers import system
+from .routers import geometry, system
 from .settings import Settings, get_settings
 
 DESCRIPTION = """\
@@ -56,4 +56,5 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         return await call_next(request)
 
     app.include_router(system.router)
+    app.include_router(geometry.router)
     return app
