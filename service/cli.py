@@ -192,6 +192,137 @@ def _geometry_table(res: dict) -> str:
     return "\n".join(lines)
 
 
+def _parse_years(text: str) -> tuple[int, int]:
+    try:
+        parts = [int(x) for x in text.split(":")]
+    except ValueError:
+        raise UsageError(f"--years takes Y or Y1:Y2, got {text!r}") from None
+    if len(parts) == 1:
+        parts = parts * 2
+    if len(parts) != 2 or parts[1] < parts[0]:
+        raise UsageError(f"--years takes Y or Y1:Y2 with Y1 <= Y2, got {text!r}")
+    if parts[0] < 1800 or parts[1] > 2199:
+        raise UsageError("--years must lie within 1800-2199 (the DE423 ephemeris span)")
+    if parts[1] - parts[0] > 100:
+        raise UsageError("--years spans more than 100 years; split the request")
+    return parts[0], parts[1]
+
+
+def _parse_trails(text: str | None):
+    if text is None:
+        return None
+    try:
+        return tuple(int(x) for x in text.split(",") if x.strip())
+    except ValueError:
+        raise UsageError(
+            f"--trails takes perihelion years separated by commas, got {text!r}"
+        ) from None
+
+
+def forecast_options_from_args(args):
+    """Build ForecastOptions from parsed CLI arguments (shared with `submit`)."""
+    from dataclasses import replace
+
+    from dynamics.ejection import EJECTION_SPEED_LAWS
+    from dynamics.forecast import ForecastOptions
+    from dynamics.trails import EjectionModel
+
+    first, last = _parse_years(args.years)
+    if args.particles < 3 or args.particles > 100_000:
+        raise UsageError("--particles must be between 3 and 100000")
+    if args.workers < 1 or args.workers > 256:
+        raise UsageError("--workers must be between 1 and 256")
+    if args.speed_law not in EJECTION_SPEED_LAWS:
+        raise UsageError(f"--speed-law must be one of {', '.join(sorted(EJECTION_SPEED_LAWS))}")
+    if not 1.0 < args.mass_index < 3.0:
+        raise UsageError("--mass-index must lie between 1 and 3")
+    if not 0.05 <= args.density <= 8.0:
+        raise UsageError("--density must lie between 0.05 and 8 g/cm^3")
+    if not 0.01 <= args.nucleus_radius <= 100.0:
+        raise UsageError("--nucleus-radius must lie between 0.01 and 100 km")
+    model = replace(
+        EjectionModel(),
+        speed_law=args.speed_law,
+        mass_index=args.mass_index,
+        meteoroid_density_g_cm3=args.density,
+        nucleus_radius_km=args.nucleus_radius,
+    )
+    return ForecastOptions(
+        first_year=first,
+        last_year=last,
+        particles=args.particles,
+        seed=args.seed,
+        trails=_parse_trails(args.trails),
+        max_trail_age_years=args.max_age,
+        integrator=args.integrator,
+        workers=args.workers,
+        ejection=model,
+    )
+
+
+def cmd_forecast(args) -> int:
+    from dynamics.forecast import forecast
+
+    orbit = load_orbit_file(args.orbit)
+    options = forecast_options_from_args(args)
+    show = sys.stderr.isatty() and not args.json
+
+    def progress(fraction, stage):
+        if show:
+            print(f"\r  {100 * fraction:5.1f}%  {stage:<20}", end="", file=sys.stderr, flush=True)
+
+    result = forecast(orbit, options, progress=progress).to_json()
+    if show:
+        print(file=sys.stderr)
+    if args.json:
+        print(json.dumps(result, indent=2))
+    else:
+        print(forecast_table(result))
+    return 0
+
+
+def forecast_table(res: dict) -> str:
+    """Readable forecast table (the same numbers as the JSON)."""
+    model = res["model"]
+    lines = [
+        f"Dust-trail forecast for {res['parent']['name']}",
+        f"  years {model['options']['years'][0]}-{model['options']['years'][1]}, "
+        f"{model['particles_integrated']} meteoroids integrated "
+        f"({model['particles_contributing']} contributing), seed {model['seed']}, "
+        f"{model['integrator']['integrator']}, ejection {model['ejection_model']['speed_law']}",
+        "  times UTC; solar longitude geometric J2000; radiant RA/Dec J2000; miss = trail minus Earth (au)",
+        "",
+    ]
+    header = (
+        "  year  trail  rev  peak (UTC)            lambda_sun  miss_au   +-au     FWHM_h  "
+        "RA     Dec    Vg    n     dilution"
+    )
+
+    def rows(items):
+        out = []
+        for e in items:
+            out.append(
+                f"  {e['year']}  {e['trail']['perihelion_year']:>5}  {e['trail']['revolutions']:>3}  "
+                f"{e['peak_utc']:<20}  {e['solar_longitude_deg']:>9.4f}  {e['miss_distance_au']:+.5f}  "
+                f"{e['miss_distance_spread_au']:.5f}  {e['fwhm_hours']:6.2f}  {e['radiant']['ra_deg']:5.1f}  "
+                f"{e['radiant']['dec_deg']:+5.1f}  {e['vg_km_s']:4.1f}  {e['particles']:>4}  {e['dilution']:.3f}"
+            )
+        return out
+
+    lines.append("Encounters (trail within the encounter distance of Earth's path)")
+    lines += [header] + (rows(res["encounters"]) or ["  none"])
+    lines += [
+        "",
+        "Near misses (trail passes near but misses: no outburst expected from it)",
+        header,
+    ]
+    lines += rows(res["near_misses"]) or ["  none"]
+    for note in res["notes"]:
+        lines.append(f"Note: {note}")
+    lines += ["", *("Caution: " + c for c in res["cautions"])]
+    return "\n".join(lines)
+
+
 # --- parser -------------------------------------------------------------------------------------
 
 
@@ -242,6 +373,42 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     p.set_defaults(func=cmd_geometry)
+    p = sub.add_parser("forecast", help="dust-trail encounters of a parent's trails with Earth")
+    p.add_argument("orbit", metavar="ORBIT.json")
+    p.add_argument(
+        "--years", required=True, metavar="Y1[:Y2]", help="calendar years to forecast (UTC)"
+    )
+    p.add_argument(
+        "--particles",
+        type=int,
+        default=300,
+        help="meteoroids per trail and Earth passage (default 300)",
+    )
+    p.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
+    p.add_argument(
+        "--trails", metavar="YEARS", help="only these trails, by perihelion year, e.g. 1899,1932"
+    )
+    p.add_argument(
+        "--max-age", type=float, default=500.0, help="oldest trail in years (default 500)"
+    )
+    p.add_argument("--workers", type=int, default=1, help="worker processes (default 1)")
+    p.add_argument(
+        "--integrator", choices=("whfast", "ias15"), default="whfast", help="default whfast"
+    )
+    p.add_argument(
+        "--speed-law", default="whipple1951", help="ejection speed law (default whipple1951)"
+    )
+    p.add_argument(
+        "--mass-index", type=float, default=2.0, help="differential mass index s (default 2.0)"
+    )
+    p.add_argument(
+        "--density", type=float, default=1.0, help="meteoroid bulk density, g/cm^3 (default 1.0)"
+    )
+    p.add_argument(
+        "--nucleus-radius", type=float, default=2.0, help="nucleus radius, km (default 2.0)"
+    )
+    p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    p.set_defaults(func=cmd_forecast)
     return parser
 
 

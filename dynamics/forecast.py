@@ -1,0 +1,570 @@
+"""The dust-trail forecast pipeline: parent history -> release -> targeting -> N-body -> crossings.
+
+:func:`forecast` is the Python API the CLI and the service call. It returns a
+:class:`ForecastResult` whose :meth:`~ForecastResult.to_json` gives the documented JSON.
+
+Reproducibility: every random draw comes from ``numpy.random.SeedSequence([seed, trail])``, and
+particles are split into chunks of a fixed size in a fixed order, so the result does not depend
+on how many worker processes ran the chunks (meteoroids are test particles: none affects
+another).
+"""
+
+import concurrent.futures as cf
+import multiprocessing
+from collections.abc import Callable
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from . import __version__
+from .constants import DAYS_PER_JULIAN_YEAR
+from .encounters import Crossings, circular_median_radec, node_crossings
+from .ephemeris import ephemeris_info
+from .history import FirstPassage, ParentHistory, ParentReturn, parent_history
+from .nbody import integrate_particles, provenance, step_grid
+from .orbit_input import OrbitInput
+from .solar_longitude import solar_longitude_deg, times_of_solar_longitude_tdb
+from .timescales import TIME_SCALE_NOTES, calendar_year_tdb_jd, format_iso, format_utc
+from .trails import (
+    Candidates,
+    EjectionModel,
+    draw_candidates,
+    nodes_near_earth,
+    parent_node_time,
+)
+
+#: |median miss distance| below which a trail crossing is reported as an encounter (au).
+#: Common practice, no source: trails passing within ~0.005 au have given outbursts.
+ENCOUNTER_MAX_MISS_AU = 0.005
+#: Trails crossing farther than this are not reported at all (au).
+NEAR_MISS_MAX_AU = 0.05
+#: A parent node farther than this from Earth's orbit is not followed (au).
+NODE_MAX_DISTANCE_AU = 0.25
+
+CAUTIONS = (
+    "Predictions are model estimates with real uncertainty; timings are typically good to tens "
+    "of minutes for well-observed parents, intensities to a factor of several at best.",
+    "Spacecraft operators: defer to the responsible agencies' meteoroid environment assessments.",
+    "Observers: follow the usual night-time and outdoor safety practice.",
+)
+
+
+@dataclass(frozen=True)
+class ForecastOptions:
+    """Choices of one forecast. Every field has a documented default.
+
+    Attributes
+    ----------
+    first_year, last_year : int
+        Calendar years (UTC) to forecast, inclusive.
+    particles : int
+        Meteoroids integrated per trail and Earth passage after targeting.
+    pilot_particles : int
+        Meteoroids integrated per trail and passage to calibrate the targeting.
+    seed : int
+        Random seed; the same seed gives the same result.
+    trails : tuple of int or None
+        Perihelion years whose trails to include (None: all within ``max_trail_age_years``).
+    max_trail_age_years : float
+        Oldest trail followed for short-period parents (years before ``first_year``).
+    window_days : float
+        A meteoroid counts for an Earth passage when it crosses the node within this many days
+        of Earth passing the same longitude.
+    pilot_window_days : float
+        Half-width of the arrival window the pilot set spans.
+    integrator, dt_days : str, float
+        REBOUND integrator and WHFast step (see the README's comparison with IAS15).
+    workers : int
+        Worker processes for the chunks (1 = in this process).
+    chunk_size : int
+        Meteoroids per simulation chunk.
+    candidates : int
+        Release conditions drawn per trail for the targeting.
+    ejection : EjectionModel
+    """
+
+    first_year: int
+    last_year: int
+    particles: int = 300
+    pilot_particles: int = 40
+    seed: int = 1
+    trails: tuple[int, ...] | None = None
+    max_trail_age_years: float = 500.0
+    window_days: float = 20.0
+    pilot_window_days: float = 150.0
+    integrator: str = "whfast"
+    dt_days: float = 0.5
+    workers: int = 1
+    chunk_size: int = 250
+    candidates: int = 200_000
+    ejection: EjectionModel = field(default_factory=EjectionModel)
+
+    def describe(self) -> dict:
+        return {
+            "years": [self.first_year, self.last_year],
+            "particles_per_trail": self.particles,
+            "pilot_particles": self.pilot_particles,
+            "seed": self.seed,
+            "trails": list(self.trails) if self.trails is not None else None,
+            "max_trail_age_years": self.max_trail_age_years,
+            "window_days": self.window_days,
+            "integrator": self.integrator,
+            "dt_days": self.dt_days,
+            "chunk_size": self.chunk_size,
+        }
+
+
+@dataclass(frozen=True)
+class TrailEncounter:
+    """One trail's crossing of Earth's path at one Earth passage."""
+
+    year: int
+    trail_perihelion_tdb_jd: float
+    revolutions: int
+    node: str
+    peak_tdb_jd: float
+    solar_longitude_deg: float
+    miss_distance_au: float
+    miss_distance_spread_au: float
+    fwhm_hours: float
+    ra_deg: float
+    dec_deg: float
+    vg_km_s: float
+    vinf_km_s: float
+    particles: int
+    dilution: float
+    earth_passage_tdb_jd: float
+    crossings: Crossings = field(repr=False)
+    weights: np.ndarray = field(repr=False)
+
+    def to_json(self) -> dict:
+        return {
+            "year": self.year,
+            "trail": {
+                "perihelion_tdb": format_iso(self.trail_perihelion_tdb_jd, "TDB"),
+                "perihelion_year": _year_of(self.trail_perihelion_tdb_jd),
+                "revolutions": self.revolutions,
+            },
+            "node": self.node,
+            "peak_utc": format_utc(self.peak_tdb_jd),
+            "solar_longitude_deg": round(self.solar_longitude_deg, 4),
+            "miss_distance_au": round(self.miss_distance_au, 6),
+            "miss_distance_spread_au": round(self.miss_distance_spread_au, 6),
+            "fwhm_hours": round(self.fwhm_hours, 2),
+            "radiant": {"ra_deg": round(self.ra_deg, 2), "dec_deg": round(self.dec_deg, 2)},
+            "vg_km_s": round(self.vg_km_s, 2),
+            "vinf_km_s": round(self.vinf_km_s, 2),
+            "particles": self.particles,
+            "dilution": round(self.dilution, 4),
+        }
+
+
+@dataclass(frozen=True)
+class ForecastResult:
+    parent: OrbitInput
+    options: ForecastOptions
+    encounters: tuple[TrailEncounter, ...]
+    near_misses: tuple[TrailEncounter, ...]
+    particles_integrated: int
+    particles_contributing: int
+    candidates_drawn: int
+    history: ParentHistory = field(repr=False)
+    notes: tuple[str, ...] = ()
+
+    def to_json(self) -> dict:
+        return {
+            "parent": self.parent.to_json(),
+            "model": {
+                "version": __version__,
+                "ejection_model": self.options.ejection.describe(),
+                "integrator": provenance(self.options.integrator, self.options.dt_days),
+                "particles_integrated": self.particles_integrated,
+                "particles_contributing": self.particles_contributing,
+                "candidates_drawn": self.candidates_drawn,
+                "seed": self.options.seed,
+                "options": self.options.describe(),
+                "ephemeris": ephemeris_info(),
+                "parent_returns_tdb": [
+                    format_iso(r.tp_tdb_jd, "TDB") for r in self.history.returns
+                ],
+            },
+            "conventions": {
+                "times": "UTC, ISO 8601",
+                "solar_longitude": "geometric, equinox J2000",
+                "radiant": "RA/Dec, equinox J2000, geocentric, without zenith attraction",
+                "miss_distance": "meteoroid node distance minus Earth's heliocentric distance at "
+                "the same longitude (au); positive = trail outside Earth's orbit",
+                "time_scale_notes": list(TIME_SCALE_NOTES),
+            },
+            "encounters": [e.to_json() for e in self.encounters],
+            "near_misses": [e.to_json() for e in self.near_misses],
+            "notes": list(self.notes),
+            "cautions": list(CAUTIONS),
+        }
+
+
+# --- tasks (top-level so that worker processes can run them) -------------------------------------
+
+
+@dataclass(frozen=True)
+class _Task:
+    key: tuple
+    bodies: object
+    release_t: np.ndarray
+    r: np.ndarray
+    v: np.ndarray
+    beta: np.ndarray
+    out_t: np.ndarray
+    integrator: str
+    dt_days: float
+
+
+def _run_task(task: _Task):
+    return integrate_particles(
+        task.bodies,
+        task.release_t,
+        task.r,
+        task.v,
+        task.beta,
+        task.out_t,
+        integrator=task.integrator,
+        dt_days=task.dt_days,
+    )
+
+
+def _run_all(tasks, workers: int, executor=None):
+    if executor is not None:
+        return list(executor.map(_run_task, tasks))
+    if workers <= 1 or len(tasks) <= 1:
+        return [_run_task(t) for t in tasks]
+    ctx = multiprocessing.get_context("spawn")  # safe under a threaded web server
+    with cf.ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
+        return list(pool.map(_run_task, tasks))
+
+
+# --- the pipeline ------------------------------------------------------------------------------
+
+
+@dataclass
+class _Target:
+    """One trail, one Earth passage of one node, one number of revolutions."""
+
+    trail: int
+    year: int
+    node: str
+    t_earth: float
+    revolutions: int
+    t_parent_node: float
+    fit: tuple = (0.0, 1.0)
+    selection: Candidates | None = None
+    selection_fraction: float = 0.0
+
+
+def _year_of(t_tdb_jd: float) -> int:
+    return (
+        int(format_iso(t_tdb_jd, "TDB")[:5].rstrip("-"))
+        if t_tdb_jd < 0
+        else int(format_iso(t_tdb_jd, "TDB")[:4])
+    )
+
+
+def forecast(
+    orbit: OrbitInput,
+    options: ForecastOptions,
+    *,
+    progress: Callable[[float, str], None] | None = None,
+    executor=None,
+) -> ForecastResult:
+    """Forecast the parent's dust-trail encounters with Earth in the requested years.
+
+    Parameters
+    ----------
+    orbit : OrbitInput
+        The parent's orbit (epoch within DE423's span).
+    options : ForecastOptions
+    progress : callable, optional
+        Called as ``progress(fraction, stage)`` while the forecast runs.
+    executor : concurrent.futures.Executor, optional
+        Runs the integration chunks (a Dask client's executor works too); default: a local
+        process pool with ``options.workers`` processes.
+
+    Returns
+    -------
+    ForecastResult
+
+    Raises
+    ------
+    dynamics.history.FirstPassage
+        When the parent is on its first passage (no earlier returns: no trails).
+    """
+    say = progress or (lambda f, s: None)
+    if options.last_year < options.first_year:
+        raise ValueError("last_year must not precede first_year")
+    y_start, _ = calendar_year_tdb_jd(options.first_year)
+    _, y_end = calendar_year_tdb_jd(options.last_year)
+    say(0.0, "parent history")
+    t_min = y_start - options.max_trail_age_years * DAYS_PER_JULIAN_YEAR
+    if options.trails:  # only the named trails: no need to go further back than the oldest
+        t_min = calendar_year_tdb_jd(min(options.trails))[0] - 400.0
+    period = orbit.period_days if np.isfinite(orbit.period_days) else 0.0
+    t_max = y_end + min(1.3 * period, 300 * DAYS_PER_JULIAN_YEAR) + 60.0
+    try:
+        history = parent_history(
+            orbit, t_min, t_max, active_r_max_au=options.ejection.active_r_max_au
+        )
+    except FirstPassage as exc:  # a result, not an error: no earlier returns, no trails
+        history = ParentHistory((), orbit.epoch_tdb_jd, None, (str(exc),))
+    returns = history.returns
+    notes = list(history.notes)
+
+    # Which trails: returns before the forecast span, with an active arc.
+    trail_ids = []
+    for k, ret in enumerate(returns):
+        if ret.tp_tdb_jd >= y_end or len(ret.arc_t_tdb_jd) == 0:
+            continue
+        if options.trails is not None:
+            if _year_of(ret.tp_tdb_jd) not in options.trails:
+                continue
+        elif ret.tp_tdb_jd < t_min and k != _last_before(returns, y_start):
+            continue
+        trail_ids.append(k)
+    if not trail_ids:
+        notes.append("no parent return in the requested span has an active arc: no trails")
+
+    say(0.05, "targeting")
+    targets = _targets(returns, trail_ids, options)
+    if trail_ids and not targets:
+        notes.append(
+            "no trail can reach Earth's path in the requested years with the ejection model"
+        )
+
+    # Candidates per trail (deterministic per trail).
+    pools: dict[int, Candidates] = {}
+    rngs: dict[int, np.random.Generator] = {}
+    drawn = 0
+    for k in sorted({t.trail for t in targets}):
+        rngs[k] = np.random.default_rng(
+            np.random.SeedSequence([options.seed, int(round(returns[k].tp_tdb_jd))])
+        )
+        pools[k] = draw_candidates(returns[k], options.ejection, options.candidates, rngs[k])
+        drawn += options.candidates
+
+    # Pilot: integrate a spread of candidates per target, fit real vs predicted arrival.
+    pilot_tasks, pilot_meta = [], []
+    for ti, tg in enumerate(targets):
+        pool = pools[tg.trail]
+        x = _predicted_offset(pool, tg)
+        inside = np.flatnonzero(np.abs(x) <= options.pilot_window_days)
+        if len(inside) == 0:
+            continue
+        order = inside[np.argsort(x[inside])]
+        pick = order[
+            np.unique(np.linspace(0, len(order) - 1, options.pilot_particles).round().astype(int))
+        ]
+        sel = pool.take(pick)
+        out_t = _output_times(
+            returns[tg.trail], tg.t_earth, options.pilot_window_days + 40.0, 5.0, options.dt_days
+        )
+        pilot_tasks.append(_make_task(("pilot", ti), returns[tg.trail], sel, out_t, options))
+        pilot_meta.append((ti, sel, x[pick]))
+    say(0.1, "pilot integration")
+    pilot_results = _run_all(pilot_tasks, options.workers, executor)
+    integrated = sum(len(t.beta) for t in pilot_tasks)
+    for (ti, sel, x_pred), snaps in zip(pilot_meta, pilot_results, strict=True):
+        tg = targets[ti]
+        cr = node_crossings(snaps, sel.beta, tg.node)
+        y = cr.t_cross_tdb_jd - tg.t_earth
+        tg.fit = _robust_line(x_pred, y)
+        if not (0.2 <= tg.fit[1] <= 5.0):  # no sensible calibration: fall back to the prediction
+            tg.fit = (0.0, 1.0)
+
+    # Selection for the main integration.
+    say(0.3, "selection")
+    main_tasks, main_meta = [], []
+    for ti, tg in enumerate(targets):
+        pool = pools[tg.trail]
+        a, b = tg.fit
+        y_pred = a + b * _predicted_offset(pool, tg)
+        ok = np.abs(y_pred) <= options.window_days
+        tg.selection_fraction = (
+            float(pool.weight[ok].sum() / pool.weight.sum()) if len(pool) else 0.0
+        )
+        idx = np.flatnonzero(ok)[: options.particles]
+        if len(idx) == 0:
+            continue
+        tg.selection = pool.take(idx)
+        out_t = _output_times(
+            returns[tg.trail], tg.t_earth, options.window_days + 30.0, 2.0, options.dt_days
+        )
+        for start in range(0, len(idx), options.chunk_size):
+            chunk = tg.selection.take(np.arange(start, min(start + options.chunk_size, len(idx))))
+            main_tasks.append(
+                _make_task(("main", ti, start), returns[tg.trail], chunk, out_t, options)
+            )
+            main_meta.append((ti, start))
+    say(0.35, "integration")
+    main_results = _run_all(main_tasks, options.workers, executor)
+    integrated += sum(len(t.beta) for t in main_tasks)
+
+    # Assemble per target.
+    say(0.9, "encounters")
+    per_target: dict[int, list] = {}
+    for (ti, _start), task, snaps in zip(main_meta, main_tasks, main_results, strict=True):
+        per_target.setdefault(ti, []).append(node_crossings(snaps, task.beta, targets[ti].node))
+    encounters, near = [], []
+    contributing = 0
+    for ti, parts in per_target.items():
+        tg = targets[ti]
+        cr = _concat_crossings(parts)
+        w = tg.selection.weight
+        summary = _summarise(tg, returns[tg.trail], cr, w, options)
+        if summary is None:
+            continue
+        contributing += summary.particles
+        if abs(summary.miss_distance_au) <= ENCOUNTER_MAX_MISS_AU:
+            encounters.append(summary)
+        elif abs(summary.miss_distance_au) <= NEAR_MISS_MAX_AU:
+            near.append(summary)
+    encounters.sort(key=lambda e: e.peak_tdb_jd)
+    near.sort(key=lambda e: e.peak_tdb_jd)
+    say(1.0, "done")
+    return ForecastResult(
+        parent=orbit,
+        options=options,
+        encounters=tuple(encounters),
+        near_misses=tuple(near),
+        particles_integrated=integrated,
+        particles_contributing=contributing,
+        candidates_drawn=drawn,
+        history=history,
+        notes=tuple(notes),
+    )
+
+
+def _last_before(returns, t):
+    ks = [k for k, r in enumerate(returns) if r.tp_tdb_jd < t]
+    return ks[-1] if ks else -1
+
+
+def _targets(returns, trail_ids, options) -> list[_Target]:
+    """Every (trail, Earth passage, node, revolutions) combination worth a pilot."""
+    if not trail_ids:
+        return []
+    out = []
+    for year in range(options.first_year, options.last_year + 1):
+        y0, y1 = calendar_year_tdb_jd(year)
+        # node geometry from the parent return nearest this year
+        ref = min(returns, key=lambda r: abs(r.tp_tdb_jd - 0.5 * (y0 + y1)))
+        for node, _r_node, lon in nodes_near_earth(ref, NODE_MAX_DISTANCE_AU):
+            for t_e in np.atleast_1d(times_of_solar_longitude_tdb((lon - 180.0) % 360.0, y0, y1)):
+                for k in trail_ids:
+                    for j in range(k, len(returns)):
+                        t_node = parent_node_time(returns[j], node)
+                        if t_node > t_e + 0.75 * returns[j].period_days:
+                            break
+                        if t_node < returns[k].tp_tdb_jd - 200.0:
+                            continue
+                        out.append(_Target(k, year, node, float(t_e), j - k, t_node))
+    return out
+
+
+def _predicted_offset(pool: Candidates, tg: _Target) -> np.ndarray:
+    """Predicted node arrival minus Earth's passage (days), zeroth order in perturbations."""
+    return tg.t_parent_node + tg.revolutions * pool.dperiod_days + pool.dtp_days - tg.t_earth
+
+
+def _robust_line(x, y):
+    """Fit y = a + b x, dropping outliers (planetary close encounters) beyond 3 robust sigmas."""
+    good = np.isfinite(x) & np.isfinite(y)
+    x, y = x[good], y[good]
+    if len(x) < 5:
+        return (float(np.median(y - x)) if len(x) else 0.0, 1.0)
+    for _ in range(3):
+        b, a = np.polyfit(x, y, 1)
+        res = y - (a + b * x)
+        mad = 1.4826 * np.median(np.abs(res - np.median(res))) + 1e-6
+        keep = np.abs(res) <= 3.0 * mad
+        if keep.all() or keep.sum() < 5:
+            break
+        x, y = x[keep], y[keep]
+    b, a = np.polyfit(x, y, 1)
+    return float(a), float(b)
+
+
+def _output_times(ret: ParentReturn, t_center, half_width, step, dt_days):
+    t0 = ret.bodies_at_arc_start.t_tdb_jd
+    raw = np.arange(t_center - half_width, t_center + half_width + step, step)
+    return np.unique(step_grid(t0, raw, dt_days))
+
+
+def _make_task(key, ret: ParentReturn, sel: Candidates, out_t, options) -> _Task:
+    t0 = ret.bodies_at_arc_start.t_tdb_jd
+    return _Task(
+        key=key,
+        bodies=ret.bodies_at_arc_start,
+        release_t=step_grid(t0, sel.release_t_tdb_jd, options.dt_days),
+        r=sel.r_au,
+        v=sel.v_au_d,
+        beta=sel.beta,
+        out_t=out_t,
+        integrator=options.integrator,
+        dt_days=options.dt_days,
+    )
+
+
+def _concat_crossings(parts) -> Crossings:
+    return Crossings(
+        *(np.concatenate([getattr(p, f) for p in parts]) for f in Crossings.__dataclass_fields__)
+    )
+
+
+def _summarise(
+    tg: _Target, ret: ParentReturn, cr: Crossings, weights, options
+) -> TrailEncounter | None:
+    """Trail-level numbers from the particles that meet Earth's passage window."""
+    lag = cr.t_cross_tdb_jd - cr.t_earth_tdb_jd
+    # at the node within the window of Earth's passage, and Earth's passage is this target's
+    same_passage = np.abs(cr.t_earth_tdb_jd - tg.t_earth) <= 30.0
+    keep = np.isfinite(lag) & (np.abs(lag) <= options.window_days) & same_passage
+    n = int(keep.sum())
+    if n < 3:
+        return None
+    te = cr.t_earth_tdb_jd[keep]
+    miss = cr.miss_distance_au[keep]
+    peak = float(np.median(te))
+    q16, q84 = np.percentile(miss, [16, 84])
+    sigma_t = 1.4826 * float(np.median(np.abs(te - peak)))
+    ra, dec = circular_median_radec(cr.ra_deg[keep], cr.dec_deg[keep])
+    a, b = tg.fit
+    dilution = 1.0 / max(1.0, abs(b) * tg.revolutions)
+    sub = Crossings(*(getattr(cr, f)[keep] for f in Crossings.__dataclass_fields__))
+    return TrailEncounter(
+        year=tg.year,
+        trail_perihelion_tdb_jd=ret.tp_tdb_jd,
+        revolutions=tg.revolutions,
+        node=tg.node,
+        peak_tdb_jd=peak,
+        solar_longitude_deg=float(solar_longitude_deg(peak)),
+        miss_distance_au=float(np.median(miss)),
+        miss_distance_spread_au=float(0.5 * (q84 - q16)),
+        fwhm_hours=2.3548 * sigma_t * 24.0,
+        ra_deg=ra,
+        dec_deg=dec,
+        vg_km_s=float(np.median(cr.vg_km_s[keep])),
+        vinf_km_s=float(np.median(cr.vinf_km_s[keep])),
+        particles=n,
+        dilution=dilution,
+        earth_passage_tdb_jd=tg.t_earth,
+        crossings=sub,
+        weights=np.asarray(weights)[keep],
+    )
+
+
+__all__ = [
+    "ForecastOptions",
+    "ForecastResult",
+    "TrailEncounter",
+    "forecast",
+    "EjectionModel",
+    "replace",
+]

@@ -1,0 +1,352 @@
+"""Parent history: integrate a comet back (and forward) through its perihelia with the planets.
+
+The parent is a test particle in an IAS15 simulation of the Sun and planets, started from DE423
+at the orbit's epoch and integrated by REBOUND in both directions (outside DE423's 1800-2200 span
+the planets are integrated, never extrapolated from the ephemeris). Optional Marsden-type
+non-gravitational forces act on the parent (Marsden, Sekanina & Yeomans 1973, AJ 78, 211):
+
+    a = g(r) (A1 R + A2 T + A3 N),
+    g(r) = alpha (r/r0)^-m (1 + (r/r0)^n)^-k,
+
+with R radial (from the Sun), T transverse (in the orbit plane, towards the motion) and N normal,
+alpha = 0.1112620426, r0 = 2.808 au, m = 2.15, n = 5.093, k = 4.6142 (the water-ice law).
+
+For every perihelion passage trailcast keeps the perihelion state and the parent's states on a
+one-day grid over its *active arc* (heliocentric distance below ``active_r_max_au``), together
+with the planets at the start of that arc: that is where meteoroids are released.
+"""
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .constants import GM_SUN_AU3_D2
+from .errors import TrailcastError
+from .nbody import MassiveBodies, _new_simulation, massive_bodies_from_ephemeris
+from .orbit_input import OrbitInput
+from .orbits import Elements, elements_to_state, state_to_elements
+
+# Marsden, Sekanina & Yeomans (1973) g(r) constants for water ice.
+NONGRAV_ALPHA = 0.1112620426
+NONGRAV_R0_AU = 2.808
+NONGRAV_M = 2.15
+NONGRAV_N = 5.093
+NONGRAV_K = 4.6142
+
+#: Default heliocentric distance within which the parent releases meteoroids (au).
+#: Common practice, no single source: water-driven activity switches on inside ~3 au.
+DEFAULT_ACTIVE_R_MAX_AU = 3.0
+#: Sampling step of the parent inside the active arc (days).
+ARC_STEP_DAYS = 1.0
+#: How far back to look for the previous return of a long-period comet (years).
+MAX_LOOKBACK_YEARS = 30_000.0
+#: Distance beyond which the barycentric orbit is taken as the comet's original orbit (au).
+ORIGINAL_ORBIT_DISTANCE_AU = 250.0
+
+
+class FirstPassage(TrailcastError):
+    """The parent's original (barycentric, pre-entry) orbit is hyperbolic: this is its first
+    passage through the inner Solar System, so it has left no dust trails to meet. Nothing to
+    forecast; check the orbit solution if that is unexpected."""
+
+
+def nongrav_g(r_au):
+    """Marsden et al. (1973) g(r), normalised so that g(1 au) = 1 (approximately)."""
+    x = np.asarray(r_au, dtype=float) / NONGRAV_R0_AU
+    return NONGRAV_ALPHA * x ** (-NONGRAV_M) * (1.0 + x**NONGRAV_N) ** (-NONGRAV_K)
+
+
+@dataclass(frozen=True)
+class ParentReturn:
+    """One perihelion passage of the parent and its active arc.
+
+    Attributes
+    ----------
+    tp_tdb_jd : float
+        Perihelion time (TDB JD).
+    elements : Elements
+        Osculating heliocentric elements at perihelion.
+    arc_t_tdb_jd : ndarray (k,)
+        Times of the parent's states inside the active arc (one-day grid).
+    arc_r_au, arc_v_au_d : ndarray (k, 3)
+        Heliocentric states of the parent at those times (ecliptic J2000).
+    bodies_at_arc_start : MassiveBodies or None
+        Sun and planets at ``arc_t_tdb_jd[0]`` (None when the arc is empty).
+    """
+
+    tp_tdb_jd: float
+    elements: Elements
+    arc_t_tdb_jd: np.ndarray = field(repr=False)
+    arc_r_au: np.ndarray = field(repr=False)
+    arc_v_au_d: np.ndarray = field(repr=False)
+    bodies_at_arc_start: MassiveBodies | None = field(repr=False)
+
+    @property
+    def period_days(self) -> float:
+        return float(self.elements.period_days)
+
+
+@dataclass(frozen=True)
+class ParentHistory:
+    """Perihelion passages of a parent, oldest first, with how they were found."""
+
+    returns: tuple[ParentReturn, ...]
+    epoch_tdb_jd: float
+    original_inverse_a_per_au: float | None
+    notes: tuple[str, ...]
+
+
+def _add_nongrav(sim, index: int, a1: float, a2: float, a3: float):
+    """Python force callback for one particle (only the parent: cost is one particle)."""
+
+    def force(sim_pointer):
+        s = sim_pointer.contents
+        ps = s.particles
+        sun, p = ps[0], ps[index]
+        x, y, z = p.x - sun.x, p.y - sun.y, p.z - sun.z
+        vx, vy, vz = p.vx - sun.vx, p.vy - sun.vy, p.vz - sun.vz
+        r = math.sqrt(x * x + y * y + z * z)
+        hx, hy, hz = y * vz - z * vy, z * vx - x * vz, x * vy - y * vx
+        h = math.sqrt(hx * hx + hy * hy + hz * hz)
+        rx, ry, rz = x / r, y / r, z / r
+        nx, ny, nz = hx / h, hy / h, hz / h
+        tx, ty, tz = ny * rz - nz * ry, nz * rx - nx * rz, nx * ry - ny * rx
+        g = float(nongrav_g(r))
+        p.ax += g * (a1 * rx + a2 * tx + a3 * nx)
+        p.ay += g * (a1 * ry + a2 * ty + a3 * ny)
+        p.az += g * (a1 * rz + a2 * tz + a3 * nz)
+
+    sim.additional_forces = force
+    sim.force_is_velocity_dependent = 1
+    return force
+
+
+def _parent_simulation(orbit: OrbitInput):
+    bodies = massive_bodies_from_ephemeris(orbit.epoch_tdb_jd)
+    sim = _new_simulation(bodies, "ias15", 1.0)
+    r, v = elements_to_state(
+        orbit.q_au,
+        orbit.e,
+        orbit.incl_deg,
+        orbit.node_deg,
+        orbit.peri_deg,
+        orbit.tp_tdb_jd,
+        orbit.epoch_tdb_jd,
+    )
+    sun = bodies.r_au[0], bodies.v_au_d[0]
+    pos, vel = r + sun[0], v + sun[1]
+    sim.add(m=0.0, x=pos[0], y=pos[1], z=pos[2], vx=vel[0], vy=vel[1], vz=vel[2])
+    keep = None
+    if orbit.nongrav is not None and any(
+        (orbit.nongrav.a1_au_d2, orbit.nongrav.a2_au_d2, orbit.nongrav.a3_au_d2)
+    ):
+        keep = _add_nongrav(
+            sim, sim.N - 1, orbit.nongrav.a1_au_d2, orbit.nongrav.a2_au_d2, orbit.nongrav.a3_au_d2
+        )
+    return sim, bodies, keep
+
+
+def _state(sim):
+    ps = sim.particles
+    sun, p = ps[0], ps[sim.N - 1]
+    r = np.array([p.x - sun.x, p.y - sun.y, p.z - sun.z])
+    v = np.array([p.vx - sun.vx, p.vy - sun.vy, p.vz - sun.vz])
+    return r, v
+
+
+def _barycentric_inverse_a(sim) -> float:
+    """1/a of the parent's barycentric orbit about the total mass (1/au)."""
+    n = sim.N
+    xyz = np.empty((n, 3))
+    vel = np.empty((n, 3))
+    sim.serialize_particle_data(xyz=xyz, vxvyvz=vel)
+    m = np.array([sim.particles[i].m for i in range(sim.N_active)])
+    gm_total = m.sum()
+    r = np.linalg.norm(xyz[-1])  # the simulation frame is the DE423 barycentre
+    v2 = np.dot(vel[-1], vel[-1])
+    return 2.0 / r - v2 / gm_total
+
+
+def _massive_bodies(sim) -> MassiveBodies:
+    n_active = sim.N_active
+    xyz = np.empty((sim.N, 3))
+    vel = np.empty((sim.N, 3))
+    sim.serialize_particle_data(xyz=xyz, vxvyvz=vel)
+    from .nbody import MASSIVE_BODIES
+
+    gm = np.array([sim.particles[i].m for i in range(n_active)])
+    return MassiveBodies(
+        float(sim.t), MASSIVE_BODIES, gm, xyz[:n_active].copy(), vel[:n_active].copy()
+    )
+
+
+def _march(sim, t_stop: float, direction: int, active_r_max_au: float, stop_after_perihelia=None):
+    """Step the parent simulation towards ``t_stop``; return samples and perihelion passages.
+
+    Samples are taken every day inside the active arc and every few percent of the local
+    orbital time scale outside it. Returns (samples, perihelia) where samples are tuples
+    (t, r, v, bodies or None) and perihelia are (t_before, r, v) at the sample preceding a
+    sign change of r.v.
+    """
+    samples = []
+    perihelia = []
+    r, v = _state(sim)
+    if direction > 0:  # the starting instant belongs to exactly one of the two marches
+        inside = float(np.linalg.norm(r)) < active_r_max_au
+        samples.append((sim.t, r, v, _massive_bodies(sim) if inside else None))
+    prev = (sim.t, r, v, float(np.dot(r, v)))
+    t = sim.t
+    epoch = sim.t
+    while (t_stop - t) * direction > 0:
+        rn = float(np.linalg.norm(prev[1]))
+        if rn < active_r_max_au + 0.5:
+            step = ARC_STEP_DAYS
+        else:
+            step = float(np.clip(0.02 * 365.25 * rn**1.5, ARC_STEP_DAYS, 20_000.0))
+            # never jump deep into the active arc: move at most half the way to its edge
+            speed = float(np.linalg.norm(prev[2]))
+            step = min(step, max(ARC_STEP_DAYS, 0.5 * (rn - active_r_max_au) / speed))
+            # land on the one-day grid anchored at the epoch, so arcs line up with it
+            step = max(ARC_STEP_DAYS, math.floor(step))
+        t_next = t + direction * step
+        if (t_stop - t_next) * direction < 0:
+            t_next = t_stop
+        sim.integrate(t_next, exact_finish_time=1)
+        t = t_next
+        r, v = _state(sim)
+        rv = float(np.dot(r, v))
+        rn = float(np.linalg.norm(r))
+        inside = rn < active_r_max_au
+        samples.append((t, r, v, _massive_bodies(sim) if inside else None))
+        # perihelion between prev and now: r.v changes from - to + in forward time
+        if prev[3] * rv < 0 and ((direction > 0 and rv > 0) or (direction < 0 and rv < 0)):
+            perihelia.append((t, r, v))
+        if (
+            stop_after_perihelia is not None
+            and len(perihelia) >= stop_after_perihelia
+            and not inside
+        ):
+            break  # enough returns, and the last one's active arc is complete
+        if (
+            direction < 0
+            and rn > ORIGINAL_ORBIT_DISTANCE_AU
+            and rv < 0
+            and _barycentric_inverse_a(sim) <= 0
+        ):
+            # moving away from the Sun backwards in time on an unbound barycentric orbit
+            break
+        if abs(t - epoch) > MAX_LOOKBACK_YEARS * 365.25:
+            break
+        prev = (t, r, v, rv)
+    return samples, perihelia
+
+
+def parent_history(
+    orbit: OrbitInput,
+    t_min_tdb_jd: float,
+    t_max_tdb_jd: float,
+    *,
+    active_r_max_au: float = DEFAULT_ACTIVE_R_MAX_AU,
+    min_previous_returns: int = 1,
+) -> ParentHistory:
+    """Integrate the parent from its epoch back to ``t_min`` and forward to ``t_max``.
+
+    Parameters
+    ----------
+    orbit : OrbitInput
+        Heliocentric osculating elements at ``orbit.epoch_tdb_jd`` (within DE423's span).
+    t_min_tdb_jd, t_max_tdb_jd : float
+        Span to cover (TDB JD). If fewer than ``min_previous_returns`` perihelia before the
+        epoch's own fall in it (a long-period comet), the backward integration goes on until
+        they are found, up to :data:`MAX_LOOKBACK_YEARS`.
+    active_r_max_au : float
+        The active arc is where the parent is closer to the Sun than this (au).
+
+    Returns
+    -------
+    ParentHistory
+
+    Raises
+    ------
+    FirstPassage
+        When the backward integration shows an unbound original orbit before any earlier
+        perihelion was found.
+    """
+    notes = []
+    sim, _, keep_force = _parent_simulation(orbit)
+    back, peri_back = _march(sim, t_min_tdb_jd, -1, active_r_max_au)
+    # The epoch's own passage and any before it within the span are in peri_back. Long-period
+    # parents need the previous return even beyond t_min.
+    n_before = sum(1 for (t, _, _) in peri_back if t < orbit.tp_tdb_jd - 1.0)
+    original_inv_a = None
+    if (
+        n_before < min_previous_returns
+        and sim.t > orbit.epoch_tdb_jd - MAX_LOOKBACK_YEARS * 365.25 + 1
+    ):
+        more, peri_more = _march(
+            sim,
+            orbit.epoch_tdb_jd - MAX_LOOKBACK_YEARS * 365.25,
+            -1,
+            active_r_max_au,
+            stop_after_perihelia=min_previous_returns - n_before,
+        )
+        back += more
+        peri_back += peri_more
+        if not any(t < orbit.tp_tdb_jd - 1.0 for (t, _, _) in peri_back):
+            inv_a = _barycentric_inverse_a(sim)
+            original_inv_a = inv_a
+            if inv_a <= 0:
+                raise FirstPassage(
+                    f"{orbit.name}: the original barycentric orbit is hyperbolic (1/a = {inv_a:.3g} /au): "
+                    "first passage, no earlier returns and no dust trails"
+                )
+            notes.append(f"no earlier perihelion found within {MAX_LOOKBACK_YEARS:.0f} years")
+        else:
+            notes.append("long-period parent: integrated back to its previous return")
+    del keep_force
+
+    sim, _, keep_force = _parent_simulation(orbit)
+    fwd, peri_fwd = _march(sim, t_max_tdb_jd, +1, active_r_max_au)
+    del keep_force
+
+    samples = sorted(back + fwd, key=lambda s: s[0])
+    peri = sorted(peri_back + peri_fwd, key=lambda p: p[0])
+    returns = []
+    seen = []
+    for t, r, v in peri:
+        el = state_to_elements(r, v, t, GM_SUN_AU3_D2)
+        tp = float(el.tp_tdb_jd)
+        if any(abs(tp - s) < 5.0 for s in seen):
+            continue
+        seen.append(tp)
+        returns.append(_collect_return(el, tp, samples))
+    return ParentHistory(tuple(returns), orbit.epoch_tdb_jd, original_inv_a, tuple(notes))
+
+
+def _collect_return(el: Elements, tp: float, samples) -> ParentReturn:
+    """Gather the contiguous active-arc samples around perihelion ``tp``."""
+    times = np.array([s[0] for s in samples])
+    active = np.array([s[3] is not None for s in samples])
+    i0 = int(np.argmin(np.abs(times - tp)))
+    if not active[i0]:
+        return ParentReturn(tp, el, np.zeros(0), np.zeros((0, 3)), np.zeros((0, 3)), None)
+    lo = i0
+    while lo > 0 and active[lo - 1] and times[lo] - times[lo - 1] <= ARC_STEP_DAYS + 1e-6:
+        lo -= 1
+    hi = i0
+    while (
+        hi < len(samples) - 1
+        and active[hi + 1]
+        and times[hi + 1] - times[hi] <= ARC_STEP_DAYS + 1e-6
+    ):
+        hi += 1
+    arc = samples[lo : hi + 1]
+    return ParentReturn(
+        tp_tdb_jd=tp,
+        elements=el,
+        arc_t_tdb_jd=np.array([s[0] for s in arc]),
+        arc_r_au=np.array([s[1] for s in arc]),
+        arc_v_au_d=np.array([s[2] for s in arc]),
+        bodies_at_arc_start=arc[0][3],
+    )
