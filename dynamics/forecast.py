@@ -136,6 +136,7 @@ class TrailEncounter:
     earth_passage_tdb_jd: float
     crossings: Crossings = field(repr=False)
     weights: np.ndarray = field(repr=False)
+    meteoroids: Candidates = field(repr=False)  # release time, mass, size, beta of each one
 
     def to_json(self) -> dict:
         return {
@@ -232,14 +233,36 @@ def _run_task(task: _Task):
     )
 
 
-def _run_all(tasks, workers: int, executor=None):
-    if executor is not None:
-        return list(executor.map(_run_task, tasks))
-    if workers <= 1 or len(tasks) <= 1:
-        return [_run_task(t) for t in tasks]
-    ctx = multiprocessing.get_context("spawn")  # safe under a threaded web server
-    with cf.ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-        return list(pool.map(_run_task, tasks))
+def _run_all(tasks, workers: int, executor=None, on_done=None):
+    """Run integration tasks, in order of submission; ``on_done(k, n)`` after each one.
+
+    An exception raised by ``on_done`` (e.g. a cancelled job) stops the run: tasks not yet
+    started are cancelled.
+    """
+    n = len(tasks)
+    report = on_done or (lambda k, total: None)
+    if executor is None and (workers <= 1 or n <= 1):
+        out = []
+        for k, t in enumerate(tasks):
+            out.append(_run_task(t))
+            report(k + 1, n)
+        return out
+    own = executor is None
+    if own:
+        ctx = multiprocessing.get_context("spawn")  # safe under a threaded web server
+        executor = cf.ProcessPoolExecutor(max_workers=workers, mp_context=ctx)
+    futures = [executor.submit(_run_task, t) for t in tasks]
+    try:
+        for k, _ in enumerate(cf.as_completed(futures)):
+            report(k + 1, n)
+        return [f.result() for f in futures]
+    except BaseException:
+        for f in futures:
+            f.cancel()
+        raise
+    finally:
+        if own:
+            executor.shutdown(wait=True, cancel_futures=True)
 
 
 # --- the pipeline ------------------------------------------------------------------------------
@@ -368,7 +391,12 @@ def forecast(
         pilot_tasks.append(_make_task(("pilot", ti), returns[tg.trail], sel, out_t, options))
         pilot_meta.append((ti, sel, x[pick]))
     say(0.1, "pilot integration")
-    pilot_results = _run_all(pilot_tasks, options.workers, executor)
+    pilot_results = _run_all(
+        pilot_tasks,
+        options.workers,
+        executor,
+        lambda k, n: say(0.1 + 0.2 * k / n, "pilot integration"),
+    )
     integrated = sum(len(t.beta) for t in pilot_tasks)
     for (ti, sel, x_pred), snaps in zip(pilot_meta, pilot_results, strict=True):
         tg = targets[ti]
@@ -403,7 +431,9 @@ def forecast(
             )
             main_meta.append((ti, start))
     say(0.35, "integration")
-    main_results = _run_all(main_tasks, options.workers, executor)
+    main_results = _run_all(
+        main_tasks, options.workers, executor, lambda k, n: say(0.35 + 0.55 * k / n, "integration")
+    )
     integrated += sum(len(t.beta) for t in main_tasks)
 
     # Assemble per target.
@@ -557,6 +587,7 @@ def _summarise(
         earth_passage_tdb_jd=tg.t_earth,
         crossings=sub,
         weights=np.asarray(weights)[keep],
+        meteoroids=tg.selection.take(np.flatnonzero(keep)),
     )
 
 
