@@ -47,6 +47,7 @@ class Crossings:
     dec_deg: np.ndarray
     vg_km_s: np.ndarray
     vinf_km_s: np.ndarray
+    vz_au_d: np.ndarray  # heliocentric velocity across the ecliptic plane at the node
 
 
 def elements_under_radiation(r_au, v_au_d, t_tdb_jd, beta):
@@ -105,7 +106,7 @@ def node_crossings(snapshots, beta, node: str) -> Crossings:
     m, n = len(t_out), len(beta)
     nan = np.full(n, np.nan)
     if n == 0 or m == 0:
-        return Crossings(*(nan.copy() for _ in range(10)))
+        return Crossings(*(nan.copy() for _ in range(11)))
 
     # Crossing time predicted from every snapshot; keep the snapshot nearest its own prediction.
     best_gap = np.full(n, np.inf)
@@ -153,11 +154,15 @@ def node_crossings(snapshots, beta, node: str) -> Crossings:
 
     have = np.isfinite(best["tc"])
     out = {
-        k: nan.copy() for k in ("tc", "te", "lon", "rn", "miss", "sl", "ra", "dec", "vg", "vinf")
+        k: nan.copy()
+        for k in ("tc", "te", "lon", "rn", "miss", "sl", "ra", "dec", "vg", "vinf", "vz")
     }
     if not np.any(have):
         return Crossings(
-            *(out[k] for k in ("tc", "te", "lon", "rn", "miss", "sl", "ra", "dec", "vg", "vinf"))
+            *(
+                out[k]
+                for k in ("tc", "te", "lon", "rn", "miss", "sl", "ra", "dec", "vg", "vinf", "vz")
+            )
         )
     q, e, i, om, w = (best[k][have] for k in ("q", "e", "i", "node", "peri"))
     nu_node = -w if node == "ascending" else 180.0 - w
@@ -181,8 +186,9 @@ def node_crossings(snapshots, beta, node: str) -> Crossings:
     out["dec"][have] = dec
     out["vg"][have] = vg_mag
     out["vinf"][have] = np.sqrt(vg_mag**2 + EARTH_ESCAPE_KM_S**2)
+    out["vz"][have] = v_node[:, 2]
     return Crossings(
-        *(out[k] for k in ("tc", "te", "lon", "rn", "miss", "sl", "ra", "dec", "vg", "vinf"))
+        *(out[k] for k in ("tc", "te", "lon", "rn", "miss", "sl", "ra", "dec", "vg", "vinf", "vz"))
     )
 
 

@@ -17,9 +17,22 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from . import __version__
+from .activity import (
+    DEFAULT_DUST_MASS_RANGE_G,
+    DEFAULT_DUST_TO_GAS,
+    DEFAULT_EROSION_M_PER_RETURN,
+    MODEL_UNCERTAINTY_FACTOR,
+    Profile,
+    activity_profile,
+    default_dust_mass_per_return_g,
+    limiting_mass_g,
+    meteoroids_per_particle,
+)
 from .constants import DAYS_PER_JULIAN_YEAR
+from .ejection import population_index_from_mass_index
 from .encounters import Crossings, circular_median_radec, node_crossings
-from .ephemeris import ephemeris_info
+from .ephemeris import ephemeris_info, heliocentric_state
+from .errors import TrailcastError
 from .history import FirstPassage, ParentHistory, ParentReturn, parent_history
 from .nbody import integrate_particles, provenance, step_grid
 from .orbit_input import OrbitInput
@@ -41,12 +54,37 @@ NEAR_MISS_MAX_AU = 0.05
 #: A parent node farther than this from Earth's orbit is not followed (au).
 NODE_MAX_DISTANCE_AU = 0.25
 
+
+class CalibrationFailed(TrailcastError):
+    """The calibration outburst's trail gives no modelled activity in its year: check the year
+    and the trail's perihelion year, or use absolute mode."""
+
+
 CAUTIONS = (
     "Predictions are model estimates with real uncertainty; timings are typically good to tens "
     "of minutes for well-observed parents, intensities to a factor of several at best.",
     "Spacecraft operators: defer to the responsible agencies' meteoroid environment assessments.",
     "Observers: follow the usual night-time and outdoor safety practice.",
 )
+
+
+@dataclass(frozen=True)
+class Calibration:
+    """A past observed outburst of the same parent, used to scale the ZHR.
+
+    Attributes
+    ----------
+    year : int
+        Year of the observed outburst.
+    trail_year : int
+        Perihelion year of the trail it is attributed to.
+    zhr : float
+        Observed peak ZHR.
+    """
+
+    year: int
+    trail_year: int
+    zhr: float
 
 
 @dataclass(frozen=True)
@@ -98,6 +136,9 @@ class ForecastOptions:
     chunk_size: int = 250
     candidates: int = 200_000
     ejection: EjectionModel = field(default_factory=EjectionModel)
+    dust_mass_per_return_g: float | None = None
+    calibration: Calibration | None = None
+    zhr_scale: float = 1.0  # set by the calibration; 1 in absolute mode
 
     def describe(self) -> dict:
         return {
@@ -111,7 +152,25 @@ class ForecastOptions:
             "integrator": self.integrator,
             "dt_days": self.dt_days,
             "chunk_size": self.chunk_size,
+            "dust_mass_per_return_g": self.dust_mass(),
+            "dust_mass_rule": None
+            if self.dust_mass_per_return_g is not None
+            else (
+                f"default: {DEFAULT_EROSION_M_PER_RETURN} m of the surface of a "
+                f"{self.ejection.nucleus_radius_km} km nucleus of density "
+                f"{self.ejection.nucleus_density_g_cm3} g/cm^3 per return, dust/gas "
+                f"{DEFAULT_DUST_TO_GAS}, spread over {DEFAULT_DUST_MASS_RANGE_G[0]:g}-"
+                f"{DEFAULT_DUST_MASS_RANGE_G[1]:g} g (common practice, no source)"
+            ),
         }
+
+    def dust_mass(self) -> float:
+        """Dust mass released per return (g), stated or by the default rule."""
+        if self.dust_mass_per_return_g is not None:
+            return float(self.dust_mass_per_return_g)
+        return default_dust_mass_per_return_g(
+            self.ejection.nucleus_radius_km, self.ejection.nucleus_density_g_cm3
+        )
 
 
 @dataclass(frozen=True)
@@ -137,6 +196,12 @@ class TrailEncounter:
     crossings: Crossings = field(repr=False)
     weights: np.ndarray = field(repr=False)
     meteoroids: Candidates = field(repr=False)  # release time, mass, size, beta of each one
+    profile: Profile | None = field(default=None, repr=False)
+    population_index: float = float("nan")
+    zhr_estimate: float = 0.0
+    zhr_low: float = 0.0
+    zhr_high: float = 0.0
+    zhr_mode: str = "absolute"
 
     def to_json(self) -> dict:
         return {
@@ -157,6 +222,20 @@ class TrailEncounter:
             "vinf_km_s": round(self.vinf_km_s, 2),
             "particles": self.particles,
             "dilution": round(self.dilution, 4),
+            "population_index": round(self.population_index, 3),
+            "zhr": {
+                "estimate": _round_sig(self.zhr_estimate),
+                "low": _round_sig(self.zhr_low),
+                "high": _round_sig(self.zhr_high),
+                "mode": self.zhr_mode,
+            },
+            "window": None
+            if self.profile is None or self.profile.window_tdb_jd is None
+            else {
+                "start_utc": format_utc(self.profile.window_tdb_jd[0]),
+                "end_utc": format_utc(self.profile.window_tdb_jd[1]),
+            },
+            "profile": [] if self.profile is None else _profile_json(self.profile),
         }
 
 
@@ -171,6 +250,7 @@ class ForecastResult:
     candidates_drawn: int
     history: ParentHistory = field(repr=False)
     notes: tuple[str, ...] = ()
+    calibration: dict | None = None
 
     def to_json(self) -> dict:
         return {
@@ -188,6 +268,13 @@ class ForecastResult:
                 "parent_returns_tdb": [
                     format_iso(r.tp_tdb_jd, "TDB") for r in self.history.returns
                 ],
+                "zhr_mode": "calibrated" if self.calibration else "absolute",
+                "calibration": self.calibration,
+                "dust_mass_per_return_g": self.options.dust_mass(),
+                "zhr_method": "kernel density of simulated meteoroids above the +6.5 mag mass "
+                "limit along Earth's path; flux Q = n Vg; ZHR = Q x 37200 km^2 / c(r) "
+                "(Koschack & Rendtel 1990); low/high: bootstrap 16-84 % widened by the model "
+                "factor of the mode",
             },
             "conventions": {
                 "times": "UTC, ISO 8601",
@@ -281,6 +368,21 @@ class _Target:
     fit: tuple = (0.0, 1.0)
     selection: Candidates | None = None
     selection_fraction: float = 0.0
+    selection_scale: float = 1.0  # weight of all candidates in the window / of those integrated
+
+
+def _round_sig(x: float, digits: int = 3) -> float:
+    if not np.isfinite(x) or x == 0:
+        return 0.0 if x == 0 else float(x)
+    return float(f"{x:.{digits}g}")
+
+
+def _profile_json(p: Profile, n: int = 61) -> list:
+    idx = np.unique(np.linspace(0, len(p.t_tdb_jd) - 1, n).round().astype(int))
+    times = format_utc(p.t_tdb_jd[idx])
+    return [
+        {"time_utc": t, "zhr": _round_sig(float(z))} for t, z in zip(times, p.zhr[idx], strict=True)
+    ]
 
 
 def _year_of(t_tdb_jd: float) -> int:
@@ -323,6 +425,9 @@ def forecast(
     say = progress or (lambda f, s: None)
     if options.last_year < options.first_year:
         raise ValueError("last_year must not precede first_year")
+    calibration = None
+    if options.calibration is not None:
+        calibration, options = _calibrate(orbit, options, executor)
     y_start, _ = calendar_year_tdb_jd(options.first_year)
     _, y_end = calendar_year_tdb_jd(options.last_year)
     say(0.0, "parent history")
@@ -421,6 +526,7 @@ def forecast(
         if len(idx) == 0:
             continue
         tg.selection = pool.take(idx)
+        tg.selection_scale = float(pool.weight[ok].sum() / pool.weight[idx].sum())
         out_t = _output_times(
             returns[tg.trail], tg.t_earth, options.window_days + 30.0, 2.0, options.dt_days
         )
@@ -468,7 +574,39 @@ def forecast(
         candidates_drawn=drawn,
         history=history,
         notes=tuple(notes),
+        calibration=calibration,
     )
+
+
+def _calibrate(orbit, options, executor):
+    """Scale factor from a past observed outburst: observed ZHR / modelled ZHR for that trail."""
+    cal = options.calibration
+    probe = replace(
+        options,
+        first_year=cal.year,
+        last_year=cal.year,
+        trails=(cal.trail_year,),
+        calibration=None,
+        zhr_scale=1.0,
+    )
+    res = forecast(orbit, probe, executor=executor)
+    rows = [
+        e
+        for e in res.encounters + res.near_misses
+        if _year_of(e.trail_perihelion_tdb_jd) == cal.trail_year
+    ]
+    if not rows or rows[0].zhr_estimate <= 0:
+        raise CalibrationFailed(
+            f"the {cal.trail_year} trail gives no modelled activity in {cal.year}: cannot calibrate on it"
+        )
+    model_zhr = max(e.zhr_estimate for e in rows)
+    factor = cal.zhr / model_zhr
+    info = {
+        "input": {"year": cal.year, "trail_year": cal.trail_year, "observed_zhr": cal.zhr},
+        "modelled_zhr": _round_sig(model_zhr),
+        "factor": _round_sig(factor, 4),
+    }
+    return info, replace(options, zhr_scale=factor)
 
 
 def _last_before(returns, t):
@@ -568,6 +706,37 @@ def _summarise(
     a, b = tg.fit
     dilution = 1.0 / max(1.0, abs(b) * tg.revolutions)
     sub = Crossings(*(getattr(cr, f)[keep] for f in Crossings.__dataclass_fields__))
+    met = tg.selection.take(np.flatnonzero(keep))
+    model = options.ejection
+    r_pop = float(population_index_from_mass_index(model.mass_index))
+    counts = (
+        meteoroids_per_particle(
+            met.mass_g,
+            model.mass_index,
+            model.mass_min_g,
+            model.mass_max_g,
+            options.candidates,
+            options.dust_mass(),
+        )
+        * tg.selection_scale
+        * options.zhr_scale
+    )
+    counts = np.where(met.mass_g >= limiting_mass_g(sub.vinf_km_s), counts, 0.0)
+    _, v_e = heliocentric_state("earth", peak)
+    prof = activity_profile(
+        sub.t_earth_tdb_jd,
+        sub.miss_distance_au,
+        sub.vz_au_d,
+        sub.vg_km_s,
+        counts,
+        options.window_days,
+        float(np.linalg.norm(v_e)),
+        r_pop,
+        rng=options.seed,
+    )
+    mode = "calibrated" if options.calibration is not None else "absolute"
+    factor = MODEL_UNCERTAINTY_FACTOR[mode]
+    b16, b84 = np.percentile(prof.boot_peak_zhr, [16, 84])
     return TrailEncounter(
         year=tg.year,
         trail_perihelion_tdb_jd=ret.tp_tdb_jd,
@@ -577,7 +746,7 @@ def _summarise(
         solar_longitude_deg=float(solar_longitude_deg(peak)),
         miss_distance_au=float(np.median(miss)),
         miss_distance_spread_au=float(0.5 * (q84 - q16)),
-        fwhm_hours=2.3548 * sigma_t * 24.0,
+        fwhm_hours=prof.fwhm_hours if prof.peak_zhr > 0 else 2.3548 * sigma_t * 24.0,
         ra_deg=ra,
         dec_deg=dec,
         vg_km_s=float(np.median(cr.vg_km_s[keep])),
@@ -587,7 +756,13 @@ def _summarise(
         earth_passage_tdb_jd=tg.t_earth,
         crossings=sub,
         weights=np.asarray(weights)[keep],
-        meteoroids=tg.selection.take(np.flatnonzero(keep)),
+        meteoroids=met,
+        profile=prof,
+        population_index=r_pop,
+        zhr_estimate=prof.peak_zhr,
+        zhr_low=min(b16, prof.peak_zhr) / factor,
+        zhr_high=max(b84, prof.peak_zhr) * factor,
+        zhr_mode=mode,
     )
 
 
