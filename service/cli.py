@@ -48,10 +48,174 @@ def cmd_serve(args) -> int:
     from .main import create_app
     from .settings import Settings
 
+    if args.workers < 1 or args.workers > 64:
+        raise UsageError("--workers must be between 1 and 64")
     settings = Settings.from_env()
     settings.data_dir.mkdir(parents=True, exist_ok=True)
-    uvicorn.run(create_app(settings), host=args.host, port=args.port, log_level="info")
+    if args.workers == 1:
+        uvicorn.run(create_app(settings), host=args.host, port=args.port, log_level="info")
+    else:  # several server processes: each builds its app from the same environment
+        uvicorn.run(
+            "service.main:create_app",
+            factory=True,
+            host=args.host,
+            port=args.port,
+            workers=args.workers,
+            log_level="info",
+        )
     return 0
+
+
+# --- talking to a running service ---------------------------------------------------------------
+
+DEFAULT_URL = "http://127.0.0.1:8000"
+
+
+class ServiceUnreachable(Exception):
+    """The service did not answer (reported on one line, exit status 1)."""
+
+
+class JobDidNotFinish(Exception):
+    """The job failed or was cancelled (reported on one line, exit status 1)."""
+
+
+def _service_call(method: str, url: str, token: str | None = None, **kwargs):
+    """One HTTP call; problem+json answers become UsageError (4xx) or ServiceUnreachable (5xx)."""
+    import httpx
+
+    headers = {"Authorization": f"Bearer {token}"} if token else {}
+    try:
+        r = httpx.request(method, url, headers=headers, timeout=30.0, **kwargs)
+    except httpx.HTTPError as exc:
+        raise ServiceUnreachable(f"cannot reach the service at {url}: {exc}") from None
+    if r.status_code >= 400:
+        try:
+            body = r.json()
+            text = f"{body.get('title', r.status_code)}: {body.get('detail', '')}"
+        except ValueError:
+            text = f"HTTP {r.status_code}"
+        if r.status_code >= 500:
+            raise ServiceUnreachable(f"the service failed ({r.status_code}): {text}")
+        raise UsageError(f"the service refused the request ({r.status_code}): {text}")
+    return r
+
+
+def _service_url(args) -> str:
+    import os
+
+    return (args.url or os.environ.get("TRAILCAST_URL") or DEFAULT_URL).rstrip("/")
+
+
+def _token(args) -> str | None:
+    import os
+
+    return args.token or os.environ.get("TRAILCAST_API_TOKEN") or None
+
+
+def submit_body_from_args(args) -> dict:
+    """The POST /v1/forecasts body for the CLI arguments (validated locally first)."""
+    load_orbit_file(args.orbit)  # one-line error, exit 2, before any network traffic
+    orbit = json.loads(Path(args.orbit).read_text(encoding="utf-8"))
+    opts = forecast_options_from_args(args)
+    return {
+        "orbit": orbit,
+        "years": [opts.first_year, opts.last_year],
+        "particles": opts.particles,
+        "options": {
+            "seed": opts.seed,
+            "trails": list(opts.trails) if opts.trails is not None else None,
+            "max_trail_age_years": opts.max_trail_age_years,
+            "integrator": opts.integrator,
+            "speed_law": opts.ejection.speed_law,
+            "mass_index": opts.ejection.mass_index,
+            "meteoroid_density_g_cm3": opts.ejection.meteoroid_density_g_cm3,
+            "nucleus_radius_km": opts.ejection.nucleus_radius_km,
+        },
+    }
+
+
+def cmd_submit(args) -> int:
+    body = submit_body_from_args(args)
+    url = _service_url(args)
+    r = _service_call("POST", f"{url}/v1/forecasts", _token(args), json=body)
+    accepted = r.json()
+    if not args.wait:
+        if args.json:
+            print(json.dumps(accepted, indent=2))
+        else:
+            how = (
+                "already done (served from the store)"
+                if accepted["state"] == "done"
+                else (
+                    accepted["state"]
+                    + (" (same inputs as an earlier job)" if accepted["reused"] else "")
+                )
+            )
+            print(f"{accepted['id']}  {how}")
+            print(f"  status: trailcast status {accepted['id']} --url {url}")
+        return 0
+    return _wait_and_show(url, accepted["id"], args)
+
+
+def _wait_and_show(url: str, job_id: str, args) -> int:
+    import time
+
+    show = sys.stderr.isatty() and not args.json
+    deadline = time.monotonic() + args.timeout
+    while True:
+        job = _service_call("GET", f"{url}/v1/forecasts/{job_id}").json()
+        if job["state"] in ("done", "failed", "cancelled"):
+            break
+        if time.monotonic() > deadline:
+            raise ServiceUnreachable(
+                f"job {job_id} still {job['state']} after {args.timeout:g} s (it keeps running; "
+                f"ask again with `trailcast status {job_id}`)"
+            )
+        if show:
+            p = job["progress"]
+            print(f"\r  {100 * p['fraction']:5.1f}%  {p['stage']:<30}", end="", file=sys.stderr)
+        time.sleep(args.poll)
+    if show:
+        print(file=sys.stderr)
+    return _show_job(job, args)
+
+
+def _show_job(job: dict, args) -> int:
+    if args.json:
+        print(json.dumps(job, indent=2))
+    elif job["state"] == "done":
+        print(forecast_table(job["result"]))
+    else:
+        t = job["timings"]
+        p = job["progress"]
+        print(f"Job {job['id']}: {job['state']}")
+        print(f"  parent    {job['parent_name']}")
+        print(f"  years     {job['years'][0]}-{job['years'][1]}")
+        print(f"  progress  {100 * p['fraction']:.1f}%  {p['stage']}")
+        print(f"  created   {t['created_utc']}")
+        print(f"  started   {t['started_utc'] or '-'}")
+        print(f"  finished  {t['finished_utc'] or '-'}")
+        if job.get("error"):
+            print(f"  error     {job['error']['title']}: {job['error']['detail']}")
+    if job["state"] in ("failed", "cancelled"):
+        detail = (job.get("error") or {}).get("detail", "")
+        raise JobDidNotFinish(f"job {job['id']} {job['state']}" + (f": {detail}" if detail else ""))
+    return 0
+
+
+def cmd_status(args) -> int:
+    import re
+
+    if not re.fullmatch("[0-9a-f]{32}", args.id):
+        raise UsageError(f"not a job id (32 hex digits): {args.id!r}")
+    url = _service_url(args)
+    if args.wait:
+        return _wait_and_show(url, args.id, args)
+    job = _service_call("GET", f"{url}/v1/forecasts/{args.id}").json()
+    try:
+        return _show_job(job, args)
+    except JobDidNotFinish:
+        return 0  # asking about a failed job is not itself a failure
 
 
 def cmd_check(args) -> int:
@@ -230,7 +394,7 @@ def forecast_options_from_args(args):
     first, last = _parse_years(args.years)
     if args.particles < 3 or args.particles > 100_000:
         raise UsageError("--particles must be between 3 and 100000")
-    if args.workers < 1 or args.workers > 256:
+    if getattr(args, "workers", 1) < 1 or getattr(args, "workers", 1) > 256:
         raise UsageError("--workers must be between 1 and 256")
     if args.speed_law not in EJECTION_SPEED_LAWS:
         raise UsageError(f"--speed-law must be one of {', '.join(sorted(EJECTION_SPEED_LAWS))}")
@@ -255,13 +419,13 @@ def forecast_options_from_args(args):
         trails=_parse_trails(args.trails),
         max_trail_age_years=args.max_age,
         integrator=args.integrator,
-        workers=args.workers,
+        workers=getattr(args, "workers", 1),
         ejection=model,
     )
 
 
 def cmd_forecast(args) -> int:
-    from dynamics.forecast import forecast
+    from dynamics.forecast import forecast, forecast_solutions
 
     orbit = load_orbit_file(args.orbit)
     options = forecast_options_from_args(args)
@@ -269,9 +433,12 @@ def cmd_forecast(args) -> int:
 
     def progress(fraction, stage):
         if show:
-            print(f"\r  {100 * fraction:5.1f}%  {stage:<20}", end="", file=sys.stderr, flush=True)
+            print(f"\r  {100 * fraction:5.1f}%  {stage:<40}", end="", file=sys.stderr, flush=True)
 
-    result = forecast(orbit, options, progress=progress).to_json()
+    if orbit.solutions or orbit.covariance is not None:
+        result = forecast_solutions(orbit, options, clones=args.clones, progress=progress).to_json()
+    else:
+        result = forecast(orbit, options, progress=progress).to_json()
     if show:
         print(file=sys.stderr)
     if args.json:
@@ -282,30 +449,48 @@ def cmd_forecast(args) -> int:
 
 
 def forecast_table(res: dict) -> str:
-    """Readable forecast table (the same numbers as the JSON)."""
+    """Readable forecast table (the same numbers as the JSON); solutions side by side."""
     model = res["model"]
+    multi = "solutions" in res
     lines = [
         f"Dust-trail forecast for {res['parent']['name']}",
         f"  years {model['options']['years'][0]}-{model['options']['years'][1]}, "
         f"{model['particles_integrated']} meteoroids integrated "
         f"({model['particles_contributing']} contributing), seed {model['seed']}, "
-        f"{model['integrator']['integrator']}, ejection {model['ejection_model']['speed_law']}",
+        f"{model['integrator']['integrator']}, ejection {model['ejection_model']['speed_law']}, "
+        f"ZHR {model['zhr_mode']}",
         "  times UTC; solar longitude geometric J2000; radiant RA/Dec J2000; miss = trail minus Earth (au)",
         "",
     ]
+    if multi:
+        lines.append("Orbit solutions (each run with the same random draws)")
+        lines.append(
+            "  solution      q_au      e          period_yr   previous perihelion (TDB)   enc  near"
+        )
+        for p in res["solutions"]:
+            period = "-" if p["period_years"] is None else f"{p['period_years']:.1f}"
+            lines.append(
+                f"  {p['solution']:<12}  {p['q_au']:.6f}  {p['e']:.7f}  {period:>10}  "
+                f"{p['previous_perihelion_tdb'] or 'none found':<26}  {p['encounters']:>3}  {p['near_misses']:>4}"
+            )
+        lines.append("")
+    sol_col = "solution      " if multi else ""
     header = (
-        "  year  trail  rev  peak (UTC)            lambda_sun  miss_au   +-au     FWHM_h  "
-        "RA     Dec    Vg    n     dilution"
+        f"  {sol_col}year  trail  rev  peak (UTC)            lambda_sun  miss_au   +-au     FWHM_h  "
+        "RA     Dec    Vg    n     ZHR (low-high)"
     )
 
     def rows(items):
         out = []
         for e in items:
+            z = e["zhr"]
+            sol = f"{e['solution']:<12}  " if multi else ""
             out.append(
-                f"  {e['year']}  {e['trail']['perihelion_year']:>5}  {e['trail']['revolutions']:>3}  "
+                f"  {sol}{e['year']}  {e['trail']['perihelion_year']:>5}  {e['trail']['revolutions']:>3}  "
                 f"{e['peak_utc']:<20}  {e['solar_longitude_deg']:>9.4f}  {e['miss_distance_au']:+.5f}  "
                 f"{e['miss_distance_spread_au']:.5f}  {e['fwhm_hours']:6.2f}  {e['radiant']['ra_deg']:5.1f}  "
-                f"{e['radiant']['dec_deg']:+5.1f}  {e['vg_km_s']:4.1f}  {e['particles']:>4}  {e['dilution']:.3f}"
+                f"{e['radiant']['dec_deg']:+5.1f}  {e['vg_km_s']:4.1f}  {e['particles']:>4}  "
+                f"{z['estimate']:.3g} ({z['low']:.3g}-{z['high']:.3g})"
             )
         return out
 
@@ -317,6 +502,9 @@ def forecast_table(res: dict) -> str:
         header,
     ]
     lines += rows(res["near_misses"]) or ["  none"]
+    if multi and res["solution_summary"]:
+        lines += ["", "How the solutions differ"]
+        lines += [f"  {row['explanation']}" for row in res["solution_summary"]]
     for note in res["notes"]:
         lines.append(f"Note: {note}")
     lines += ["", *("Caution: " + c for c in res["cautions"])]
@@ -338,6 +526,9 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("serve", help="run the web service (what `make run` starts)")
     p.add_argument("--host", default="127.0.0.1", help="address to listen on (default 127.0.0.1)")
     p.add_argument("--port", type=int, default=8000, help="port (default 8000)")
+    p.add_argument(
+        "--workers", type=int, default=1, help="server processes (default 1; each runs jobs)"
+    )
     p.set_defaults(func=cmd_serve)
 
     p = sub.add_parser("check", help="validate an orbit file and summarise it")
@@ -407,8 +598,45 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument(
         "--nucleus-radius", type=float, default=2.0, help="nucleus radius, km (default 2.0)"
     )
+    p.add_argument(
+        "--clones", type=int, default=5, help="clones drawn from a covariance (default 5)"
+    )
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     p.set_defaults(func=cmd_forecast)
+
+    def add_service_options(p, wait_help):
+        p.add_argument("--url", help=f"service address (default $TRAILCAST_URL or {DEFAULT_URL})")
+        p.add_argument("--token", help="bearer token (default $TRAILCAST_API_TOKEN)")
+        p.add_argument("--wait", action="store_true", help=wait_help)
+        p.add_argument(
+            "--timeout", type=float, default=3600.0, help="longest wait, s (default 3600)"
+        )
+        p.add_argument("--poll", type=float, default=1.0, help="seconds between polls (default 1)")
+        p.add_argument("--json", action="store_true", help="print JSON instead of a table")
+
+    p = sub.add_parser("submit", help="submit a forecast job to a running trailcast service")
+    p.add_argument("orbit", metavar="ORBIT.json")
+    p.add_argument(
+        "--years", required=True, metavar="Y1[:Y2]", help="calendar years to forecast (UTC)"
+    )
+    p.add_argument(
+        "--particles", type=int, default=300, help="meteoroids per trail and passage (300)"
+    )
+    p.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
+    p.add_argument("--trails", metavar="YEARS", help="only these trails, e.g. 1899,1932")
+    p.add_argument("--max-age", type=float, default=500.0, help="oldest trail in years (500)")
+    p.add_argument("--integrator", choices=("whfast", "ias15"), default="whfast")
+    p.add_argument("--speed-law", default="whipple1951", help="ejection speed law")
+    p.add_argument("--mass-index", type=float, default=2.0, help="mass index s (2.0)")
+    p.add_argument("--density", type=float, default=1.0, help="meteoroid density, g/cm^3 (1.0)")
+    p.add_argument("--nucleus-radius", type=float, default=2.0, help="nucleus radius, km (2.0)")
+    add_service_options(p, "wait for the job and print the forecast")
+    p.set_defaults(func=cmd_submit)
+
+    p = sub.add_parser("status", help="state, progress and result of a job on a running service")
+    p.add_argument("id", metavar="ID", help="job id printed by `trailcast submit`")
+    add_service_options(p, "wait until the job is done, failed or cancelled")
+    p.set_defaults(func=cmd_status)
     return parser
 
 
@@ -423,6 +651,9 @@ def main(argv=None) -> int:
     except (UsageError, TrailcastError) as exc:
         print(f"trailcast {args.command}: {exc}", file=sys.stderr)
         return 2
+    except (ServiceUnreachable, JobDidNotFinish) as exc:
+        print(f"trailcast {args.command}: {exc}", file=sys.stderr)
+        return 1
     except KeyboardInterrupt:
         print("trailcast: interrupted", file=sys.stderr)
         return 130
