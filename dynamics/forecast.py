@@ -46,9 +46,13 @@ from .trails import (
     parent_node_time,
 )
 
-#: |median miss distance| below which a trail crossing is reported as an encounter (au).
+#: |median miss distance| below which a trail crossing can be an encounter (au).
 #: Common practice, no source: trails passing within ~0.005 au have given outbursts.
 ENCOUNTER_MAX_MISS_AU = 0.005
+#: ... and Earth's path must lie within this many standard deviations of the trail's
+#: cross-section (the 16-84 % half-range of its meteoroids' miss distances) plus Earth's radius.
+ENCOUNTER_SIGMAS = 3.0
+EARTH_RADIUS_AU = 6371.0 / 149_597_870.7  # mean Earth radius (IUGG), in au
 #: Trails crossing farther than this are not reported at all (au).
 NEAR_MISS_MAX_AU = 0.05
 #: A parent node farther than this from Earth's orbit is not followed (au).
@@ -394,11 +398,9 @@ def _profile_json(p: Profile, n: int = 61) -> list:
 
 
 def _year_of(t_tdb_jd: float) -> int:
-    return (
-        int(format_iso(t_tdb_jd, "TDB")[:5].rstrip("-"))
-        if t_tdb_jd < 0
-        else int(format_iso(t_tdb_jd, "TDB")[:4])
-    )
+    """Calendar year (TDB, astronomical numbering) of a TDB Julian date."""
+    text = format_iso(t_tdb_jd, "TDB")
+    return int(text[:5]) if text.startswith("-") else int(text[:4])
 
 
 def forecast(
@@ -430,6 +432,22 @@ def forecast(
     dynamics.history.FirstPassage
         When the parent is on its first passage (no earlier returns: no trails).
     """
+    if executor is None and options.workers > 1:
+        # one pool for the pilot and the main stage: worker start-up is paid once
+        ctx = multiprocessing.get_context("spawn")  # safe under a threaded web server
+        with cf.ProcessPoolExecutor(max_workers=options.workers, mp_context=ctx) as pool:
+            return _forecast(orbit, options, progress=progress, executor=pool)
+    return _forecast(orbit, options, progress=progress, executor=executor)
+
+
+def _forecast(
+    orbit: OrbitInput,
+    options: ForecastOptions,
+    *,
+    progress: Callable[[float, str], None] | None = None,
+    executor=None,
+) -> ForecastResult:
+    """See :func:`forecast`."""
     say = progress or (lambda f, s: None)
     if options.last_year < options.first_year:
         raise ValueError("last_year must not precede first_year")
@@ -565,7 +583,8 @@ def forecast(
         if summary is None:
             continue
         contributing += summary.particles
-        if abs(summary.miss_distance_au) <= ENCOUNTER_MAX_MISS_AU:
+        reach = ENCOUNTER_SIGMAS * summary.miss_distance_spread_au + EARTH_RADIUS_AU
+        if abs(summary.miss_distance_au) <= min(ENCOUNTER_MAX_MISS_AU, reach):
             encounters.append(summary)
         elif abs(summary.miss_distance_au) <= NEAR_MISS_MAX_AU:
             near.append(summary)
