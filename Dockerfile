@@ -1,4 +1,5 @@
-# trailcast service image. CPU only. Build: docker build -t trailcast .
+# trailcast service image (also the Dask scheduler/worker image in deploy/compose.dask.yaml).
+# CPU only. Build: docker build -t trailcast .
 # (No docker engine runs on the development machines; this file is kept simple and read-checked.)
 FROM python:3.11-slim
 
@@ -23,4 +24,5 @@ USER trailcast
 VOLUME ["/data"]
 EXPOSE 8000
 HEALTHCHECK --interval=30s --timeout=5s CMD python -c "import urllib.request,sys; sys.exit(urllib.request.urlopen('http://127.0.0.1:8000/health').status != 200)"
+# One server process (it runs the job queue; forecasts use TRAILCAST_WORKERS worker processes).
 CMD ["trailcast", "serve", "--host", "0.0.0.0", "--port", "8000"]

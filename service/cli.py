@@ -116,6 +116,7 @@ def submit_body_from_args(args) -> dict:
     """The POST /v1/forecasts body for the CLI arguments (validated locally first)."""
     load_orbit_file(args.orbit)  # one-line error, exit 2, before any network traffic
     orbit = json.loads(Path(args.orbit).read_text(encoding="utf-8"))
+    args.workers = 1  # not sent: the service decides where the chunks run
     opts = forecast_options_from_args(args)
     return {
         "orbit": orbit,
@@ -394,7 +395,7 @@ def forecast_options_from_args(args):
     first, last = _parse_years(args.years)
     if args.particles < 3 or args.particles > 100_000:
         raise UsageError("--particles must be between 3 and 100000")
-    if getattr(args, "workers", 1) < 1 or getattr(args, "workers", 1) > 256:
+    if args.workers < 1 or args.workers > 256:
         raise UsageError("--workers must be between 1 and 256")
     if args.speed_law not in EJECTION_SPEED_LAWS:
         raise UsageError(f"--speed-law must be one of {', '.join(sorted(EJECTION_SPEED_LAWS))}")
@@ -419,7 +420,7 @@ def forecast_options_from_args(args):
         trails=_parse_trails(args.trails),
         max_trail_age_years=args.max_age,
         integrator=args.integrator,
-        workers=getattr(args, "workers", 1),
+        workers=args.workers,
         ejection=model,
     )
 

@@ -33,10 +33,46 @@ class Settings(BaseModel):
         None,
         description="Dask scheduler address, e.g. tcp://host:8786; local processes when unset [TRAILCAST_DASK_SCHEDULER].",
     )
+    job_runners: int = Field(
+        1,
+        ge=0,
+        le=16,
+        description="Forecast jobs run at the same time by this process; 0 = accept and store jobs but run none (API-only replica) [TRAILCAST_JOB_RUNNERS].",
+    )
+    max_particles_per_job: int = Field(
+        5_000,
+        ge=3,
+        description="Largest `particles` (meteoroids per trail and Earth passage) a job may ask for [TRAILCAST_MAX_PARTICLES_PER_JOB].",
+    )
+    max_years_per_job: int = Field(
+        20,
+        ge=1,
+        description="Most calendar years one job may cover [TRAILCAST_MAX_YEARS_PER_JOB].",
+    )
+    max_queued_jobs: int = Field(
+        50,
+        ge=1,
+        description="Queued jobs above which new submissions get 429 [TRAILCAST_MAX_QUEUED_JOBS].",
+    )
+    max_job_attempts: int = Field(
+        3,
+        ge=1,
+        description="A job whose process died this many times while running it is marked failed [TRAILCAST_MAX_JOB_ATTEMPTS].",
+    )
+    job_lease_seconds: float = Field(
+        60.0,
+        gt=0,
+        description="A running job whose runner has not reported for this long (s) is re-queued [TRAILCAST_JOB_LEASE_SECONDS].",
+    )
 
     @property
     def database_path(self) -> Path:
         return self.data_dir / "trailcast.sqlite3"
+
+    @property
+    def forecast_workers(self) -> int:
+        """Worker processes per forecast: ``workers``, or one per CPU core when 0."""
+        return self.workers if self.workers > 0 else (os.cpu_count() or 1)
 
     @classmethod
     def from_env(cls, env=None) -> "Settings":

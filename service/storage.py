@@ -6,6 +6,8 @@ leaves a half-applied schema.
 """
 
 import sqlite3
+import threading
+from contextlib import contextmanager
 from pathlib import Path
 
 _MIGRATIONS_DIR = Path(__file__).resolve().parent / "migrations"
@@ -51,3 +53,40 @@ def migrate(conn: sqlite3.Connection) -> int:
             raise
         current = version
     return current
+
+
+class Store:
+    """One SQLite connection shared by the threads of one process, serialised by a lock.
+
+    Every write goes through :meth:`transaction` (``BEGIN IMMEDIATE``: the write lock is taken
+    at the start, so a transaction either commits whole or leaves nothing behind); reads through
+    :meth:`query`, which runs one statement and so sees one consistent snapshot (WAL). Several
+    processes (``uvicorn --workers``) each hold their own :class:`Store` on the same file.
+    """
+
+    def __init__(self, path: Path):
+        self.path = Path(path)
+        self.conn = connect(self.path)
+        self.conn.row_factory = sqlite3.Row
+        self._lock = threading.RLock()
+
+    @contextmanager
+    def transaction(self):
+        """Run the body in one write transaction; roll back on any exception."""
+        with self._lock:
+            self.conn.execute("BEGIN IMMEDIATE")
+            try:
+                yield self.conn
+            except BaseException:
+                self.conn.execute("ROLLBACK")
+                raise
+            self.conn.execute("COMMIT")
+
+    def query(self, sql: str, params=()) -> list[sqlite3.Row]:
+        """Rows of one read-only statement."""
+        with self._lock:
+            return self.conn.execute(sql, params).fetchall()
+
+    def close(self) -> None:
+        with self._lock:
+            self.conn.close()

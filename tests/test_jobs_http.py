@@ -1,0 +1,310 @@
+"""Forecast jobs through real HTTP: `trailcast serve` under uvicorn on a free loopback port.
+
+Submit, follow progress to done, fetch JSON, CSV and iCalendar, re-submit (served from the
+store), drive the `submit`/`status` commands against the server, and kill the server with
+SIGKILL while a job runs: after a restart the job finishes and the store is intact.
+Every server started here is stopped by the test that started it (its whole process group).
+"""
+
+import csv
+import io
+import json
+import os
+import signal
+import socket
+import sqlite3
+import subprocess
+import sys
+import time
+from datetime import datetime
+from pathlib import Path
+
+import httpx
+import icalendar
+import pytest
+
+EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
+DEMO_ORBIT = json.loads((EXAMPLES / "demo-comet.json").read_text(encoding="utf-8"))
+
+#: A tiny forecast of the invented demo comet: one trail, one year, 20 meteoroids (~1-3 s).
+TINY = {"orbit": DEMO_ORBIT, "years": [2040, 2040], "particles": 20, "options": {"trails": [2026]}}
+#: Longest wait for a server to answer or a job to finish (s): generous for 2 shared cores.
+WAIT_S = 180.0
+POLL_S = 0.2
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+class Server:
+    """`python -m service.cli serve` in its own process group on a free loopback port."""
+
+    def __init__(self, data_dir: Path, **env):
+        self.port = _free_port()
+        self.url = f"http://127.0.0.1:{self.port}"
+        self.env = dict(os.environ, TRAILCAST_DATA_DIR=str(data_dir), **env)
+        self.log = open(data_dir.parent / f"server-{self.port}.log", "wb")  # noqa: SIM115
+        self.proc = subprocess.Popen(
+            [sys.executable, "-m", "service.cli", "serve", "--port", str(self.port)],
+            env=self.env,
+            stdout=self.log,
+            stderr=subprocess.STDOUT,
+            start_new_session=True,
+        )
+        deadline = time.monotonic() + WAIT_S
+        while True:
+            try:
+                if httpx.get(f"{self.url}/health", timeout=2.0).status_code == 200:
+                    return
+            except httpx.TransportError:
+                pass
+            if self.proc.poll() is not None or time.monotonic() > deadline:
+                self.stop()
+                raise AssertionError(f"server did not start: {self.output()}")
+            time.sleep(POLL_S)
+
+    def output(self) -> str:
+        self.log.flush()
+        return Path(self.log.name).read_text(errors="replace")[-3000:]
+
+    def kill(self) -> None:
+        """SIGKILL the server and every process it started (forecast worker processes)."""
+        if self.proc.poll() is None:
+            os.killpg(self.proc.pid, signal.SIGKILL)
+        self.proc.wait(timeout=30)
+        self.log.close()
+
+    def stop(self) -> None:
+        if self.proc.poll() is None:
+            os.killpg(self.proc.pid, signal.SIGTERM)
+            try:
+                self.proc.wait(timeout=30)
+            except subprocess.TimeoutExpired:
+                os.killpg(self.proc.pid, signal.SIGKILL)
+                self.proc.wait(timeout=30)
+        self.log.close()
+
+
+def _wait_for(url: str, predicate, what: str) -> dict:
+    deadline = time.monotonic() + WAIT_S
+    while True:
+        job = httpx.get(url, timeout=10.0).json()
+        if predicate(job):
+            return job
+        if job["state"] in ("failed", "cancelled") or time.monotonic() > deadline:
+            raise AssertionError(f"waiting for {what}: {json.dumps(job)[:2000]}")
+        time.sleep(POLL_S)
+
+
+@pytest.fixture(scope="module")
+def server(tmp_path_factory):
+    data = tmp_path_factory.mktemp("served") / "var"
+    s = Server(data, TRAILCAST_WORKERS="2")
+    try:
+        yield s
+    finally:
+        s.stop()
+
+
+@pytest.mark.slow
+def test_submit_follow_and_export_over_http(server):
+    r = httpx.post(f"{server.url}/v1/forecasts", json=TINY, timeout=30.0)
+    assert r.status_code == 202, r.text
+    accepted = r.json()
+    assert accepted["state"] in ("queued", "running") and not accepted["reused"]
+    assert r.headers["location"] == f"/v1/forecasts/{accepted['id']}"
+    job_url = server.url + accepted["links"]["self"]
+
+    seen_states = set()
+
+    def done(job):
+        seen_states.add(job["state"])
+        assert 0.0 <= job["progress"]["fraction"] <= 1.0
+        return job["state"] == "done"
+
+    job = _wait_for(job_url, done, "the tiny forecast")
+    assert seen_states <= {"queued", "running", "done"}
+    result = job["result"]
+    assert result["parent"]["name"] == DEMO_ORBIT["name"]
+    assert result["model"]["options"]["trails"] == [2026]
+    assert job["progress"] == {"fraction": 1.0, "stage": "done"}
+    assert job["timings"]["run_seconds"] > 0 and job["timings"]["finished_utc"]
+    assert any("Spacecraft operators" in c for c in job["cautions"])
+
+    # CSV: one row per encounter and near miss, read back with the csv module.
+    r = httpx.get(server.url + accepted["links"]["encounters_csv"], timeout=30.0)
+    assert r.status_code == 200 and r.headers["content-type"].startswith("text/csv")
+    assert "Spacecraft operators" in r.headers["trailcast-cautions"]
+    rows = list(csv.DictReader(io.StringIO(r.text)))
+    assert len(rows) == len(result["encounters"]) + len(result["near_misses"])
+    encounter_rows = [row for row in rows if row["kind"] == "encounter"]
+    for row, e in zip(encounter_rows, result["encounters"], strict=True):
+        assert row["peak_utc"] == e["peak_utc"]
+        assert float(row["radiant.ra_deg"]) == e["radiant"]["ra_deg"]
+        assert row["forecast_id"] == accepted["id"]
+
+    # iCalendar: parsed by the general-purpose icalendar library; one event per encounter.
+    r = httpx.get(server.url + accepted["links"]["encounters_ics"], timeout=30.0)
+    assert r.status_code == 200 and r.headers["content-type"].startswith("text/calendar")
+    cal = icalendar.Calendar.from_ical(r.content)
+    events = list(cal.walk("VEVENT"))
+    assert len(events) == len(result["encounters"]) >= 1  # the 2026 trail meets Earth in 2040
+    for ev, e in zip(events, result["encounters"], strict=True):
+        start, end = ev.decoded("dtstart"), ev.decoded("dtend")
+        peak = datetime.fromisoformat(e["peak_utc"].replace("Z", "+00:00"))
+        assert start < peak < end
+        text = str(ev.get("description"))
+        assert f"RA {e['radiant']['ra_deg']}" in text and "Caution" in text
+        assert "Window:" in text
+
+    # Identical re-submission: same id, served from the store (200, reused, nothing queued).
+    before = httpx.get(f"{server.url}/metrics", timeout=10.0).text
+    r = httpx.post(f"{server.url}/v1/forecasts", json=TINY, timeout=30.0)
+    assert r.status_code == 200 and r.json()["id"] == accepted["id"]
+    assert r.json()["state"] == "done" and r.json()["reused"] is True
+    after = httpx.get(f"{server.url}/metrics", timeout=10.0).text
+    assert 'trailcast_jobs{state="done"} 1' in before and 'trailcast_jobs{state="done"} 1' in after
+    assert 'trailcast_jobs{state="queued"} 0' in after
+    assert "trailcast_http_request_duration_seconds_bucket" in after
+
+    # The dashboard view lists the stored encounters.
+    page = httpx.get(
+        f"{server.url}/v1/encounters", params={"parent": "hollow pine"}, timeout=10.0
+    ).json()
+    assert [i["encounter"]["peak_utc"] for i in page["items"]] == [
+        e["peak_utc"] for e in result["encounters"]
+    ]
+    ready = httpx.get(f"{server.url}/ready", timeout=30.0).json()
+    assert ready["workers"].startswith("local: 2 processes")
+
+
+@pytest.mark.slow
+def test_cli_submit_and_status_talk_to_the_server(server, tmp_path):
+    orbit_file = EXAMPLES / "demo-comet.json"
+    cli = [sys.executable, "-m", "service.cli"]
+    args = ["--years", "2040", "--trails", "2026", "--particles", "21", "--url", server.url]
+    proc = subprocess.run(
+        [*cli, "submit", str(orbit_file), *args, "--wait", "--json", "--poll", "0.2"],
+        capture_output=True,
+        text=True,
+        timeout=WAIT_S,
+    )
+    assert proc.returncode == 0, proc.stderr
+    job = json.loads(proc.stdout)
+    assert job["state"] == "done" and job["options"]["particles"] == 21
+
+    proc = subprocess.run(
+        [*cli, "status", job["id"], "--url", server.url], capture_output=True, text=True
+    )
+    assert proc.returncode == 0, proc.stderr
+    assert "Dust-trail forecast for P/2026 W3 (Hollow Pine)" in proc.stdout
+    assert "Caution" in proc.stdout
+
+    # Bad input: one line on stderr, exit 2, nothing sent.
+    bad = tmp_path / "bad.json"
+    bad.write_text('{"name": "x"}')
+    proc = subprocess.run(
+        [*cli, "submit", str(bad), *args], capture_output=True, text=True, timeout=60
+    )
+    assert proc.returncode == 2 and proc.stdout == ""
+    assert len(proc.stderr.strip().splitlines()) == 1
+    # Refused by the server (particles above its default ceiling): one line, exit 2.
+    proc = subprocess.run(
+        [*cli, "submit", str(orbit_file), "--years", "2040", "--particles", "90000"]
+        + ["--url", server.url],
+        capture_output=True,
+        text=True,
+        timeout=60,
+    )
+    assert proc.returncode == 2 and "Limit exceeded" in proc.stderr
+    assert len(proc.stderr.strip().splitlines()) == 1
+    # Unreachable service: one line, exit 1.
+    proc = subprocess.run(
+        [*cli, "status", job["id"], "--url", f"http://127.0.0.1:{_free_port()}"],
+        capture_output=True,
+        text=True,
+        timeout=60,
+    )
+    assert proc.returncode == 1 and "cannot reach" in proc.stderr
+    assert len(proc.stderr.strip().splitlines()) == 1
+
+
+#: A forecast long enough (~10 s on one core) to be killed in the middle: three trails of the
+#: invented demo comet over four years, 150 meteoroids each, in many integration chunks.
+LONGER = {
+    "orbit": DEMO_ORBIT,
+    "years": [2040, 2043],
+    "particles": 150,
+    "options": {"trails": [2000, 2013, 2026]},
+}
+
+
+def _integrity(db: Path) -> str:
+    conn = sqlite3.connect(db)
+    try:
+        return conn.execute("PRAGMA integrity_check").fetchone()[0]
+    finally:
+        conn.close()
+
+
+@pytest.mark.slow
+def test_job_survives_sigkill_and_completes_after_restart(tmp_path):
+    data = tmp_path / "var"
+    db = data / "trailcast.sqlite3"
+    env = {"TRAILCAST_WORKERS": "1"}  # chunks in the server process: SIGKILL hits them too
+    first = Server(data, **env)
+    try:
+        r = httpx.post(f"{first.url}/v1/forecasts", json=LONGER, timeout=30.0)
+        assert r.status_code == 202, r.text
+        long_id = r.json()["id"]
+        r = httpx.post(f"{first.url}/v1/forecasts", json=TINY, timeout=30.0)
+        tiny_id = r.json()["id"]  # queued behind the long one (one job at a time)
+        _wait_for(
+            f"{first.url}/v1/forecasts/{long_id}",
+            lambda j: j["state"] == "running" and j["progress"]["fraction"] >= 0.3,
+            "the long job to be well under way",
+        )
+    finally:
+        first.kill()
+
+    # The process is gone mid-job: the row says running, nothing is half-written.
+    assert _integrity(db) == "ok"
+    conn = sqlite3.connect(db)
+    states = dict(conn.execute("SELECT id, state FROM forecast_jobs").fetchall())
+    assert states == {long_id: "running", tiny_id: "queued"}
+    assert conn.execute("SELECT COUNT(*) FROM forecast_results").fetchone()[0] == 0
+    assert conn.execute("SELECT COUNT(*) FROM forecast_encounters").fetchone()[0] == 0
+    conn.close()
+
+    second = Server(data, **env)
+    try:
+        long_job = _wait_for(
+            f"{second.url}/v1/forecasts/{long_id}",
+            lambda j: j["state"] == "done",
+            "the interrupted job to finish after the restart",
+        )
+        tiny_job = _wait_for(
+            f"{second.url}/v1/forecasts/{tiny_id}",
+            lambda j: j["state"] == "done",
+            "the queued job to finish after the restart",
+        )
+    finally:
+        second.stop()
+    assert long_job["attempts"] == 2  # started once before the kill, once after
+    assert len(long_job["result"]["encounters"]) >= 1
+
+    assert _integrity(db) == "ok"
+    conn = sqlite3.connect(db)
+    try:
+        results = conn.execute("SELECT job_id, COUNT(*) FROM forecast_results GROUP BY job_id")
+        assert dict(results.fetchall()) == {long_id: 1, tiny_id: 1}
+        for job in (long_job, tiny_job):
+            n = conn.execute(
+                "SELECT COUNT(*) FROM forecast_encounters WHERE job_id = ?", (job["id"],)
+            ).fetchone()[0]
+            assert n == len(job["result"]["encounters"])  # none lost, none twice
+    finally:
+        conn.close()
