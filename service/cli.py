@@ -412,6 +412,9 @@ def forecast_options_from_args(args):
         meteoroid_density_g_cm3=args.density,
         nucleus_radius_km=args.nucleus_radius,
     )
+    dust = getattr(args, "dust_mass", None)
+    if dust is not None and not 1.0 <= dust <= 1e20:
+        raise UsageError("--dust-mass must lie between 1 and 1e20 g per return")
     return ForecastOptions(
         first_year=first,
         last_year=last,
@@ -422,7 +425,27 @@ def forecast_options_from_args(args):
         integrator=args.integrator,
         workers=args.workers,
         ejection=model,
+        dust_mass_per_return_g=dust,
+        calibration=_parse_calibration(getattr(args, "calibrate", None)),
     )
+
+
+def _parse_calibration(text):
+    """--calibrate YEAR:TRAIL_YEAR:ZHR -> Calibration (a past observed outburst)."""
+    if text is None:
+        return None
+    from dynamics.forecast import Calibration
+
+    try:
+        year, trail, zhr = text.split(":")
+        cal = Calibration(int(year), int(trail), float(zhr))
+    except ValueError:
+        raise UsageError(
+            f"--calibrate takes YEAR:TRAIL_YEAR:ZHR, e.g. 2039:1975:350, got {text!r}"
+        ) from None
+    if not 1800 <= cal.year <= 2199 or not cal.zhr > 0 or cal.trail_year >= cal.year:
+        raise UsageError("--calibrate: year within 1800-2199, trail year before it, ZHR > 0")
+    return cal
 
 
 def cmd_forecast(args) -> int:
@@ -510,6 +533,78 @@ def forecast_table(res: dict) -> str:
         lines.append(f"Note: {note}")
     lines += ["", *("Caution: " + c for c in res["cautions"])]
     return "\n".join(lines)
+
+
+def cmd_screen(args) -> int:
+    import os
+    from datetime import UTC, datetime
+
+    from dynamics.screening import ScreeningRule, screen_batch, screening_forecast_options
+
+    from .screening import ProgressBar, ResultDir, assemble, read_batch, report_text, write_outputs
+
+    if args.years is None:
+        now = datetime.now(UTC).year
+        args.years = f"{now}:{now + 9}"
+    first, last = _parse_years(args.years)
+    if args.particles < 3 or args.particles > 100_000:
+        raise UsageError("--particles must be between 3 and 100000")
+    if not 0.0 < args.max_age <= 5000.0:
+        raise UsageError("--max-age must lie in (0, 5000] years")
+    workers = args.workers if args.workers is not None else (os.cpu_count() or 1)
+    if workers < 1 or workers > 256:
+        raise UsageError("--workers must be between 1 and 256")
+    try:
+        rule = ScreeningRule(moid_max_au=args.moid_max, node_max_au=args.node_max)
+    except ValueError as exc:
+        raise UsageError(str(exc)) from None
+    options = screening_forecast_options(
+        first, last, particles=args.particles, seed=args.seed, max_trail_age_years=args.max_age
+    )
+    path = Path(args.orbits)
+    try:
+        rows = read_batch(path)
+    except OSError as exc:
+        raise UsageError(f"cannot read {path}: {exc.strerror or exc}") from None
+    except UnicodeDecodeError:
+        raise UsageError(f"{path}: not UTF-8 text") from None
+    out_dir = Path(args.out) if args.out else Path(f"{path.stem}-screening")
+    store = ResultDir(out_dir)
+    for r in rows:
+        if r.orbit is None:
+            print(
+                f"trailcast screen: line {r.line}: skipped: {r.error['message']}", file=sys.stderr
+            )
+    bar = ProgressBar(sys.stderr) if not args.json else ProgressBar(open(os.devnull, "w"))  # noqa: SIM115
+    scheduler = os.environ.get("TRAILCAST_DASK_SCHEDULER") or None
+    client = None
+    try:
+        if scheduler:
+            from distributed import Client
+
+            client = Client(scheduler, timeout=10, set_as_default=False)
+        run = screen_batch(
+            [r.orbit for r in rows if r.orbit is not None],
+            rule,
+            options,
+            executor=client.get_executor() if client else None,
+            workers=workers,
+            lookup=store.lookup,
+            save=store.save,
+            progress=bar,
+        )
+    finally:
+        bar.close()
+        if client is not None:
+            client.close()
+    result = assemble(rows, run, rule, options, source=str(path))
+    paths = write_outputs(out_dir, result)
+    if args.json:
+        print(json.dumps(result["screening"], indent=2))
+    else:
+        print(report_text(result, every_orbit=False), end="")
+        print(f"Wrote {paths['json']}, {paths['csv']} and {paths['report']}")
+    return 0
 
 
 # --- parser -------------------------------------------------------------------------------------
@@ -602,8 +697,55 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument(
         "--clones", type=int, default=5, help="clones drawn from a covariance (default 5)"
     )
+    p.add_argument(
+        "--dust-mass",
+        type=float,
+        metavar="GRAMS",
+        help="dust mass released per return, g (absolute ZHR; default: 1 m of the nucleus surface)",
+    )
+    p.add_argument(
+        "--calibrate",
+        metavar="YEAR:TRAIL:ZHR",
+        help="scale ZHRs to a past observed outburst of this parent, e.g. 2039:1975:350",
+    )
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     p.set_defaults(func=cmd_forecast)
+
+    p = sub.add_parser(
+        "screen",
+        help="screen a batch of orbits: geometry for all, trail forecasts for candidates",
+        epilog=CAUTION,
+    )
+    p.add_argument(
+        "orbits",
+        metavar="ORBITS",
+        help="JSON-lines file (one orbit object per line) or .csv (columns as the orbit keys)",
+    )
+    p.add_argument(
+        "--years", metavar="Y1[:Y2]", help="calendar years (UTC); default this year and 9 more"
+    )
+    p.add_argument(
+        "--out",
+        metavar="DIR",
+        help="output folder (default ORBITS-stem-screening); reused to resume",
+    )
+    p.add_argument(
+        "--particles", type=int, default=30, help="meteoroids per trail and passage (default 30)"
+    )
+    p.add_argument("--max-age", type=float, default=100.0, help="oldest trail, years (100)")
+    p.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
+    p.add_argument("--workers", type=int, help="local worker processes (default: one per CPU core)")
+    p.add_argument(
+        "--moid-max", type=float, default=0.05, help="rule: MOID below this, au (default 0.05)"
+    )
+    p.add_argument(
+        "--node-max",
+        type=float,
+        default=0.25,
+        help="rule: nearer node within this of Earth's orbit, au (default 0.25)",
+    )
+    p.add_argument("--json", action="store_true", help="print the JSON summary's counts")
+    p.set_defaults(func=cmd_screen)
 
     def add_service_options(p, wait_help):
         p.add_argument("--url", help=f"service address (default $TRAILCAST_URL or {DEFAULT_URL})")

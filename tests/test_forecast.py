@@ -186,3 +186,23 @@ def test_cli_forecast_json_for_one_young_trail():
     rows = out["encounters"] + out["near_misses"]
     assert rows and all(r["trail"]["perihelion_year"] == 2026 for r in rows)
     assert np.isfinite([r["miss_distance_au"] for r in rows]).all()
+
+
+@pytest.mark.parametrize("bad", ["2039:x:1", "2039:2040:5", "2039:1975:-3", "1975:350"])
+def test_cli_bad_calibration_exit_2(bad):
+    proc = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "service.cli",
+            "forecast",
+            str(EXAMPLES / "demo-comet.json"),
+            "--years",
+            "2039",
+            "--calibrate",
+            bad,
+        ],
+        capture_output=True,
+        text=True,
+    )
+    assert proc.returncode == 2 and len(proc.stderr.strip().splitlines()) == 1
