@@ -7,6 +7,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from reference_cases import PARENT_55P
 
 from dynamics.activity import (
     activity_profile,
@@ -116,19 +117,6 @@ def test_profile_of_a_synthetic_trail_recovers_its_width_and_contains_its_peak()
     assert prof2.peak_zhr == pytest.approx(2 * prof.peak_zhr, rel=0.2)
 
 
-# 55P/Tempel-Tuttle, orbit solution J985/69 (orbit-solution header of the public small-body
-# ephemeris service), reference case.
-PARENT_55P = {
-    "name": "55P/Tempel-Tuttle (reference case)",
-    "epoch": 2451040.5,
-    "q": 0.9764279154675056,
-    "e": 0.9055527209724122,
-    "i": 162.4865753794343,
-    "node": 235.270989149082,
-    "peri": 172.5002736828059,
-    "tp": 2450872.5977341123,
-    "nongrav": {"a1": 1.580981463194e-9, "a2": 9.186415933073e-11, "a3": 0.0},
-}
 # 1999 Leonid storm (observer-organisation reports, 1999; from memory): ZHR about 3,700 (final
 # analysis), peak 1999-11-18 02:02-02:05 UT, profile FWHM about an hour (from memory).
 OBSERVED_ZHR_1999 = 3700.0

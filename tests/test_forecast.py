@@ -7,6 +7,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from reference_cases import PARENT_55P
 
 from dynamics.forecast import ForecastOptions, forecast
 from dynamics.frames import angular_separation_deg
@@ -15,19 +16,6 @@ from dynamics.timescales import iso_to_tdb_jd
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 
-# 55P/Tempel-Tuttle, orbit solution J985/69, epoch JD 2451040.5 TDB (orbit-solution header of
-# the public small-body ephemeris service for this comet), with its non-gravitational terms.
-PARENT_55P = {
-    "name": "55P/Tempel-Tuttle (reference case)",
-    "epoch": 2451040.5,
-    "q": 0.9764279154675056,
-    "e": 0.9055527209724122,
-    "i": 162.4865753794343,
-    "node": 235.270989149082,
-    "peri": 172.5002736828059,
-    "tp": 2450872.5977341123,
-    "nongrav": {"a1": 1.580981463194e-9, "a2": 9.186415933073e-11, "a3": 0.0},
-}
 
 # The 1999 Leonid storm (observer-organisation reports, 1999; from memory): peak 1999-11-18
 # about 02:02-02:05 UT at solar longitude 235.285-235.287 deg (J2000), from dust released at the

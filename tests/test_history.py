@@ -1,24 +1,11 @@
 """Parent history: perihelion passages found by integrating the parent with the planets."""
 
 import pytest
+from reference_cases import PARENT_55P
 
 from dynamics.history import FirstPassage, nongrav_g, parent_history
 from dynamics.orbit_input import parse_orbit
 from dynamics.timescales import iso_to_tdb_jd
-
-# 55P/Tempel-Tuttle, orbit solution J985/69 (orbit-solution header of the public small-body
-# ephemeris service; data arc 1865-12-22 to 1998-07-05), with its non-gravitational terms.
-PARENT_55P = {
-    "name": "55P/Tempel-Tuttle (reference case)",
-    "epoch": 2451040.5,
-    "q": 0.9764279154675056,
-    "e": 0.9055527209724122,
-    "i": 162.4865753794343,
-    "node": 235.270989149082,
-    "peri": 172.5002736828059,
-    "tp": 2450872.5977341123,
-    "nongrav": {"a1": 1.580981463194e-9, "a2": 9.186415933073e-11, "a3": 0.0},
-}
 
 
 @pytest.mark.reference
