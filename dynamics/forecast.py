@@ -794,12 +794,15 @@ def _summarise(
 
 
 __all__ = [
+    "Calibration",
+    "CalibrationFailed",
     "ForecastOptions",
     "ForecastResult",
+    "SolutionsResult",
     "TrailEncounter",
     "forecast",
-    "EjectionModel",
-    "replace",
+    "forecast_solutions",
+    "orbit_solutions",
 ]
 
 

@@ -1,0 +1,52 @@
+"""The curated front door of trailcast's numerical core.
+
+>>> from dynamics.api import parse_orbit, quick_look, forecast, ForecastOptions  # doctest: +SKIP
+
+Everything here is also importable from its topic module; this list is what callers (the CLI,
+the service, notebooks) are expected to need.
+"""
+
+from .activity import zhr_from_flux
+from .errors import InvalidOrbit, InvalidTime, OutsideTimeSpan, TrailcastError
+from .forecast import (
+    Calibration,
+    ForecastOptions,
+    ForecastResult,
+    SolutionsResult,
+    TrailEncounter,
+    forecast,
+    forecast_solutions,
+)
+from .geometry import quick_look
+from .history import FirstPassage, parent_history
+from .moid import moid
+from .orbit_input import OrbitInput, parse_orbit
+from .solar_longitude import solar_longitude_deg, times_of_solar_longitude_tdb
+from .timescales import format_utc, iso_to_tdb_jd
+from .trails import EjectionModel
+
+__all__ = [
+    "Calibration",
+    "EjectionModel",
+    "FirstPassage",
+    "ForecastOptions",
+    "ForecastResult",
+    "InvalidOrbit",
+    "InvalidTime",
+    "OrbitInput",
+    "OutsideTimeSpan",
+    "SolutionsResult",
+    "TrailEncounter",
+    "TrailcastError",
+    "forecast",
+    "forecast_solutions",
+    "format_utc",
+    "iso_to_tdb_jd",
+    "moid",
+    "parent_history",
+    "parse_orbit",
+    "quick_look",
+    "solar_longitude_deg",
+    "times_of_solar_longitude_tdb",
+    "zhr_from_flux",
+]
