@@ -4,7 +4,7 @@
 >>> orbit = parse_orbit({"name": "invented", "epoch": 2461000.5, "q": 0.9, "e": 0.5, "i": 10,
 ...                      "node": 20, "peri": 30, "tp": 2461000.5})
 >>> format_utc(orbit.tp_tdb_jd)
-'2025-11-20T11:58:51Z'
+'2025-11-20T23:58:51Z'
 
 Everything here is also importable from its topic module; this list is what callers (the CLI,
 the service, notebooks) are expected to need.
