@@ -575,7 +575,8 @@ def cmd_screen(args) -> int:
             print(
                 f"trailcast screen: line {r.line}: skipped: {r.error['message']}", file=sys.stderr
             )
-    bar = ProgressBar(sys.stderr) if not args.json else ProgressBar(open(os.devnull, "w"))  # noqa: SIM115
+    bar = ProgressBar(sys.stderr)
+    bar.enabled = bar.enabled and not args.json
     scheduler = os.environ.get("TRAILCAST_DASK_SCHEDULER") or None
     client = None
     try:

@@ -49,6 +49,11 @@ class Settings(BaseModel):
         ge=1,
         description="Most calendar years one job may cover [TRAILCAST_MAX_YEARS_PER_JOB].",
     )
+    max_orbits_per_screening: int = Field(
+        1000,
+        ge=1,
+        description="Most orbits one POST /v1/screenings may carry [TRAILCAST_MAX_ORBITS_PER_SCREENING].",
+    )
     max_queued_jobs: int = Field(
         50,
         ge=1,
