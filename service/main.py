@@ -4,14 +4,16 @@ import time
 from contextlib import asynccontextmanager
 
 from fastapi import Depends, FastAPI, HTTPException
+from fastapi.staticfiles import StaticFiles
 
 from dynamics import __version__
 
 from .jobs import JobStore
 from .metrics import RequestLatencies
 from .problems import TYPE_BASE, install_problem_handlers, problem
-from .routers import encounters, forecasts, geometry, system
+from .routers import dashboard, encounters, forecasts, geometry, plots, screenings, system
 from .runner import JobRunner
+from .screening import ScreeningJobStore, ScreeningRunner
 from .security import require_token
 from .settings import Settings, get_settings
 from .storage import Store
@@ -22,6 +24,8 @@ trailcast predicts meteor-shower outbursts from the orbits of parent comets.
 Forecasts take minutes, so they are jobs: `POST /v1/forecasts` queues one and answers with its id;
 `GET /v1/forecasts/{id}` shows progress and, when done, the result; CSV and iCalendar exports
 follow. `GET /v1/encounters` lists every predicted encounter across stored forecasts.
+`POST /v1/screenings` screens a batch of orbits (geometry for all, small trail forecasts for the
+candidates) as a job with per-orbit progress; results as JSON and CSV.
 
 Units: au, km/s, degrees; times ISO 8601 UTC (`Z`); solar longitudes referred to the equinox
 J2000.0. Errors are RFC 9457 `application/problem+json`. When the server sets
@@ -131,9 +135,13 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         app.state.jobs = JobStore(store)
         app.state.runner = JobRunner(app.state.jobs, settings)
         app.state.runner.start()
+        app.state.screenings = ScreeningJobStore(store)
+        app.state.screening_runner = ScreeningRunner(app.state.screenings, settings)
+        app.state.screening_runner.start()
         try:
             yield
         finally:
+            app.state.screening_runner.stop()
             app.state.runner.stop()
             store.close()
 
@@ -156,6 +164,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(geometry.router, dependencies=[Depends(require_token)])
     app.include_router(forecasts.router)
     app.include_router(encounters.router)
+    app.include_router(screenings.router)
+    app.include_router(plots.router)
+    app.include_router(dashboard.router)
+    app.mount("/static", StaticFiles(directory=dashboard.STATIC_DIR), name="static")
     _declare_problem_schema(app)
     return app
 

@@ -31,6 +31,9 @@ log = logging.getLogger("trailcast.runner")
 PROGRESS_WRITE_INTERVAL_S = 0.25
 #: Pause before the next job after the workers could not be reached (s).
 WORKERS_RETRY_S = 5.0
+#: Most particle crossings stored per trail crossing (evenly thinned beyond that): enough to
+#: draw every meteoroid of the default 300-particle budget, small enough to keep results compact.
+MAX_STORED_CROSSINGS_PER_TRAIL = 500
 
 
 class JobCancelled(Exception):
@@ -68,6 +71,64 @@ def forecast_inputs(job: Job, workers: int):
         ),
     )
     return orbit, options
+
+
+def particle_crossings(computed, result_json: dict) -> list[dict]:
+    """Each trail crossing's simulated meteoroids, compact, for the dashboard's charts.
+
+    One item per encounter and near miss (``kind`` and ``index`` point into the result's
+    ``encounters`` / ``near_misses``), with the meteoroids behind it: when Earth passes each one's
+    node (``t_earth_utc``), the solar longitude then (deg, geometric J2000), the signed miss
+    distance (au, meteoroid minus Earth) and the radiant (RA/Dec deg, J2000). Meteoroids without
+    a crossing are left out; above :data:`MAX_STORED_CROSSINGS_PER_TRAIL` they are evenly thinned.
+    """
+    import numpy as np
+
+    from dynamics.timescales import format_utc
+
+    out = []
+    for kind, key, group in (
+        ("encounter", "encounters", computed.encounters),
+        ("near_miss", "near_misses", computed.near_misses),
+    ):
+        for k, enc in enumerate(group):
+            c = enc.crossings
+            ok = np.all(
+                np.isfinite(
+                    [
+                        c.t_earth_tdb_jd,
+                        c.miss_distance_au,
+                        c.solar_longitude_deg,
+                        c.ra_deg,
+                        c.dec_deg,
+                    ]
+                ),
+                axis=0,
+            )
+            idx = np.flatnonzero(ok)
+            if len(idx) > MAX_STORED_CROSSINGS_PER_TRAIL:
+                pick = np.linspace(0, len(idx) - 1, MAX_STORED_CROSSINGS_PER_TRAIL)
+                idx = idx[np.unique(pick.round().astype(int))]
+            trail = result_json[key][k]["trail"]
+            out.append(
+                {
+                    "kind": kind,
+                    "index": k,
+                    "year": enc.year,
+                    "perihelion_year": trail["perihelion_year"],
+                    "revolutions": trail["revolutions"],
+                    "t_earth_utc": [
+                        str(t) for t in np.atleast_1d(format_utc(c.t_earth_tdb_jd[idx]))
+                    ]
+                    if len(idx)
+                    else [],
+                    "solar_longitude_deg": np.round(c.solar_longitude_deg[idx], 5).tolist(),
+                    "miss_distance_au": np.round(c.miss_distance_au[idx], 7).tolist(),
+                    "ra_deg": np.round(c.ra_deg[idx], 3).tolist(),
+                    "dec_deg": np.round(c.dec_deg[idx], 3).tolist(),
+                }
+            )
+    return out
 
 
 class Executors:
@@ -244,7 +305,9 @@ class JobRunner:
             return
         try:
             orbit, options = forecast_inputs(job, self.settings.forecast_workers)
-            result = forecast(orbit, options, progress=progress, executor=executor).to_json()
+            computed = forecast(orbit, options, progress=progress, executor=executor)
+            result = computed.to_json()
+            result["particle_crossings"] = particle_crossings(computed, result)
             if self._stop.is_set():
                 raise ShuttingDown
             if self.jobs.finish_done(job.id, self.name, result):

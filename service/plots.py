@@ -1,0 +1,348 @@
+"""Charts of a stored forecast, drawn on the server with matplotlib: SVG for pages, PNG for reports.
+
+Three charts per forecast year, each a pure function of the stored result (the JSON of
+:meth:`dynamics.forecast.ForecastResult.to_json` plus the runner's ``particle_crossings``):
+
+``crossings``
+    every simulated meteoroid of every trail crossing Earth's path that year, at the time Earth
+    passes its node (x, UTC; solar longitude on the top axis) against its signed miss distance
+    (y, au, trail minus Earth); Earth's path is the line y = 0.
+``profile``
+    the predicted ZHR against time for each trail with activity, the low-high range as a band
+    (the profile scaled by low/estimate and high/estimate of the peak) and the activity window
+    shaded.
+``radiants``
+    the radiant of each simulated meteoroid and each trail's median radiant, RA (increasing to
+    the left, as on the sky) against Dec, J2000.
+
+Every trail keeps one style (colour, marker, line dash) in every chart of a forecast, chosen so
+that trails stay apart in greyscale too. SVG groups carry stable ids (``trail-<year>``,
+``radiants-<year>``, ``profile-<year>``, ``band-<year>``, ``window-<year>``, ``earth-path``) so
+that pages and tests can find the plotted elements; one ``<use>`` element per plotted point.
+
+Rendering uses :class:`matplotlib.figure.Figure` directly (no pyplot, no global figure state)
+under one lock, since matplotlib's text and font caches are not documented as thread-safe.
+"""
+
+import io
+import threading
+from collections import OrderedDict
+from datetime import UTC, datetime
+
+import matplotlib
+import numpy as np
+from matplotlib import dates as mdates
+from matplotlib.figure import Figure
+from matplotlib.ticker import ScalarFormatter
+
+CHARTS = ("crossings", "profile", "radiants")
+#: Media type of each downloadable format.
+FORMATS = {"svg": "image/svg+xml", "png": "image/png"}
+#: Figure size (inches) and PNG resolution (dots per inch): 1000 x 560 px, readable on a laptop.
+FIGSIZE_IN = (10.0, 5.6)
+PNG_DPI = 100
+
+#: A widely used colour-blind-safe palette, ordered so that neighbours differ in lightness;
+#: markers and dashes repeat the distinction for greyscale prints.
+PALETTE = ("#0072B2", "#E69F00", "#009E73", "#CC79A7", "#D55E00", "#56B4E9", "#000000", "#999933")
+MARKERS = ("o", "s", "^", "D", "v", "P", "X", "*")
+DASHES = ("-", "--", "-.", ":", (0, (5, 1, 1, 1, 1, 1)), (0, (8, 2)), (0, (1, 1)), (0, (3, 3)))
+EARTH_COLOUR = "#444444"
+
+_RC = {
+    "svg.fonttype": "none",  # text stays text: selectable, searchable, small
+    "font.size": 11,
+    "axes.titlesize": 12,
+    "axes.labelsize": 11,
+}
+_LOCK = threading.Lock()
+_CACHE: OrderedDict = OrderedDict()
+#: Rendered charts kept in memory (a done forecast never changes, so they never go stale).
+CACHE_SIZE = 64
+
+
+class NoSuchYear(ValueError):
+    """The forecast does not cover the year asked for."""
+
+
+def forecast_years(result: dict) -> list[int]:
+    """The years a stored forecast covers (from its options), else those of its crossings."""
+    span = result.get("model", {}).get("options", {}).get("years")
+    if isinstance(span, list) and len(span) == 2 and all(isinstance(y, int) for y in span):
+        return list(range(span[0], span[1] + 1))
+    years = {e["year"] for key in ("encounters", "near_misses") for e in result.get(key, [])}
+    return sorted(years)
+
+
+def default_year(result: dict) -> int | None:
+    """The first year with an encounter, else with a near miss, else the first year covered."""
+    for key in ("encounters", "near_misses"):
+        years = sorted(e["year"] for e in result.get(key, []))
+        if years:
+            return years[0]
+    years = forecast_years(result)
+    return years[0] if years else None
+
+
+def trail_styles(result: dict) -> dict[int, dict]:
+    """One style per trail (by perihelion year), the same in every chart of the forecast."""
+    trails = sorted(
+        {e["trail"]["perihelion_year"] for k in ("encounters", "near_misses") for e in result[k]}
+    )
+    return {
+        t: {
+            "color": PALETTE[n % len(PALETTE)],
+            "marker": MARKERS[n % len(MARKERS)],
+            "linestyle": DASHES[n % len(DASHES)],
+        }
+        for n, t in enumerate(trails)
+    }
+
+
+def _items(result: dict, year: int) -> list[tuple[str, dict, dict | None]]:
+    """(kind, encounter, its particle crossings or None) for the year, encounters first."""
+    crossings = {(c["kind"], c["index"]): c for c in result.get("particle_crossings", [])}
+    out = []
+    for kind, key in (("encounter", "encounters"), ("near_miss", "near_misses")):
+        for k, e in enumerate(result.get(key, [])):
+            if e["year"] == year:
+                out.append((kind, e, crossings.get((kind, k))))
+    return out
+
+
+def _label(kind: str, e: dict) -> str:
+    t = e["trail"]
+    what = "encounter" if kind == "encounter" else "near miss"
+    return f"{t['perihelion_year']} trail ({t['revolutions']} rev), {what}"
+
+
+def _utc(text: str) -> datetime:
+    return datetime.fromisoformat(text.replace("Z", "+00:00")).astimezone(UTC)
+
+
+def _date_axis(ax) -> None:
+    locator = mdates.AutoDateLocator(minticks=4, maxticks=8)
+    ax.xaxis.set_major_locator(locator)
+    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator, tz=UTC))
+
+
+def _note(ax, text: str) -> None:
+    ax.text(0.5, 0.5, text, transform=ax.transAxes, ha="center", va="center", color=EARTH_COLOUR)
+
+
+def _figure(title: str):
+    fig = Figure(figsize=FIGSIZE_IN, layout="constrained")
+    fig.suptitle(title)
+    ax = fig.add_subplot()
+    ax.grid(True, color="#dddddd", linewidth=0.6)
+    ax.set_axisbelow(True)
+    return fig, ax
+
+
+def _legend(ax) -> None:
+    if ax.get_legend_handles_labels()[0]:
+        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=9, frameon=False)
+
+
+def crossings_figure(result: dict, year: int) -> Figure:
+    """Meteoroid crossings of Earth's path: time (UTC) against signed miss distance (au)."""
+    parent = result["parent"].get("name", "")
+    fig, ax = _figure(f"Trail crossings of Earth's path, {year}: {parent}")
+    styles = trail_styles(result)
+    t_all, lam_all = [], []
+    for kind, e, c in _items(result, year):
+        if not c or not c["t_earth_utc"]:
+            continue
+        t = mdates.date2num([_utc(s) for s in c["t_earth_utc"]])
+        style = styles[e["trail"]["perihelion_year"]]
+        (line,) = ax.plot(
+            t,
+            c["miss_distance_au"],
+            linestyle="none",
+            marker=style["marker"],
+            markersize=5,
+            markerfacecolor=style["color"] if kind == "encounter" else "none",
+            markeredgecolor=style["color"],
+            markeredgewidth=1.0,
+            alpha=0.85,
+            label=f"{_label(kind, e)}: {len(t)} meteoroids",
+        )
+        line.set_gid(f"trail-{e['trail']['perihelion_year']}")
+        t_all.extend(t)
+        lam_all.extend(c["solar_longitude_deg"])
+    earth = ax.axhline(0.0, color=EARTH_COLOUR, linewidth=2.0, label="Earth's path (miss 0 au)")
+    earth.set_gid("earth-path")
+    ax.set_ylabel("miss distance, trail minus Earth (au)")
+    ax.set_xlabel("time Earth passes the meteoroid's node (UTC)")
+    if t_all:
+        _date_axis(ax)
+        lam = np.unwrap(np.radians(lam_all))
+        if np.ptp(t_all) > 0:
+            slope, offset = np.polyfit(t_all, np.degrees(lam), 1)
+            top = ax.secondary_xaxis(
+                "top",
+                functions=(lambda x: slope * x + offset, lambda y: (y - offset) / slope),
+            )
+            top.set_xlabel("solar longitude λ☉ (deg, geometric J2000)")
+        plain = ScalarFormatter(useOffset=False)
+        plain.set_powerlimits((-8, 8))  # 0.001 au, not 1 x 10^-3: the unit stays on the label
+        ax.yaxis.set_major_formatter(plain)
+    else:
+        ax.set_xticks([])
+        _note(ax, f"no trail crosses Earth's path within the near-miss distance in {year}")
+    _legend(ax)
+    return fig
+
+
+def profile_figure(result: dict, year: int) -> Figure:
+    """Predicted ZHR against time (UTC) per trail, with the low-high band and activity window."""
+    parent = result["parent"].get("name", "")
+    fig, ax = _figure(f"Predicted activity profile, {year}: {parent}")
+    styles = trail_styles(result)
+    drawn = 0
+    for kind, e, _c in _items(result, year):
+        profile = e.get("profile") or []
+        zhr = e.get("zhr") or {}
+        peak = np.array([p["zhr"] for p in profile], dtype=float)
+        if not profile or not np.any(peak > 0):
+            continue
+        ty = e["trail"]["perihelion_year"]
+        style = styles[ty]
+        t = mdates.date2num([_utc(p["time_utc"]) for p in profile])
+        est = zhr.get("estimate") or 0.0
+        if est > 0:
+            band = ax.fill_between(
+                t,
+                peak * (zhr.get("low", 0.0) / est),
+                peak * (zhr.get("high", est) / est),
+                color=style["color"],
+                alpha=0.18,
+                linewidth=0,
+                label=f"{ty} trail: low-high range",
+            )
+            band.set_gid(f"band-{ty}")
+        (line,) = ax.plot(
+            t,
+            peak,
+            color=style["color"],
+            linestyle=style["linestyle"],
+            linewidth=2.0,
+            label=f"{_label(kind, e)}: peak ZHR {est:g}",
+        )
+        line.set_gid(f"profile-{ty}")
+        window = e.get("window")
+        if window:
+            span = ax.axvspan(
+                mdates.date2num(_utc(window["start_utc"])),
+                mdates.date2num(_utc(window["end_utc"])),
+                facecolor="none",
+                edgecolor=style["color"],
+                hatch="//",
+                linewidth=0.8,
+                alpha=0.5,
+                label=f"{ty} trail: activity window",
+            )
+            span.set_gid(f"window-{ty}")
+        drawn += 1
+    ax.set_ylabel("ZHR (meteors per hour, zenithal)")
+    ax.set_xlabel("time (UTC)")
+    if drawn:
+        _date_axis(ax)
+        ax.set_ylim(bottom=0)
+    else:
+        ax.set_xticks([])
+        _note(ax, f"no activity predicted from the simulated trails in {year}")
+    _legend(ax)
+    return fig
+
+
+def radiants_figure(result: dict, year: int) -> Figure:
+    """Radiants of the simulated meteoroids and each trail's median: RA/Dec (deg, J2000)."""
+    parent = result["parent"].get("name", "")
+    fig, ax = _figure(f"Radiants, {year}: {parent}")
+    styles = trail_styles(result)
+    drawn = 0
+    for kind, e, c in _items(result, year):
+        ty = e["trail"]["perihelion_year"]
+        style = styles[ty]
+        if c and c["ra_deg"]:
+            (pts,) = ax.plot(
+                c["ra_deg"],
+                c["dec_deg"],
+                linestyle="none",
+                marker=style["marker"],
+                markersize=3.5,
+                markerfacecolor="none",
+                markeredgecolor=style["color"],
+                alpha=0.6,
+                label=f"{_label(kind, e)}: meteoroids",
+            )
+            pts.set_gid(f"radiants-{ty}")
+        (centre,) = ax.plot(
+            [e["radiant"]["ra_deg"]],
+            [e["radiant"]["dec_deg"]],
+            linestyle="none",
+            marker=style["marker"],
+            markersize=12,
+            markerfacecolor=style["color"],
+            markeredgecolor="black",
+            label=f"{ty} trail: median radiant",
+        )
+        centre.set_gid(f"radiant-{ty}")
+        drawn += 1
+    ax.set_xlabel("right ascension α (deg, J2000; increasing to the left)")
+    ax.set_ylabel("declination δ (deg, J2000)")
+    if drawn:
+        ax.invert_xaxis()
+        ax.set_aspect("equal", adjustable="datalim")
+    else:
+        ax.set_xticks([])
+        _note(ax, f"no trail crosses Earth's path within the near-miss distance in {year}")
+    _legend(ax)
+    return fig
+
+
+_FIGURES = {"crossings": crossings_figure, "profile": profile_figure, "radiants": radiants_figure}
+
+
+def render(result: dict, chart: str, year: int, fmt: str) -> bytes:
+    """The chart as SVG or PNG bytes.
+
+    Raises
+    ------
+    NoSuchYear
+        ``year`` lies outside the forecast's years.
+    KeyError
+        Unknown chart or format (the router only passes known ones).
+    """
+    if year not in forecast_years(result):
+        years = forecast_years(result)
+        span = f"{years[0]}-{years[-1]}" if years else "none"
+        raise NoSuchYear(f"year {year} is not in this forecast (years {span})")
+    make = _FIGURES[chart]
+    if fmt not in FORMATS:
+        raise KeyError(fmt)
+    # One id salt per chart: the three SVGs inlined in one page never share an element id.
+    with _LOCK, matplotlib.rc_context({**_RC, "svg.hashsalt": f"trailcast-{chart}"}):
+        fig = make(result, year)
+        buf = io.BytesIO()
+        if fmt == "svg":
+            fig.savefig(buf, format="svg", metadata={"Date": None})
+        else:
+            fig.savefig(buf, format="png", dpi=PNG_DPI, metadata={"Software": None})
+    return buf.getvalue()
+
+
+def render_cached(key: str, result: dict, chart: str, year: int, fmt: str) -> bytes:
+    """:func:`render`, remembered under ``(key, chart, year, fmt)`` (key: the job id)."""
+    k = (key, chart, year, fmt)
+    with _LOCK:
+        if k in _CACHE:
+            _CACHE.move_to_end(k)
+            return _CACHE[k]
+    body = render(result, chart, year, fmt)
+    with _LOCK:
+        _CACHE[k] = body
+        while len(_CACHE) > CACHE_SIZE:
+            _CACHE.popitem(last=False)
+    return body

@@ -1,0 +1,575 @@
+// trailcast dashboard: plain JavaScript, no library; every request goes to this service.
+"use strict";
+
+// The invented demo comet (the same as examples/demo-comet.json).
+const DEMO_ORBIT = {
+  name: "P/2026 W3 (Hollow Pine) [invented demo comet]",
+  epoch: "2026-11-20T00:00:00 TDB",
+  q: 0.953,
+  e: 0.828,
+  i: 38.5,
+  node: 21.6,
+  peri: 204.2,
+  tp: "2026-10-30T06:00:00 TDB",
+};
+const ORBIT_KEYS = ["name", "epoch", "q", "e", "i", "node", "peri", "tp", "nongrav", "covariance", "solutions"];
+const POLL_MS = 700;
+const $ = (sel, root = document) => root.querySelector(sel);
+
+// ---------------------------------------------------------------------------------------------
+// Validation: the API's own checks and messages, in the API's order, so that a refused form
+// reads exactly as the service would answer (service/routers/forecasts.py, dynamics/orbit_input.py).
+
+/** Python's repr() of a float, as the API's messages print numbers. */
+function pyFloat(x) {
+  if (x === 0) return Object.is(x, -0) ? "-0.0" : "0.0";
+  const [mant, expText] = x.toExponential().split("e");
+  const exp = parseInt(expText, 10);
+  if (exp < -4 || exp >= 16) {
+    const a = Math.abs(exp);
+    return `${mant}e${exp < 0 ? "-" : "+"}${a < 10 ? "0" + a : a}`;
+  }
+  const neg = x < 0;
+  const digits = mant.replace("-", "").replace(".", "");
+  let s;
+  if (exp >= 0) {
+    s = digits.length <= exp + 1
+      ? digits + "0".repeat(exp + 1 - digits.length) + ".0"
+      : digits.slice(0, exp + 1) + "." + digits.slice(exp + 1);
+  } else {
+    s = "0." + "0".repeat(-exp - 1) + digits;
+  }
+  return (neg ? "-" : "") + s;
+}
+
+function pyType(v) {
+  if (typeof v === "string") return "str";
+  if (typeof v === "boolean") return "bool";
+  if (Array.isArray(v)) return "list";
+  if (v === null) return "NoneType";
+  return typeof v === "object" ? "dict" : typeof v;
+}
+
+const isObject = (v) => v !== null && typeof v === "object" && !Array.isArray(v);
+
+/** Pydantic's integer check: the message for the first failure, or null. */
+function intProblem(v) {
+  if (typeof v === "number" && Number.isFinite(v)) {
+    return Number.isInteger(v) ? null : "Input should be a valid integer, got a number with a fractional part";
+  }
+  if (typeof v === "string") {
+    return /^\s*[+-]?\d+\s*$/.test(v) ? null : "Input should be a valid integer, unable to parse string as an integer";
+  }
+  return "Input should be a valid integer";
+}
+
+class Invalid extends Error {
+  constructor(field, message) {
+    super(`${field}: ${message}`);
+    this.field = field;
+  }
+}
+
+/** Throws Invalid with the API's field and message for the first problem it would report. */
+function validateBody(body) {
+  // Request schema (pydantic), in field order: orbit, years, particles, options.
+  if (!isObject(body.orbit)) throw new Invalid("orbit", "Input should be a valid dictionary");
+  if (!Array.isArray(body.years)) throw new Invalid("years", "Input should be a valid list");
+  if (body.years.length < 1) throw new Invalid("years", "List should have at least 1 item after validation, not 0");
+  if (body.years.length > 2) throw new Invalid("years", `List should have at most 2 items after validation, not ${body.years.length}`);
+  body.years.forEach((y, k) => {
+    const p = intProblem(y);
+    if (p) throw new Invalid(`years.${k}`, p);
+  });
+  if (body.particles !== undefined && body.particles !== null) {
+    const p = intProblem(body.particles);
+    if (p) throw new Invalid("particles", p);
+    if (body.particles < 3) throw new Invalid("particles", "Input should be greater than or equal to 3");
+    if (body.particles > 100000) throw new Invalid("particles", "Input should be less than or equal to 100000");
+  }
+  const o = body.options || {};
+  if (o.trails !== undefined) {
+    if (o.trails.length < 1) throw new Invalid("options.trails", "List should have at least 1 item after validation, not 0");
+    o.trails.forEach((t, k) => {
+      const p = intProblem(t);
+      if (p) throw new Invalid(`options.trails.${k}`, p);
+    });
+  }
+  if (o.max_trail_age_years !== undefined) {
+    const a = o.max_trail_age_years;
+    if (typeof a !== "number" || !Number.isFinite(a)) throw new Invalid("options.max_trail_age_years", "Input should be a valid number");
+    if (!(a > 0)) throw new Invalid("options.max_trail_age_years", "Input should be greater than 0");
+    if (a > 5000) throw new Invalid("options.max_trail_age_years", "Input should be less than or equal to 5000");
+  }
+  // The orbit (dynamics.orbit_input.parse_orbit, fields prefixed "orbit.").
+  const orbit = body.orbit;
+  const unknown = Object.keys(orbit).filter((k) => !ORBIT_KEYS.includes(k)).sort();
+  if (unknown.length) throw new Invalid(`orbit.${unknown[0]}`, `unknown key; expected some of ${ORBIT_KEYS.join(", ")}`);
+  for (const k of ["name", "epoch", "q", "e", "i", "node", "peri", "tp"]) {
+    if (!(k in orbit) || orbit[k] === null) throw new Invalid(`orbit.${k}`, "missing (required)");
+  }
+  if (typeof orbit.name !== "string" || !orbit.name.trim()) throw new Invalid("orbit.name", "must be a non-empty string");
+  if (orbit.name.length > 200) throw new Invalid("orbit.name", "longer than 200 characters");
+  for (const k of ["q", "e", "i", "node", "peri"]) {
+    if (typeof orbit[k] !== "number") throw new Invalid(`orbit.${k}`, `expected a number, got ${pyType(orbit[k])}`);
+  }
+  const { q, e, i, node, peri } = orbit;
+  if (q <= 0) throw new Invalid("orbit.q", `perihelion distance must be > 0 au, got ${pyFloat(q)}`);
+  if (e < 0) throw new Invalid("orbit.e", `eccentricity must be >= 0, got ${pyFloat(e)}`);
+  if (e > 100) throw new Invalid("orbit.e", "eccentricity above 100.0 is not a comet orbit");
+  if (!(i >= 0 && i <= 180)) throw new Invalid("orbit.i", `inclination must be in [0, 180] deg, got ${pyFloat(i)}`);
+  if (!(node >= 0 && node < 360)) throw new Invalid("orbit.node", `longitude of the ascending node must be in [0, 360) deg, got ${pyFloat(node)}`);
+  if (!(peri >= 0 && peri < 360)) throw new Invalid("orbit.peri", `argument of perihelion must be in [0, 360) deg, got ${pyFloat(peri)}`);
+  // Years against the ephemeris span, then their order (the service checks its own limits after).
+  const years = body.years.map(Number);
+  years.forEach((y, k) => {
+    if (!(y >= 1800 && y <= 2199)) throw new Invalid(`years.${k}`, `${y} lies outside 1800-2199 (the DE423 ephemeris span)`);
+  });
+  const first = years[0];
+  const last = years[years.length - 1];
+  if (last < first) throw new Invalid("years", `last (${last}) precedes first (${first})`);
+}
+
+// ---------------------------------------------------------------------------------------------
+// Small helpers
+
+function el(tag, attrs = {}, ...children) {
+  const node = document.createElement(tag);
+  for (const [k, v] of Object.entries(attrs)) {
+    if (v === undefined || v === null) continue;
+    if (k === "class") node.className = v;
+    else node.setAttribute(k, v);
+  }
+  for (const c of children) node.append(c instanceof Node ? c : document.createTextNode(String(c)));
+  return node;
+}
+
+function fmt(x, digits) {
+  return typeof x === "number" && Number.isFinite(x) ? x.toFixed(digits) : "–";
+}
+
+function zhrText(z) {
+  if (!z || typeof z !== "object") return "–";
+  const g = (v) => (typeof v === "number" ? String(+v.toPrecision(3)) : "?");
+  return `${g(z.estimate)} (${g(z.low)}–${g(z.high)})`;
+}
+
+function utcText(iso) {
+  return iso ? iso.replace("T", " ").replace("Z", "") : "–";
+}
+
+async function getJson(url) {
+  const r = await fetch(url, { headers: { Accept: "application/json" } });
+  const body = await r.json().catch(() => null);
+  if (!r.ok) {
+    const detail = body && body.detail ? body.detail : `${r.status} ${r.statusText}`;
+    throw new Error(detail);
+  }
+  return body;
+}
+
+// ---------------------------------------------------------------------------------------------
+// Views and routing: #/upcoming, #/submit, #/forecasts/<id>
+
+let pollTimer = null;
+
+function showView(name) {
+  for (const v of ["upcoming", "forecast", "submit"]) {
+    $(`#view-${v}`).hidden = v !== name;
+  }
+  for (const v of ["upcoming", "submit"]) {
+    const a = $(`#nav-${v}`);
+    if (v === name) a.setAttribute("aria-current", "page");
+    else a.removeAttribute("aria-current");
+  }
+}
+
+function route() {
+  if (pollTimer) {
+    clearTimeout(pollTimer);
+    pollTimer = null;
+  }
+  const hash = location.hash || "#/upcoming";
+  const m = hash.match(/^#\/forecasts\/([0-9a-f]{32})$/);
+  if (m) {
+    showView("forecast");
+    openForecast(m[1]);
+  } else if (hash === "#/submit") {
+    showView("submit");
+  } else {
+    showView("upcoming");
+    loadUpcoming();
+  }
+}
+
+// ---------------------------------------------------------------------------------------------
+// Upcoming encounters
+
+const upcoming = { rows: [], key: "peak", dir: 1 };
+
+function upcomingRange() {
+  const n = Math.max(1, Math.min(175, parseInt($("#upcoming-years").value, 10) || 20));
+  const today = new Date().toISOString().slice(0, 10);
+  const lastYear = Math.min(2199, new Date().getUTCFullYear() + n);
+  return { from: today, to: `${lastYear}-12-31` };
+}
+
+async function loadUpcoming() {
+  const { from, to } = upcomingRange();
+  const query = new URLSearchParams({ from, to });
+  $("#upcoming-ics").href = `/v1/encounters.ics?${query}`;
+  $("#upcoming-status").textContent = "Loading…";
+  const rows = [];
+  try {
+    let url = `/v1/encounters?${query}&limit=500`;
+    while (url) {
+      const page = await getJson(url);
+      rows.push(...page.items);
+      url = page.links.next;
+    }
+  } catch (err) {
+    $("#upcoming-status").textContent = `Could not load encounters: ${err.message}`;
+    return;
+  }
+  upcoming.rows = rows;
+  $("#upcoming-status").textContent = rows.length
+    ? `${rows.length} predicted encounter${rows.length === 1 ? "" : "s"} from ${from} to ${to}.`
+    : `No predicted encounters stored from ${from} to ${to}. Submit a forecast to add some.`;
+  renderUpcoming();
+}
+
+const SORT_KEYS = {
+  peak: (r) => r.encounter.peak_utc,
+  lambda: (r) => r.encounter.solar_longitude_deg,
+  parent: (r) => r.parent_name.toLowerCase(),
+  trail: (r) => r.encounter.trail.perihelion_year,
+  miss: (r) => Math.abs(r.encounter.miss_distance_au),
+  zhr: (r) => (r.encounter.zhr && typeof r.encounter.zhr.estimate === "number" ? r.encounter.zhr.estimate : -1),
+  ra: (r) => r.encounter.radiant.ra_deg,
+};
+
+function renderUpcoming() {
+  const key = SORT_KEYS[upcoming.key];
+  const rows = [...upcoming.rows].sort((a, b) => {
+    const x = key(a);
+    const y = key(b);
+    return (x < y ? -1 : x > y ? 1 : 0) * upcoming.dir;
+  });
+  for (const th of $("#upcoming-table thead").querySelectorAll("th")) {
+    const b = th.querySelector("button");
+    if (b && b.dataset.key === upcoming.key) th.setAttribute("aria-sort", upcoming.dir > 0 ? "ascending" : "descending");
+    else th.removeAttribute("aria-sort");
+  }
+  const tbody = $("#upcoming-table tbody");
+  tbody.replaceChildren(
+    ...rows.map((r) => {
+      const e = r.encounter;
+      return el(
+        "tr",
+        {},
+        el("td", {}, utcText(e.peak_utc)),
+        el("td", { class: "num" }, fmt(e.solar_longitude_deg, 4)),
+        el("td", {}, r.parent_name),
+        el("td", {}, `${e.trail.perihelion_year} (${e.trail.revolutions} rev)`),
+        el("td", { class: "num" }, `${e.miss_distance_au >= 0 ? "+" : ""}${fmt(e.miss_distance_au, 5)}`),
+        el("td", { class: "num" }, zhrText(e.zhr)),
+        el("td", { class: "num" }, `${fmt(e.radiant.ra_deg, 1)}, ${e.radiant.dec_deg >= 0 ? "+" : ""}${fmt(e.radiant.dec_deg, 1)}`),
+        el("td", {}, el("a", { href: `#/forecasts/${r.forecast_id}` }, "view"), " ", el("a", { href: r.links.forecast }, "JSON")),
+      );
+    }),
+  );
+}
+
+// ---------------------------------------------------------------------------------------------
+// One forecast: progress, then charts and numbers
+
+const current = { id: null, job: null, year: null };
+
+async function openForecast(id) {
+  current.id = id;
+  current.job = null;
+  $("#fc-parent").textContent = "";
+  $("#fc-meta").textContent = "";
+  $("#fc-done").hidden = true;
+  $("#fc-error").hidden = true;
+  $("#fc-progress-box").hidden = false;
+  $("#fc-progress").value = 0;
+  $("#fc-state").textContent = "Loading…";
+  await pollForecast(id);
+}
+
+async function pollForecast(id) {
+  if (current.id !== id) return;
+  let job;
+  try {
+    job = await getJson(`/v1/forecasts/${id}`);
+  } catch (err) {
+    $("#fc-state").textContent = "";
+    showForecastError(`Could not load forecast ${id}: ${err.message}`);
+    return;
+  }
+  if (current.id !== id) return;
+  current.job = job;
+  $("#fc-parent").textContent = job.parent_name;
+  $("#fc-meta").textContent =
+    `Years ${job.years[0]}–${job.years[job.years.length - 1]}; ${job.options.particles} meteoroids per trail and passage; ` +
+    `trails ${job.options.trails ? job.options.trails.join(", ") : "all within " + job.options.max_trail_age_years + " years"}; ` +
+    `seed ${job.options.seed}; model ${job.model_version}.`;
+  const pct = Math.round(job.progress.fraction * 100);
+  $("#fc-progress").value = job.progress.fraction;
+  $("#fc-progress").dataset.state = job.state;
+  const stage = job.progress.stage === job.state ? "" : `: ${job.progress.stage}`;
+  $("#fc-state").textContent = `${job.state}${stage} (${pct} %)`;
+  if (job.state === "done") {
+    showForecast(job);
+  } else if (job.state === "failed" || job.state === "cancelled") {
+    showForecastError(job.error ? `${job.error.title}: ${job.error.detail}` : `The job was ${job.state}.`);
+  } else {
+    pollTimer = setTimeout(() => pollForecast(id), POLL_MS);
+  }
+}
+
+function showForecastError(text) {
+  const box = $("#fc-error");
+  box.textContent = text;
+  box.hidden = false;
+}
+
+async function showForecast(job) {
+  const index = await getJson(`/v1/forecasts/${job.id}/plots`).catch((err) => {
+    showForecastError(`Could not list the charts: ${err.message}`);
+    return null;
+  });
+  if (!index) return;
+  $("#fc-csv").href = job.links.encounters_csv;
+  $("#fc-ics").href = job.links.encounters_ics;
+  $("#fc-json").href = job.links.self;
+  const select = $("#fc-year");
+  select.replaceChildren(...index.years.map((y) => el("option", { value: y }, y)));
+  select.value = String(index.default_year ?? index.years[0]);
+  const cautions = $("#fc-cautions ul");
+  cautions.replaceChildren(...(job.result.cautions || job.cautions).map((c) => el("li", {}, c)));
+  $("#fc-done").hidden = false;
+  await showYear(Number(select.value));
+}
+
+async function showYear(year) {
+  const job = current.job;
+  current.year = year;
+  renderNumbers(job, year);
+  await Promise.all(
+    [...document.querySelectorAll("figure.chart")].map((fig) => loadChart(fig, job.id, year)),
+  );
+}
+
+async function loadChart(fig, id, year) {
+  const chart = fig.dataset.chart;
+  const base = `/v1/forecasts/${id}/plots/${chart}`;
+  for (const a of fig.querySelectorAll(".downloads a")) {
+    a.href = `${base}.${a.dataset.fmt}?year=${year}&download=true`;
+    a.setAttribute("download", `trailcast-${id}-${chart}-${year}.${a.dataset.fmt}`);
+  }
+  const holder = fig.querySelector(".svg-holder");
+  holder.setAttribute("aria-busy", "true");
+  try {
+    const r = await fetch(`${base}.svg?year=${year}`);
+    if (!r.ok) throw new Error(`${r.status}`);
+    const doc = new DOMParser().parseFromString(await r.text(), "image/svg+xml");
+    const svg = document.importNode(doc.documentElement, true);
+    svg.setAttribute("role", "img");
+    svg.setAttribute("aria-label", fig.querySelector("figcaption").textContent.trim());
+    if (current.id === id && current.year === year) holder.replaceChildren(svg);
+  } catch (err) {
+    holder.replaceChildren(el("p", { class: "error" }, `Chart not available (${err.message}).`));
+  } finally {
+    holder.removeAttribute("aria-busy");
+    fig.dataset.loadedYear = String(year);
+  }
+}
+
+function renderNumbers(job, year) {
+  const rows = [];
+  for (const [kind, key] of [["encounter", "encounters"], ["near miss", "near_misses"]]) {
+    for (const e of job.result[key]) {
+      if (e.year !== year) continue;
+      rows.push(
+        el(
+          "tr",
+          { class: key === "encounters" ? "encounter" : "near_miss" },
+          el("td", {}, kind),
+          el("td", {}, `${e.trail.perihelion_year} (${e.trail.revolutions} rev)`),
+          el("td", {}, utcText(e.peak_utc)),
+          el("td", { class: "num" }, fmt(e.solar_longitude_deg, 4)),
+          el("td", { class: "num" }, `${e.miss_distance_au >= 0 ? "+" : ""}${fmt(e.miss_distance_au, 5)} ± ${fmt(e.miss_distance_spread_au, 5)}`),
+          el("td", { class: "num" }, fmt(e.fwhm_hours, 2)),
+          el("td", { class: "num" }, `${fmt(e.radiant.ra_deg, 1)}, ${e.radiant.dec_deg >= 0 ? "+" : ""}${fmt(e.radiant.dec_deg, 1)}`),
+          el("td", { class: "num" }, fmt(e.vg_km_s, 1)),
+          el("td", { class: "num" }, e.particles),
+          el("td", { class: "num" }, zhrText(e.zhr)),
+          el("td", {}, e.window ? `${utcText(e.window.start_utc)} – ${utcText(e.window.end_utc)}` : "–"),
+        ),
+      );
+    }
+  }
+  if (!rows.length) {
+    rows.push(el("tr", {}, el("td", { colspan: 11 }, `No trail passes near Earth's path in ${year}: no outburst expected from the simulated trails.`)));
+  }
+  $("#fc-table tbody").replaceChildren(...rows);
+}
+
+// ---------------------------------------------------------------------------------------------
+// Submit
+
+function mode() {
+  return $("#submit-form").elements.mode.value;
+}
+
+function setMode(m) {
+  $("#submit-form").elements.mode.value = m;
+  $("#mode-fields").hidden = m !== "fields";
+  $("#mode-json").hidden = m !== "json";
+  $("#mode-file").hidden = m !== "file";
+}
+
+/** A form field as the API would receive it: number when it reads as one, text otherwise. */
+function fieldValue(text, numeric) {
+  const t = text.trim();
+  if (t === "") return null;
+  if (numeric && t !== "" && Number.isFinite(Number(t))) return Number(t);
+  return t;
+}
+
+function orbitFromForm() {
+  const f = $("#submit-form").elements;
+  if (mode() === "fields") {
+    const orbit = {};
+    for (const k of ["name", "epoch", "q", "e", "i", "node", "peri", "tp"]) {
+      // Every field but the name is a number when it reads as one (epoch and tp: JD TDB).
+      const v = fieldValue(f[k].value, k !== "name");
+      if (v !== null) orbit[k] = v;
+    }
+    return orbit;
+  }
+  const text = $("#orbit-json").value;
+  try {
+    return JSON.parse(text);
+  } catch (err) {
+    throw new Invalid("orbit", `not valid JSON (${err.message})`);
+  }
+}
+
+function bodyFromForm() {
+  const f = $("#submit-form").elements;
+  const orbit = orbitFromForm();
+  const first = fieldValue(f.first_year.value, true);
+  const last = fieldValue(f.last_year.value, true);
+  const body = { orbit, years: last === null ? [first] : [first, last] };
+  const particles = fieldValue(f.particles.value, true);
+  if (particles !== null) body.particles = particles;
+  const options = {};
+  const trails = f.trails.value.split(/[\s,;]+/).filter((t) => t !== "");
+  if (trails.length) options.trails = trails.map((t) => fieldValue(t, true));
+  const age = fieldValue(f.max_age.value, true);
+  if (age !== null) options.max_trail_age_years = age;
+  if (Object.keys(options).length) body.options = options;
+  return body;
+}
+
+const FIELD_INPUTS = {
+  "orbit.name": "name", "orbit.epoch": "epoch", "orbit.q": "q", "orbit.e": "e", "orbit.i": "i",
+  "orbit.node": "node", "orbit.peri": "peri", "orbit.tp": "tp", "years.0": "first_year",
+  "years.1": "last_year", years: "last_year", particles: "particles",
+  "options.max_trail_age_years": "max_age",
+};
+
+function showSubmitError(message, field) {
+  const form = $("#submit-form");
+  for (const input of form.querySelectorAll("[aria-invalid]")) input.removeAttribute("aria-invalid");
+  const box = $("#submit-error");
+  box.hidden = !message;
+  box.textContent = message || "";
+  if (!message) return;
+  let input = null;
+  if (field && field.startsWith("options.trails")) input = form.elements.trails;
+  else if (field && FIELD_INPUTS[field] && (mode() === "fields" || !field.startsWith("orbit."))) input = form.elements[FIELD_INPUTS[field]];
+  else if (field && field.startsWith("orbit") && mode() !== "fields") input = $("#orbit-json");
+  if (input) {
+    input.setAttribute("aria-invalid", "true");
+    input.setAttribute("aria-describedby", "submit-error");
+  }
+}
+
+async function submitForecast(event) {
+  event.preventDefault();
+  let body;
+  try {
+    body = bodyFromForm();
+    validateBody(body);
+  } catch (err) {
+    if (err instanceof Invalid) {
+      showSubmitError(err.message, err.field);
+      return;
+    }
+    throw err;
+  }
+  showSubmitError("");
+  const button = $("#submit-button");
+  button.disabled = true;
+  try {
+    const r = await fetch("/v1/forecasts", {
+      method: "POST",
+      headers: { "Content-Type": "application/json", Accept: "application/json" },
+      body: JSON.stringify(body),
+    });
+    const answer = await r.json().catch(() => ({}));
+    if (!r.ok) {
+      showSubmitError(answer.detail || `${r.status} ${r.statusText}`, answer.field);
+      return;
+    }
+    location.hash = `#/forecasts/${answer.id}`;
+  } catch (err) {
+    showSubmitError(`The service could not be reached: ${err.message}`);
+  } finally {
+    button.disabled = false;
+  }
+}
+
+function fillDemo() {
+  const f = $("#submit-form").elements;
+  for (const [k, v] of Object.entries(DEMO_ORBIT)) f[k].value = v;
+  $("#orbit-json").value = JSON.stringify(DEMO_ORBIT, null, 2);
+}
+
+function readFile() {
+  const file = $("#orbit-file").files[0];
+  if (!file) return;
+  const reader = new FileReader();
+  reader.onload = () => {
+    $("#orbit-json").value = String(reader.result);
+    setMode("json");
+  };
+  reader.readAsText(file);
+}
+
+// ---------------------------------------------------------------------------------------------
+
+document.addEventListener("DOMContentLoaded", () => {
+  $("#upcoming-form").addEventListener("submit", (ev) => {
+    ev.preventDefault();
+    loadUpcoming();
+  });
+  for (const b of document.querySelectorAll("#upcoming-table thead button")) {
+    b.addEventListener("click", () => {
+      upcoming.dir = upcoming.key === b.dataset.key ? -upcoming.dir : 1;
+      upcoming.key = b.dataset.key;
+      renderUpcoming();
+    });
+  }
+  $("#fc-year").addEventListener("change", (ev) => showYear(Number(ev.target.value)));
+  $("#submit-form").addEventListener("submit", submitForecast);
+  for (const r of document.querySelectorAll('input[name="mode"]')) r.addEventListener("change", () => setMode(mode()));
+  $("#fill-demo").addEventListener("click", fillDemo);
+  $("#orbit-file").addEventListener("change", readFile);
+  window.addEventListener("hashchange", route);
+  route();
+});

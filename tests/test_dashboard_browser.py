@@ -1,0 +1,304 @@
+"""The dashboard in a real browser: Debian's Chromium driven by Playwright (``executable_path``; no
+browser download) against `trailcast serve` on a loopback port.
+
+One walk through the page as an observer would take it: client-side validation that reads like
+the API's own answers, submitting the invented demo comet, progress to done, the charts (trails
+and meteoroids counted in the SVG against the stored result), SVG and PNG downloads, the
+numbers and cautions, the upcoming table (sorted by a click) and its calendar link, at laptop
+(1280x800) and phone (390x844) sizes. Every request the page makes is recorded: all go to the
+loopback server. Screenshots are saved under test-artifacts/dashboard/ (git-ignored).
+"""
+
+import json
+import os
+import shutil
+from pathlib import Path
+from urllib.parse import urlsplit
+
+import httpx
+import icalendar
+import pytest
+from playwright import sync_api as playwright_api
+from test_jobs_http import DEMO_ORBIT, EXAMPLES, WAIT_S, Server
+
+CHROMIUM = os.environ.get("TRAILCAST_CHROMIUM", "/usr/bin/chromium")
+CHROMIUM_ARGS = [
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+]
+ARTIFACTS = Path(__file__).resolve().parents[1] / "test-artifacts" / "dashboard"
+#: Longest wait for anything on the page (ms): a forecast on 2 shared cores, generously.
+WAIT_MS = int(WAIT_S * 1000)
+
+#: What the page submits: the invented demo comet, 2040 only, two trails, 30 meteoroids each.
+FORM = {"first_year": "2040", "last_year": "2040", "particles": "30", "trails": "2026, 2013"}
+FORM_MAX_AGE = "100"
+
+#: Invalid submissions (as the page's JSON box takes them) whose message the page must show
+#: exactly as the API words it.
+BAD_BODIES = [
+    {"orbit": {**DEMO_ORBIT, "q": -1}, "years": [2040]},
+    {"orbit": {**DEMO_ORBIT, "e": -0.5}, "years": [2040]},
+    {"orbit": {**DEMO_ORBIT, "i": 200.5}, "years": [2040]},
+    {"orbit": {**DEMO_ORBIT, "node": 360}, "years": [2040]},
+    {"orbit": {**DEMO_ORBIT, "peri": "south"}, "years": [2040]},
+    {"orbit": {k: v for k, v in DEMO_ORBIT.items() if k != "tp"}, "years": [2040]},
+    {"orbit": {**DEMO_ORBIT, "colour": "red"}, "years": [2040]},
+    {"orbit": {**DEMO_ORBIT, "name": " "}, "years": [2040]},
+    {"orbit": DEMO_ORBIT, "years": [1700, 2040]},
+    {"orbit": DEMO_ORBIT, "years": [2041, 2040]},
+    {"orbit": DEMO_ORBIT, "years": [2040], "particles": 2},
+    {"orbit": DEMO_ORBIT, "years": [2040], "particles": 3.5},
+]
+
+# Skipped on a developer's machine without Chromium; never in CI (CI=true), where a missing
+# browser must fail the run (.ci/run installs it).
+pytestmark = pytest.mark.skipif(
+    shutil.which(CHROMIUM) is None and not os.environ.get("CI"),
+    reason=f"Chromium not at {CHROMIUM} (.ci/run installs Debian's chromium)",
+)
+
+
+@pytest.fixture(scope="module")
+def server(tmp_path_factory):
+    data = tmp_path_factory.mktemp("dashboard") / "var"
+    s = Server(data, TRAILCAST_WORKERS="2")
+    try:
+        yield s
+    finally:
+        s.stop()
+
+
+@pytest.fixture(scope="module")
+def browser():
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    with playwright_api.sync_playwright() as p:
+        b = p.chromium.launch(executable_path=CHROMIUM, args=CHROMIUM_ARGS)
+        try:
+            yield b
+        finally:
+            b.close()
+
+
+class Requests:
+    """Every request a browser context makes; anything not to the server is refused and kept."""
+
+    def __init__(self, context, server_url: str):
+        self.allowed = urlsplit(server_url).netloc
+        self.urls: list[str] = []
+        self.refused: list[str] = []
+        context.route("**/*", self._route)
+
+    def _route(self, route):
+        url = route.request.url
+        self.urls.append(url)
+        parts = urlsplit(url)
+        if parts.scheme in ("http", "https", "ws", "wss") and parts.netloc != self.allowed:
+            self.refused.append(url)
+            route.abort()
+        else:
+            route.continue_()
+
+    def hosts(self) -> set[str]:
+        return {urlsplit(u).hostname for u in self.urls if urlsplit(u).scheme != "data"}
+
+
+def _shot(page, name: str) -> None:
+    page.screenshot(path=str(ARTIFACTS / f"{name}.png"), full_page=True)
+
+
+def _no_horizontal_scroll(page) -> bool:
+    return page.evaluate(
+        "document.documentElement.scrollWidth <= document.documentElement.clientWidth + 1"
+    )
+
+
+def _count_uses(page, selector: str) -> int:
+    return page.locator(f"{selector} use").count()
+
+
+@pytest.mark.slow
+def test_dashboard_end_to_end_in_chromium(server, browser):
+    context = browser.new_context(viewport={"width": 1280, "height": 800}, accept_downloads=True)
+    requests = Requests(context, server.url)
+    page = context.new_page()
+    errors: list[str] = []
+    page.on("pageerror", lambda exc: errors.append(str(exc)))
+    job_states: list[str] = []
+
+    def watch(response):
+        path = urlsplit(response.url).path
+        if response.request.method == "GET" and path.startswith("/v1/forecasts/"):
+            if path.count("/") == 3:  # /v1/forecasts/{id}
+                job_states.append(response.json()["state"])
+
+    page.on("response", watch)
+    try:
+        # The empty store: the upcoming view says there is nothing yet, cautions are visible.
+        page.goto(server.url + "/")
+        page.wait_for_selector("#upcoming-status:has-text('No predicted encounters')")
+        assert page.locator("#cautions").is_visible()
+        assert "Spacecraft operators" in page.locator("#cautions").inner_text()
+
+        # --- submit: client-side validation speaks the API's words ------------------------
+        page.click("#nav-submit")
+        page.check("input[name='mode'][value='json']")
+        posts_before = sum(1 for u in requests.urls if u.endswith("/v1/forecasts"))
+        for body in BAD_BODIES:
+            api = httpx.post(f"{server.url}/v1/forecasts", json=body, timeout=30.0)
+            assert api.status_code == 422, api.text
+            page.fill("#orbit-json", json.dumps(body["orbit"]))
+            years = body["years"] + [""] * (2 - len(body["years"]))
+            page.fill("input[name='first_year']", str(years[0]))
+            page.fill("input[name='last_year']", str(years[1]))
+            page.fill("input[name='particles']", str(body.get("particles", 30)))
+            page.fill("input[name='trails']", "")
+            page.fill("input[name='max_age']", "")
+            page.click("#submit-button")
+            shown = page.locator("#submit-error")
+            shown.wait_for(state="visible")
+            assert shown.inner_text() == api.json()["detail"], body
+        # None of them left the page: the browser sent no POST for them.
+        assert sum(1 for u in requests.urls if u.endswith("/v1/forecasts")) == posts_before
+        _shot(page, "submit-invalid-1280x800")
+
+        # Upload the orbit file: it lands in the JSON box, then back to the element fields.
+        page.check("input[name='mode'][value='file']")
+        page.set_input_files("#orbit-file", str(EXAMPLES / "demo-comet.json"))
+        page.wait_for_function(
+            "document.querySelector('#orbit-json').value.includes('Hollow Pine')"
+        )
+        assert json.loads(page.input_value("#orbit-json")) == DEMO_ORBIT
+        page.check("input[name='mode'][value='fields']")
+        page.click("#fill-demo")
+        assert page.input_value("input[name='q']") == str(DEMO_ORBIT["q"])
+        for name, value in FORM.items():
+            page.fill(f"input[name='{name}']", value)
+        page.fill("input[name='max_age']", FORM_MAX_AGE)
+        _shot(page, "submit-1280x800")
+        page.click("#submit-button")
+
+        # --- progress to done ------------------------------------------------------------
+        page.wait_for_url("**/#/forecasts/*")
+        job_id = page.url.rsplit("/", 1)[-1]
+        page.wait_for_selector("#fc-progress[data-state]")
+        page.wait_for_selector("#fc-done:not([hidden])", timeout=WAIT_MS)
+        assert page.locator("#fc-progress").evaluate("p => p.value") == 1
+        assert page.inner_text("#fc-state").startswith("done")
+        assert job_states[-1] == "done" and set(job_states) <= {"queued", "running", "done"}
+        job = httpx.get(f"{server.url}/v1/forecasts/{job_id}", timeout=30.0).json()
+        result = job["result"]
+        assert result["parent"]["name"] == DEMO_ORBIT["name"]
+        assert job["options"]["trails"] == [2013, 2026] and job["options"]["particles"] == 30
+
+        # --- the charts: trails and meteoroids counted against the stored result ----------
+        for chart in ("crossings", "profile", "radiants"):
+            page.wait_for_selector(f"#chart-{chart}[data-loaded-year='2040'] svg")
+        stored = [c for c in result["particle_crossings"] if c["year"] == 2040]
+        assert stored, "the 2026 and 2013 trails pass Earth in 2040"
+        trail_groups = page.locator("#chart-crossings g[id^='trail-']")
+        assert trail_groups.count() == len(stored)
+        for c in stored:
+            trail = c["perihelion_year"]
+            kind = "encounters" if c["kind"] == "encounter" else "near_misses"
+            # Every meteoroid behind the trail's numbers is one point of the chart.
+            assert len(c["t_earth_utc"]) == result[kind][c["index"]]["particles"]
+            assert _count_uses(page, f"#chart-crossings #trail-{trail}") == len(c["t_earth_utc"])
+            assert _count_uses(page, f"#chart-radiants #radiants-{trail}") == len(c["ra_deg"])
+            legend = f"{trail} trail ({c['revolutions']} rev)"
+            assert legend in page.locator("#chart-crossings svg").text_content()
+        assert page.locator("#chart-crossings #earth-path").count() == 1
+        encounters_2040 = [e for e in result["encounters"] if e["year"] == 2040]
+        assert encounters_2040, "the 2026 trail meets Earth in 2040 (README example)"
+        for e in encounters_2040:
+            if e["zhr"]["estimate"] > 0:
+                trail = e["trail"]["perihelion_year"]
+                assert page.locator(f"#chart-profile #profile-{trail}").count() == 1
+                assert page.locator(f"#chart-profile #band-{trail}").count() == 1
+                if e["window"]:
+                    assert page.locator(f"#chart-profile #window-{trail}").count() == 1
+        crossings_svg = page.locator("#chart-crossings svg").text_content()
+        assert "miss distance, trail minus Earth (au)" in crossings_svg
+        assert "solar longitude λ☉ (deg" in crossings_svg
+
+        # The numbers and the cautions of this forecast.
+        rows = page.locator("#fc-table tbody tr")
+        n_2040 = len(encounters_2040) + sum(1 for e in result["near_misses"] if e["year"] == 2040)
+        assert rows.count() == n_2040
+        first = encounters_2040[0]
+        assert first["peak_utc"].replace("T", " ").replace("Z", "") in page.inner_text("#fc-table")
+        assert page.locator("#fc-cautions").is_visible()
+        assert "Spacecraft operators" in page.inner_text("#fc-cautions")
+        _shot(page, "forecast-1280x800")
+
+        # --- downloads: SVG and PNG, as the browser saves them -----------------------------
+        for fmt, magic in (("svg", b"<?xml"), ("png", b"\x89PNG\r\n\x1a\n")):
+            with page.expect_download() as info:
+                page.click(f"#chart-crossings .downloads a[data-fmt='{fmt}']")
+            download = info.value
+            saved = ARTIFACTS / download.suggested_filename
+            download.save_as(saved)
+            assert saved.name == f"trailcast-{job_id}-crossings-2040.{fmt}"
+            assert saved.read_bytes().startswith(magic)
+        assert b"trail-2026" in (ARTIFACTS / f"trailcast-{job_id}-crossings-2040.svg").read_bytes()
+
+        # --- upcoming: the new encounter is listed, sortable, with its calendar -----------
+        page.click("#nav-upcoming")
+        page.wait_for_selector("#upcoming-table tbody tr")
+        body_rows = page.locator("#upcoming-table tbody tr")
+        assert body_rows.count() == len(result["encounters"])
+        peaks = sorted(
+            e["peak_utc"].replace("T", " ").replace("Z", "") for e in result["encounters"]
+        )
+        assert [
+            body_rows.nth(k).locator("td").first.inner_text() for k in range(len(peaks))
+        ] == peaks
+        page.click("#upcoming-table thead button[data-key='miss']")
+        page.click("#upcoming-table thead button[data-key='miss']")  # second click: descending
+        header = page.locator("#upcoming-table thead th", has=page.locator("[data-key='miss']"))
+        assert header.get_attribute("aria-sort") == "descending"
+        misses = [
+            abs(float(body_rows.nth(k).locator("td").nth(4).inner_text()))
+            for k in range(body_rows.count())
+        ]
+        assert misses == sorted(misses, reverse=True)
+        assert page.locator(f"#upcoming-table a[href='#/forecasts/{job_id}']").count() >= 1
+        _shot(page, "upcoming-1280x800")
+
+        # Follow the calendar link (through the page's own context, so it is recorded too).
+        href = page.get_attribute("#upcoming-ics", "href")
+        assert href.startswith("/v1/encounters.ics?")
+        ics = page.request.get(server.url + href)
+        assert ics.ok and ics.headers["content-type"].startswith("text/calendar")
+        events = list(icalendar.Calendar.from_ical(ics.body()).walk("VEVENT"))
+        assert len(events) == len(result["encounters"])
+
+        # Following a row's link opens the same forecast view.
+        page.click(f"#upcoming-table a[href='#/forecasts/{job_id}'] >> nth=0")
+        page.wait_for_selector("#chart-crossings[data-loaded-year='2040'] svg")
+
+        # --- phone size: the same views, usable without sideways scrolling ---------------
+        page.set_viewport_size({"width": 390, "height": 844})
+        page.wait_for_selector("#chart-crossings svg")
+        assert _no_horizontal_scroll(page)
+        assert page.locator("#cautions").is_visible()
+        chart_box = page.locator("#chart-crossings svg").bounding_box()
+        assert chart_box["width"] <= 390
+        _shot(page, "forecast-390x844")
+        page.click("#nav-upcoming")
+        page.wait_for_selector("#upcoming-table tbody tr")
+        assert _no_horizontal_scroll(page)  # the wide table scrolls inside its own box
+        _shot(page, "upcoming-390x844")
+        page.click("#nav-submit")
+        assert _no_horizontal_scroll(page)
+        _shot(page, "submit-390x844")
+    finally:
+        context.close()
+
+    assert errors == [], errors
+    # No request left loopback: every URL the page asked for went to the test's server.
+    assert requests.refused == []
+    assert requests.hosts() == {"127.0.0.1"}, requests.hosts()
