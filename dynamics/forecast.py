@@ -885,15 +885,19 @@ class SolutionsResult:
             )
         return out
 
+    def merged_rows(self, kind: str) -> list[tuple[int, int, dict]]:
+        """Every solution's encounters (``kind="encounters"``) or near misses, in the order
+        :meth:`to_json` lists them: (solution index, index within that solution, row JSON)."""
+        rows = []
+        for si, (label, res) in enumerate(zip(self.labels, self.results, strict=True)):
+            for k, row in enumerate(res.to_json()[kind]):
+                rows.append((si, k, dict(row, solution=label)))
+        return sorted(rows, key=lambda r: (r[2]["peak_utc"], r[2]["solution"]))
+
     def to_json(self) -> dict:
         base = self.results[0].to_json()
-        encounters, near = [], []
-        for label, res in zip(self.labels, self.results, strict=True):
-            js = res.to_json()
-            encounters += [dict(e, solution=label) for e in js["encounters"]]
-            near += [dict(e, solution=label) for e in js["near_misses"]]
-        base["encounters"] = sorted(encounters, key=lambda e: (e["peak_utc"], e["solution"]))
-        base["near_misses"] = sorted(near, key=lambda e: (e["peak_utc"], e["solution"]))
+        base["encounters"] = [row for _, _, row in self.merged_rows("encounters")]
+        base["near_misses"] = [row for _, _, row in self.merged_rows("near_misses")]
         base["solutions"] = self.parents()
         base["solution_summary"] = self.summary()
         base["notes"] = sorted({n for r in self.results for n in r.notes})

@@ -46,7 +46,7 @@ class ShuttingDown(Exception):
 
 def forecast_inputs(job: Job, workers: int):
     """The (OrbitInput, ForecastOptions) a job's canonical request describes."""
-    from dynamics.forecast import ForecastOptions
+    from dynamics.forecast import Calibration, ForecastOptions
     from dynamics.orbit_input import parse_orbit
     from dynamics.trails import EjectionModel
 
@@ -69,8 +69,22 @@ def forecast_inputs(job: Job, workers: int):
             meteoroid_density_g_cm3=o["meteoroid_density_g_cm3"],
             nucleus_radius_km=o["nucleus_radius_km"],
         ),
+        dust_mass_per_return_g=o.get("dust_mass_per_return_g"),
+        calibration=Calibration(**o["calibration"]) if o.get("calibration") else None,
     )
     return orbit, options
+
+
+def solution_particle_crossings(computed) -> list[dict]:
+    """:func:`particle_crossings` for a multi-solution result, indexed like its merged lists."""
+    per_solution = [particle_crossings(r, r.to_json()) for r in computed.results]
+    out = []
+    for kind, key in (("encounter", "encounters"), ("near_miss", "near_misses")):
+        for m, (si, k, row) in enumerate(computed.merged_rows(key)):
+            for item in per_solution[si]:
+                if item["kind"] == kind and item["index"] == k:
+                    out.append(dict(item, index=m, solution=row["solution"]))
+    return out
 
 
 def particle_crossings(computed, result_json: dict) -> list[dict]:
@@ -266,7 +280,7 @@ class JobRunner:
             self._run(job)
 
     def _run(self, job: Job) -> None:
-        from dynamics.forecast import forecast
+        from dynamics.forecast import forecast, forecast_solutions
 
         log.info("job %s: started (attempt %d)", job.id, job.attempts)
         with self._running_lock:
@@ -305,9 +319,17 @@ class JobRunner:
             return
         try:
             orbit, options = forecast_inputs(job, self.settings.forecast_workers)
-            computed = forecast(orbit, options, progress=progress, executor=executor)
-            result = computed.to_json()
-            result["particle_crossings"] = particle_crossings(computed, result)
+            if orbit.solutions or orbit.covariance is not None:
+                clones = job.request["options"].get("clones", 5)
+                computed = forecast_solutions(
+                    orbit, options, clones=clones, progress=progress, executor=executor
+                )
+                result = computed.to_json()
+                result["particle_crossings"] = solution_particle_crossings(computed)
+            else:
+                computed = forecast(orbit, options, progress=progress, executor=executor)
+                result = computed.to_json()
+                result["particle_crossings"] = particle_crossings(computed, result)
             if self._stop.is_set():
                 raise ShuttingDown
             if self.jobs.finish_done(job.id, self.name, result):

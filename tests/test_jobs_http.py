@@ -308,3 +308,39 @@ def test_job_survives_sigkill_and_completes_after_restart(tmp_path):
             assert n == len(job["result"]["encounters"])  # none lost, none twice
     finally:
         conn.close()
+
+
+@pytest.mark.slow
+def test_alternative_solutions_and_stated_production_run_as_a_job(server):
+    """An orbit with an alternative fit runs every solution; the stated dust mass is used."""
+    alt = dict(DEMO_ORBIT, name=DEMO_ORBIT["name"] + ", alternative fit", q=DEMO_ORBIT["q"] + 0.003)
+    body = {
+        "orbit": dict(DEMO_ORBIT, solutions=[alt]),
+        "years": [2040, 2040],
+        "particles": 20,
+        "options": {"trails": [2026], "dust_mass_per_return_g": 1e12},
+    }
+    r = httpx.post(f"{server.url}/v1/forecasts", json=body, timeout=30.0)
+    assert r.status_code == 202, r.text
+    job = _wait_for(
+        server.url + r.json()["links"]["self"], lambda j: j["state"] == "done", "solutions job"
+    )
+    result = job["result"]
+    assert [s["solution"] for s in result["solutions"]] == ["nominal", "solution-1"]
+    rows = result["encounters"] + result["near_misses"]
+    assert {row["solution"] for row in rows} == {"nominal", "solution-1"}
+    assert result["model"]["dust_mass_per_return_g"] == 1e12
+    # the stored meteoroid crossings point at the merged rows they belong to
+    for item in result["particle_crossings"]:
+        key = "encounters" if item["kind"] == "encounter" else "near_misses"
+        assert result[key][item["index"]]["solution"] == item["solution"]
+
+
+def test_calibration_trail_must_precede_its_year(server):
+    body = dict(
+        TINY,
+        options={"trails": [2026], "calibration": {"year": 2040, "trail_year": 2040, "zhr": 10}},
+    )
+    r = httpx.post(f"{server.url}/v1/forecasts", json=body, timeout=30.0)
+    assert r.status_code == 422
+    assert r.json()["field"] == "options.calibration.trail_year"

@@ -78,6 +78,32 @@ class ForecastOptionsIn(BaseModel):
         1.0, ge=0.05, le=8.0, description="Meteoroid bulk density (g/cm^3)"
     )
     nucleus_radius_km: float = Field(2.0, ge=0.01, le=100.0, description="Nucleus radius (km)")
+    dust_mass_per_return_g: float | None = Field(
+        None,
+        ge=1.0,
+        le=1e20,
+        description="Dust mass released per return (g) for absolute ZHRs; default: 1 m of the "
+        "nucleus surface per return (a rule of thumb)",
+    )
+    calibration: "CalibrationIn | None" = Field(
+        None, description="A past observed outburst of this parent: ZHRs are scaled to it"
+    )
+    clones: int = Field(
+        5, ge=0, le=20, description="Clones drawn from the orbit's covariance, when it has one"
+    )
+
+
+class CalibrationIn(BaseModel):
+    """A past observed outburst of the same parent (calibrated ZHR mode)."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    year: int = Field(..., ge=1800, le=2199, description="Year of the observed outburst")
+    trail_year: int = Field(..., ge=-1999, le=2199, description="Perihelion year of its trail")
+    zhr: float = Field(..., gt=0.0, le=1e6, description="Observed peak ZHR")
+
+
+ForecastOptionsIn.model_rebuild()
 
 
 class ForecastIn(BaseModel):
@@ -319,6 +345,14 @@ def canonical_from_body(body: ForecastIn, settings: Settings) -> tuple[dict, str
             "particles",
             f"{particles} particles asked; this server takes at most "
             f"{settings.max_particles_per_job} per job",
+        )
+    if opts.calibration is not None and opts.calibration.trail_year >= opts.calibration.year:
+        raise ProblemError(
+            422,
+            "Invalid request",
+            "options.calibration.trail_year must precede options.calibration.year",
+            TYPE_BASE + "invalid-request",
+            field="options.calibration.trail_year",
         )
     options = opts.model_dump()
     options["particles"] = particles
