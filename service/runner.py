@@ -44,11 +44,23 @@ class ShuttingDown(Exception):
     """Raised from the progress callback: the service is stopping; the job is re-queued."""
 
 
+def ejection_model(o: dict):
+    """The EjectionModel a canonical request's ``options`` describe (forecasts and screenings)."""
+    from dynamics.trails import EjectionModel
+
+    return replace(
+        EjectionModel(),
+        speed_law=o["speed_law"],
+        mass_index=o["mass_index"],
+        meteoroid_density_g_cm3=o["meteoroid_density_g_cm3"],
+        nucleus_radius_km=o["nucleus_radius_km"],
+    )
+
+
 def forecast_inputs(job: Job, workers: int):
     """The (OrbitInput, ForecastOptions) a job's canonical request describes."""
     from dynamics.forecast import Calibration, ForecastOptions
     from dynamics.orbit_input import parse_orbit
-    from dynamics.trails import EjectionModel
 
     req = job.request
     o = req["options"]
@@ -62,13 +74,7 @@ def forecast_inputs(job: Job, workers: int):
         max_trail_age_years=o["max_trail_age_years"],
         integrator=o["integrator"],
         workers=workers,
-        ejection=replace(
-            EjectionModel(),
-            speed_law=o["speed_law"],
-            mass_index=o["mass_index"],
-            meteoroid_density_g_cm3=o["meteoroid_density_g_cm3"],
-            nucleus_radius_km=o["nucleus_radius_km"],
-        ),
+        ejection=ejection_model(o),
         dust_mass_per_return_g=o.get("dust_mass_per_return_g"),
         calibration=Calibration(**o["calibration"]) if o.get("calibration") else None,
     )

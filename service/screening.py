@@ -713,10 +713,9 @@ class ScreeningJobStore:
 
 def screening_inputs(request: dict):
     """(rows, rule, options) a screening job's canonical request describes."""
-    from dataclasses import replace as dc_replace
-
     from dynamics.screening import ScreeningRule, screening_forecast_options
-    from dynamics.trails import EjectionModel
+
+    from .runner import ejection_model
 
     rows = [_row_from_mapping(k, item) for k, item in enumerate(request["orbits"])]
     rule = ScreeningRule(**request["rule"])
@@ -728,13 +727,7 @@ def screening_inputs(request: dict):
         seed=o["seed"],
         max_trail_age_years=o["max_trail_age_years"],
         integrator=o["integrator"],
-        ejection=dc_replace(
-            EjectionModel(),
-            speed_law=o["speed_law"],
-            mass_index=o["mass_index"],
-            meteoroid_density_g_cm3=o["meteoroid_density_g_cm3"],
-            nucleus_radius_km=o["nucleus_radius_km"],
-        ),
+        ejection=ejection_model(o),
     )
     return rows, rule, options
 
