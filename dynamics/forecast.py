@@ -371,7 +371,6 @@ class _Target:
     t_parent_node: float
     fit: tuple = (0.0, 1.0)
     selection: Candidates | None = None
-    selection_fraction: float = 0.0
     selection_scale: float = 1.0  # weight of all candidates in the window / of those integrated
 
 
@@ -545,9 +544,6 @@ def _forecast(
         a, b = tg.fit
         y_pred = a + b * _predicted_offset(pool, tg)
         ok = np.abs(y_pred) <= options.window_days
-        tg.selection_fraction = (
-            float(pool.weight[ok].sum() / pool.weight.sum()) if len(pool) else 0.0
-        )
         idx = np.flatnonzero(ok)[: options.particles]
         if len(idx) == 0:
             continue

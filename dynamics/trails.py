@@ -17,8 +17,9 @@ in spirit). trailcast therefore:
 4. keeps for the full integration only candidates whose corrected arrival falls within
    +- ``window_days`` of Earth's passage.
 
-Counting how many candidates were drawn for each one kept gives the selection fraction, from
-which later stages recover absolute densities.
+Every candidate keeps its importance weight (mass distribution), and the number drawn per
+return is recorded, so that the activity stage can turn the integrated few back into numbers
+of real meteoroids (:func:`dynamics.activity.meteoroids_per_particle`).
 """
 
 from dataclasses import dataclass, field
@@ -185,15 +186,6 @@ def _empty() -> Candidates:
     return Candidates(z, np.zeros((0, 3)), np.zeros((0, 3)), z, z, z, z, z, z, z)
 
 
-def concat(parts) -> Candidates:
-    parts = [p for p in parts if len(p)]
-    if not parts:
-        return _empty()
-    return Candidates(
-        *(np.concatenate([getattr(p, f) for p in parts]) for f in Candidates.__dataclass_fields__)
-    )
-
-
 def parent_node_time(ret: ParentReturn, node: str) -> float:
     """Time (TDB JD) the parent passes ``node`` on the revolution of return ``ret`` (two-body
     from its perihelion elements; the node nearest perihelion in time)."""
@@ -214,8 +206,11 @@ def parent_node_time(ret: ParentReturn, node: str) -> float:
 
 
 def nodes_near_earth(ret: ParentReturn, max_distance_au: float):
-    """The parent's nodes (on return ``ret``) within ``max_distance_au`` of 1 au-ish Earth's
-    orbit: list of (node, r_node_au, node_longitude_deg)."""
+    """The parent's nodes (on return ``ret``) within ``max_distance_au`` of Earth's orbit.
+
+    Earth's distance is DE423's at the time Earth passes the node's longitude nearest the
+    return (clipped into DE423's span). Returns a list of (node, r_node_au, node_longitude_deg).
+    """
     from .encounters import earth_passage_tdb
     from .ephemeris import EPHEMERIS_SPAN_TDB_JD, heliocentric_state
 
