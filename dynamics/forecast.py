@@ -55,6 +55,10 @@ ENCOUNTER_SIGMAS = 3.0
 EARTH_RADIUS_AU = 6371.0 / 149_597_870.7  # mean Earth radius (IUGG), in au
 #: Trails crossing farther than this are not reported at all (au).
 NEAR_MISS_MAX_AU = 0.05
+#: Extra selection rounds for a trail whose meteoroids mostly missed Earth's passage: each
+#: re-maps predicted to real arrivals with everything integrated so far (old, strongly perturbed
+#: trails need them).
+REFINEMENT_ROUNDS = 3
 #: A parent node farther than this from Earth's orbit is not followed (au).
 NODE_MAX_DISTANCE_AU = 0.25
 
@@ -370,6 +374,8 @@ class _Target:
     revolutions: int
     t_parent_node: float
     fit: tuple = (0.0, 1.0)
+    x_seen: np.ndarray = field(default_factory=lambda: np.zeros(0))  # predicted offsets (days)
+    y_seen: np.ndarray = field(default_factory=lambda: np.zeros(0))  # actual offsets (days)
     selection: Candidates | None = None
     selection_scale: float = 1.0  # weight of all candidates in the window / of those integrated
 
@@ -507,7 +513,7 @@ def _forecast(
     for ti, tg in enumerate(targets):
         pool = pools[tg.trail]
         x = _predicted_offset(pool, tg)
-        inside = np.flatnonzero(np.abs(x) <= options.pilot_window_days)
+        inside = np.flatnonzero(np.abs(x) <= _pilot_window(options, tg))
         if len(inside) == 0:
             continue
         order = inside[np.argsort(x[inside])]
@@ -516,7 +522,7 @@ def _forecast(
         ]
         sel = pool.take(pick)
         out_t = _output_times(
-            returns[tg.trail], tg.t_earth, options.pilot_window_days + 40.0, 5.0, options.dt_days
+            returns[tg.trail], tg.t_earth, _pilot_window(options, tg) + 40.0, 5.0, options.dt_days
         )
         pilot_tasks.append(_make_task(("pilot", ti), returns[tg.trail], sel, out_t, options))
         pilot_meta.append((ti, sel, x[pick]))
@@ -531,44 +537,63 @@ def _forecast(
     for (ti, sel, x_pred), snaps in zip(pilot_meta, pilot_results, strict=True):
         tg = targets[ti]
         cr = node_crossings(snaps, sel.beta, tg.node)
-        y = cr.t_cross_tdb_jd - tg.t_earth
-        tg.fit = _robust_line(x_pred, y)
+        tg.x_seen = np.asarray(x_pred, dtype=float)
+        tg.y_seen = cr.t_cross_tdb_jd - tg.t_earth
+        tg.fit = _robust_line(tg.x_seen, tg.y_seen)
         if not (0.2 <= tg.fit[1] <= 5.0):  # no sensible calibration: fall back to the prediction
             tg.fit = (0.0, 1.0)
 
-    # Selection for the main integration.
-    say(0.3, "selection")
-    main_tasks, main_meta = [], []
-    for ti, tg in enumerate(targets):
-        pool = pools[tg.trail]
-        a, b = tg.fit
-        y_pred = a + b * _predicted_offset(pool, tg)
-        ok = np.abs(y_pred) <= options.window_days
-        idx = np.flatnonzero(ok)[: options.particles]
-        if len(idx) == 0:
-            continue
-        tg.selection = pool.take(idx)
-        tg.selection_scale = float(pool.weight[ok].sum() / pool.weight[idx].sum())
-        out_t = _output_times(
-            returns[tg.trail], tg.t_earth, options.window_days + 30.0, 2.0, options.dt_days
-        )
-        for start in range(0, len(idx), options.chunk_size):
-            chunk = tg.selection.take(np.arange(start, min(start + options.chunk_size, len(idx))))
-            main_tasks.append(
-                _make_task(("main", ti, start), returns[tg.trail], chunk, out_t, options)
+    # Main integration, then one refinement round for targets where the calibration missed:
+    # the arrivals of everything integrated so far map the prediction to the real arrival.
+    per_target: dict[int, list] = {}
+    used: dict[int, np.ndarray] = {}
+    for round_ in range(1 + REFINEMENT_ROUNDS):
+        say(0.3 + 0.15 * round_, "selection" if round_ == 0 else "refinement")
+        main_tasks, main_meta = [], []
+        for ti, tg in enumerate(targets):
+            if round_ > 0 and not _needs_refinement(tg, per_target.get(ti, []), options):
+                continue
+            pool = pools[tg.trail]
+            x_all = _predicted_offset(pool, tg)
+            ok = np.abs(_arrival_model(tg)(x_all)) <= options.window_days
+            taken = used.get(ti, np.zeros(len(pool), dtype=bool))
+            idx = np.flatnonzero(ok & ~taken)[: options.particles]
+            if len(idx) == 0:
+                continue
+            taken = taken.copy()
+            taken[idx] = True
+            used[ti] = taken
+            new = pool.take(idx)
+            tg.selection = new if tg.selection is None else _concat_candidates(tg.selection, new)
+            tg.selection_scale = float(pool.weight[ok].sum() / pool.weight[taken].sum())
+            out_t = _output_times(
+                returns[tg.trail], tg.t_earth, options.window_days + 30.0, 2.0, options.dt_days
             )
-            main_meta.append((ti, start))
-    say(0.35, "integration")
-    main_results = _run_all(
-        main_tasks, options.workers, executor, lambda k, n: say(0.35 + 0.55 * k / n, "integration")
-    )
-    integrated += sum(len(t.beta) for t in main_tasks)
+            for start in range(0, len(idx), options.chunk_size):
+                chunk = new.take(np.arange(start, min(start + options.chunk_size, len(idx))))
+                main_tasks.append(
+                    _make_task(
+                        ("main", round_, ti, start), returns[tg.trail], chunk, out_t, options
+                    )
+                )
+                main_meta.append((ti, x_all[idx[start : start + options.chunk_size]]))
+        lo, span = (0.35, 0.4) if round_ == 0 else (0.75, 0.15 / REFINEMENT_ROUNDS)
+        results = _run_all(
+            main_tasks,
+            options.workers,
+            executor,
+            lambda k, n, lo=lo, span=span: say(lo + span * k / n, "integration"),
+        )
+        integrated += sum(len(t.beta) for t in main_tasks)
+        for (ti, x_chunk), task, snaps in zip(main_meta, main_tasks, results, strict=True):
+            cr = node_crossings(snaps, task.beta, targets[ti].node)
+            per_target.setdefault(ti, []).append(cr)
+            tg = targets[ti]
+            tg.x_seen = np.concatenate([tg.x_seen, x_chunk])
+            tg.y_seen = np.concatenate([tg.y_seen, cr.t_cross_tdb_jd - tg.t_earth])
 
     # Assemble per target.
     say(0.9, "encounters")
-    per_target: dict[int, list] = {}
-    for (ti, _start), task, snaps in zip(main_meta, main_tasks, main_results, strict=True):
-        per_target.setdefault(ti, []).append(node_crossings(snaps, task.beta, targets[ti].node))
     encounters, near = [], []
     contributing = 0
     for ti, parts in per_target.items():
@@ -662,6 +687,66 @@ def _targets(returns, trail_ids, options) -> list[_Target]:
 def _predicted_offset(pool: Candidates, tg: _Target) -> np.ndarray:
     """Predicted node arrival minus Earth's passage (days), zeroth order in perturbations."""
     return tg.t_parent_node + tg.revolutions * pool.dperiod_days + pool.dtp_days - tg.t_earth
+
+
+def _pilot_window(options, tg) -> float:
+    """Half-width (days) of the pilot's span of predicted arrivals; older trails scatter more."""
+    return max(options.pilot_window_days, 30.0 * tg.revolutions)
+
+
+def _arrival_model(tg):
+    """Map a candidate's zeroth-order predicted arrival offset to its expected real one (days).
+
+    Inside the range of integrated meteoroids: piecewise-linear interpolation of their real
+    offsets against their predictions (planetary perturbations make the relation bend, and for
+    old trails fold); outside it: the robust straight line.
+    """
+    a, b = tg.fit
+    good = np.isfinite(tg.x_seen) & np.isfinite(tg.y_seen)
+    xs, ys = tg.x_seen[good], tg.y_seen[good]
+    order = np.argsort(xs, kind="stable")
+    xs, ys = xs[order], ys[order]
+    keep = np.concatenate([[True], np.diff(xs) > 0]) if len(xs) else np.zeros(0, dtype=bool)
+    xs, ys = xs[keep], ys[keep]
+
+    def predict(x):
+        x = np.asarray(x, dtype=float)
+        out = a + b * x
+        if len(xs) >= 5:
+            inside = (x >= xs[0]) & (x <= xs[-1])
+            out[inside] = np.interp(x[inside], xs, ys)
+            # beyond either end: the secant from the end cluster (meteoroids within 15 days of
+            # it, averaged) to the first ones at least 30 days farther in
+            for sign, sel in ((1.0, x < xs[0]), (-1.0, x > xs[-1])):
+                if not np.any(sel):
+                    continue
+                dist = sign * (xs - (xs[0] if sign > 0 else xs[-1]))
+                near, far = dist <= 15.0, dist >= 30.0
+                if not np.any(far):
+                    continue
+                x0, y0 = xs[near].mean(), ys[near].mean()
+                k = np.flatnonzero(far)[0 if sign > 0 else -1]
+                slope = (ys[k] - y0) / (xs[k] - x0)
+                if slope > 0.05:  # a usable local relation; else keep the global line
+                    out[sel] = y0 + slope * (x[sel] - x0)
+        return out
+
+    return predict
+
+
+def _needs_refinement(tg, parts, options) -> bool:
+    """True when fewer than half the meteoroids integrated for a target met Earth's passage."""
+    if tg.selection is None or not parts:
+        return False
+    lag = np.concatenate([p.t_cross_tdb_jd - p.t_earth_tdb_jd for p in parts])
+    hit = np.isfinite(lag) & (np.abs(lag) <= options.window_days)
+    return hit.sum() < 0.5 * min(len(lag), options.particles)
+
+
+def _concat_candidates(a: Candidates, b: Candidates) -> Candidates:
+    return Candidates(
+        *(np.concatenate([getattr(a, f), getattr(b, f)]) for f in Candidates.__dataclass_fields__)
+    )
 
 
 def _robust_line(x, y):
