@@ -602,6 +602,11 @@ def _forecast(
         w = tg.selection.weight
         summary = _summarise(tg, returns[tg.trail], cr, w, options)
         if summary is None:
+            notes.append(
+                f"{_year_of(returns[tg.trail].tp_tdb_jd)} trail ({tg.revolutions} rev) in {tg.year}: "
+                "the targeting could not place meteoroids at Earth's passage; whether this trail "
+                "comes near Earth then is unresolved, not ruled out"
+            )
             continue
         contributing += summary.particles
         reach = ENCOUNTER_SIGMAS * summary.miss_distance_spread_au + EARTH_RADIUS_AU

@@ -194,3 +194,15 @@ def test_cli_bad_calibration_exit_2(bad):
         text=True,
     )
     assert proc.returncode == 2 and len(proc.stderr.strip().splitlines()) == 1
+
+
+@pytest.mark.slow
+def test_a_trail_the_targeting_cannot_resolve_is_reported_not_dropped():
+    # The 1866 trail of 55P in 2002 (four revolutions, strongly perturbed) is not reached by the
+    # current targeting; the result must say so instead of staying silent (regression of a
+    # known limitation: if a later version resolves it, this test should become a reference one).
+    res = forecast(
+        parse_orbit(PARENT_55P), ForecastOptions(2002, 2002, trails=(1866,), particles=60)
+    )
+    rows = res.encounters + res.near_misses
+    assert rows or any("1866 trail" in n and "unresolved" in n for n in res.notes)
