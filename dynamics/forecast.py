@@ -453,7 +453,13 @@ def _forecast(
     executor=None,
 ) -> ForecastResult:
     """See :func:`forecast`."""
-    say = progress or (lambda f, s: None)
+    report = progress or (lambda f, s: None)
+    reached = [0.0]
+
+    def say(fraction: float, stage: str) -> None:
+        reached[0] = max(reached[0], min(fraction, 1.0))  # progress never goes back
+        report(reached[0], stage)
+
     if options.last_year < options.first_year:
         raise ValueError("last_year must not precede first_year")
     calibration = None
@@ -543,12 +549,14 @@ def _forecast(
         if not (0.2 <= tg.fit[1] <= 5.0):  # no sensible calibration: fall back to the prediction
             tg.fit = (0.0, 1.0)
 
-    # Main integration, then one refinement round for targets where the calibration missed:
-    # the arrivals of everything integrated so far map the prediction to the real arrival.
+    # Main integration, then up to REFINEMENT_ROUNDS rounds for targets where most meteoroids
+    # missed: the arrivals of everything integrated so far map the prediction to the real one.
     per_target: dict[int, list] = {}
     used: dict[int, np.ndarray] = {}
     for round_ in range(1 + REFINEMENT_ROUNDS):
-        say(0.3 + 0.15 * round_, "selection" if round_ == 0 else "refinement")
+        # progress: selection 0.30, main integration 0.35-0.75, each refinement round 0.05 more
+        lo, span = (0.35, 0.4) if round_ == 0 else (0.75 + 0.05 * (round_ - 1), 0.05)
+        say(0.3 if round_ == 0 else lo, "selection" if round_ == 0 else "refinement")
         main_tasks, main_meta = [], []
         for ti, tg in enumerate(targets):
             if round_ > 0 and not _needs_refinement(tg, per_target.get(ti, []), options):
@@ -577,7 +585,6 @@ def _forecast(
                     )
                 )
                 main_meta.append((ti, x_all[idx[start : start + options.chunk_size]]))
-        lo, span = (0.35, 0.4) if round_ == 0 else (0.75, 0.15 / REFINEMENT_ROUNDS)
         results = _run_all(
             main_tasks,
             options.workers,
