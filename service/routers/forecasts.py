@@ -18,7 +18,6 @@ from dynamics.orbit_input import parse_orbit
 from ..exports import encounters_csv, encounters_ics
 from ..jobs import (
     Job,
-    JobConflict,
     JobNotFound,
     JobStore,
     QueueFull,
@@ -29,6 +28,7 @@ from ..problems import TYPE_BASE, Problem, ProblemError, problem_responses
 from ..schemas import ForecastOut
 from ..security import require_token
 from ..settings import Settings, get_settings
+from ._jobs import cancel_job, finished_job
 from .geometry import _DEMO_ORBIT
 
 router = APIRouter(prefix="/v1", tags=["forecasts"])
@@ -446,31 +446,11 @@ def get_forecast(job_id: JobId, jobs: Jobs) -> JobOut:
     dependencies=[Depends(require_token)],
 )
 def cancel_forecast(response: Response, job_id: JobId, jobs: Jobs) -> JobOut:
-    try:
-        job = jobs.cancel(job_id)
-    except JobNotFound:
-        raise _not_found(job_id) from None
-    except JobConflict as exc:
-        raise ProblemError(409, "Conflict", str(exc), TYPE_BASE + "job-finished") from None
-    if job.state == "running":
-        response.status_code = 202
-    return job_out(job)
+    return job_out(cancel_job(jobs, job_id, response, _not_found))
 
 
 def _done_job(jobs: JobStore, job_id: str) -> Job:
-    try:
-        job = jobs.get(job_id, with_result=True)
-    except JobNotFound:
-        raise _not_found(job_id) from None
-    if job.state != "done" or job.result is None:
-        raise ProblemError(
-            409,
-            "Conflict",
-            f"job {job_id} is {job.state}: exports exist once it is done",
-            TYPE_BASE + "job-not-done",
-            state=job.state,
-        )
-    return job
+    return finished_job(jobs, job_id, _not_found, "job", "exports")
 
 
 _CSV_EXAMPLE = (

@@ -12,8 +12,10 @@ from pydantic import BaseModel, ConfigDict, Field
 from dynamics.forecast import CAUTIONS
 
 from .. import plots
-from ..jobs import Job, JobNotFound, JobStore
+from ..jobs import Job, JobStore
 from ..problems import TYPE_BASE, ProblemError, problem_responses
+from ._jobs import finished_job
+from .forecasts import _not_found  # the same 404 as the forecast routes
 
 router = APIRouter(prefix="/v1", tags=["plots"])
 
@@ -101,21 +103,7 @@ class PlotIndexOut(BaseModel):
 
 
 def _done_job(jobs: JobStore, job_id: str) -> Job:
-    try:
-        job = jobs.get(job_id, with_result=True)
-    except JobNotFound:
-        raise ProblemError(
-            404, "Not Found", f"no forecast job {job_id}", TYPE_BASE + "job-not-found"
-        ) from None
-    if job.state != "done" or job.result is None:
-        raise ProblemError(
-            409,
-            "Conflict",
-            f"job {job_id} is {job.state}: plots exist once it is done",
-            TYPE_BASE + "job-not-done",
-            state=job.state,
-        )
-    return job
+    return finished_job(jobs, job_id, _not_found, "job", "plots")
 
 
 def _plot_url(job_id: str, chart: str, year: int, fmt: str) -> str:

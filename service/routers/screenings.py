@@ -16,7 +16,7 @@ from dynamics.forecast import NODE_MAX_DISTANCE_AU
 from dynamics.geometry import TRAIL_SIMULATION_MOID_AU
 from dynamics.screening import VERDICTS
 
-from ..jobs import JobConflict, JobNotFound, QueueFull, parse_utc, utc_now
+from ..jobs import JobNotFound, QueueFull, parse_utc, utc_now
 from ..problems import TYPE_BASE, Problem, ProblemError, problem_responses
 from ..screening import (
     SCREENING_CAUTIONS,
@@ -27,6 +27,7 @@ from ..screening import (
 )
 from ..security import require_token
 from ..settings import Settings, get_settings
+from ._jobs import cancel_job, finished_job
 from .geometry import _DEMO_ORBIT
 
 router = APIRouter(prefix="/v1", tags=["screenings"])
@@ -408,31 +409,11 @@ def get_screening(job_id: JobId, screenings: Screenings) -> ScreeningJobOut:
     dependencies=[Depends(require_token)],
 )
 def cancel_screening(job_id: JobId, screenings: Screenings, response: Response) -> ScreeningJobOut:
-    try:
-        job = screenings.cancel(job_id)
-    except JobNotFound:
-        raise _not_found(job_id) from None
-    except JobConflict as exc:
-        raise ProblemError(409, "Conflict", str(exc), TYPE_BASE + "job-finished") from None
-    if job.state == "running":
-        response.status_code = 202
-    return _job_out(job)
+    return _job_out(cancel_job(screenings, job_id, response, _not_found))
 
 
 def _done(screenings: ScreeningJobStore, job_id: str) -> ScreeningJob:
-    try:
-        job = screenings.get(job_id, with_result=True)
-    except JobNotFound:
-        raise _not_found(job_id) from None
-    if job.state != "done" or job.result is None:
-        raise ProblemError(
-            409,
-            "Conflict",
-            f"screening {job_id} is {job.state}: results exist once it is done",
-            TYPE_BASE + "job-not-done",
-            state=job.state,
-        )
-    return job
+    return finished_job(screenings, job_id, _not_found, "screening", "results")
 
 
 @router.get(
