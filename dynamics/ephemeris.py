@@ -1,13 +1,13 @@
 """Positions, velocities and masses of the Sun, Moon and planets from the DE423 ephemeris.
 
-This is the only module of trailcast that reads the planetary ephemeris. It wraps the JPL
+This is the only module of trailcast that reads the planetary ephemeris. It wraps the
 Development Ephemeris DE423 (Folkner 2010), distributed as the ``de423`` Python package and read by
 ``jplephem``'s package reader (``jplephem.ephem.Ephemeris``, which jplephem marks as deprecated:
 keeping it behind this one door means a switch to another reader touches only this file).
 
 Conventions of everything returned here:
 
-- **Time**: Julian dates in TDB (the time argument of the JPL ephemerides, strictly T_eph, which
+- **Time**: Julian dates in TDB (the time argument of the DE ephemerides, strictly T_eph, which
   differs from TDB by a constant offset far below a microsecond).
 - **Frame**: ecliptic and mean equinox of J2000.0. DE423 is given in the ICRF (equatorial); its
   vectors are rotated about the x axis by the IAU 1976 obliquity of J2000 (84381.448 arcsec, see
@@ -30,7 +30,7 @@ beyond the span, integrate them from a state inside it.
 References
 ----------
 Folkner, W. M. (2010), "Planetary ephemeris DE423 fit to Messenger encounters with Mercury",
-JPL Interoffice Memorandum 343R-10-001.
+Interoffice Memorandum 343R-10-001.
 """
 
 from __future__ import annotations
@@ -68,7 +68,7 @@ EPHEMERIS_SPAN_TDB_ISO = ("1799-12-16", "2200-02-01")
 _EPHEMERIS_NAME = "DE423"
 _CITATION = (
     "Folkner, W. M. (2010), Planetary ephemeris DE423 fit to Messenger encounters with Mercury, "
-    "JPL Interoffice Memorandum 343R-10-001"
+    "Interoffice Memorandum 343R-10-001"
 )
 
 # Series in DE423 whose barycentric state is the body's own state (everything but Earth, Moon).
@@ -261,7 +261,7 @@ def barycentric_state(body: str, t_tdb_jd):
 
     References
     ----------
-    Folkner (2010), JPL IOM 343R-10-001 (DE423).
+    Folkner (2010), IOM 343R-10-001 (DE423).
 
     Examples
     --------

@@ -107,7 +107,7 @@ def solar_longitude_deg(t_tdb_jd, kind: str = "geometric"):
 
     References
     ----------
-    Folkner (2010), JPL IOM 343R-10-001 (DE423). Aberration: e.g. Meeus, *Astronomical
+    Folkner (2010), IOM 343R-10-001 (DE423). Aberration: e.g. Meeus, *Astronomical
     Algorithms*, 2nd ed. (1998), chapter 23 (constant of aberration 20.49552 arcsec, IAU 1976).
 
     Examples

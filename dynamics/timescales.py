@@ -94,7 +94,7 @@ def delta_t_seconds(year):
     References
     ----------
     F. Espenak & J. Meeus (2006), *Five Millennium Canon of Solar Eclipses: -1999 to +3000*,
-    NASA TP-2006-214141, section "Polynomial expressions for Delta T". Their stated uncertainty
+    TP-2006-214141, section "Polynomial expressions for Delta T". Their stated uncertainty
     grows from under a second in the 20th century to ~20 s in 1800, ~4 min in 1000 and hours
     before -500.
 

@@ -315,7 +315,7 @@ def test_ephemeris_info_reports_provenance():
     info = ephemeris_info()
     assert info["name"] == "DE423"
     assert info["span_tdb_jd"] == list(EPHEMERIS_SPAN_TDB_JD)
-    assert "343R-10-001" in info["source"]  # Folkner (2010), JPL IOM number
+    assert "343R-10-001" in info["source"]  # Folkner (2010), memorandum number
     # DE423's au differs from the IAU 2012 value (149597870.700 km, exact) by < 1 m.
     assert abs(info["au_km"] - AU_KM) < 1e-3
     assert info["units"]["length"] == "au" and "TDB" in info["units"]["time"]

@@ -89,7 +89,7 @@ def test_tdb_minus_tt_is_within_fairhead_bretagnon_amplitude():
 @pytest.mark.parametrize(
     ("year", "table_s", "tol_s"),
     [
-        # Espenak & Meeus (2006), NASA TP-2006-214141, Table 1 "Values of Delta T" (from memory);
+        # Espenak & Meeus (2006), Five Millennium Canon of Solar Eclipses, TP-2006-214141, Table 1 "Values of Delta T" (from memory);
         # the table is rounded to 1 s from 1600 on and to 10 s before; tolerance = that rounding
         # plus the difference between the table (observations) and the fitted polynomial.
         (1700.0, 9.0, 1.0),
