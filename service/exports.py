@@ -1,16 +1,20 @@
-"""Encounters as CSV (one row each, nested keys flattened) and as iCalendar (RFC 5545) events.
+"""Encounters as CSV (one row each, one value per column), their activity profiles as a second
+CSV (one row per profile point), and encounters as iCalendar (RFC 5545) events in words.
 
-Both pass through every key the forecast JSON has, so fields added to encounters later (e.g. an
-activity model's ``zhr`` or ``window``) appear without a change here.
+The encounters CSV passes through every scalar key the forecast JSON has, so fields added to
+encounters later appear without a change here; nested objects become dotted columns
+(``radiant.ra_deg``), and lists (the activity ``profile``) are left out: they have their own CSV
+(:func:`profiles_csv`). An object that is ``null`` in some rows (``window`` when the predicted ZHR
+stays below the window's floor) never becomes a column of its own beside its dotted columns.
 
-The calendar event's window: an encounter's own ``window`` (``start_utc``/``end_utc``) when the
-forecast gives one; until then the peak time plus and minus half the FWHM of the simulated
-meteoroids' Earth passage times, which each event's description says.
+The calendar event's window: an encounter's own activity ``window`` (``start_utc``/``end_utc``)
+when the forecast gives one; otherwise the peak time plus and minus half the FWHM of the
+simulated meteoroids' Earth passage times, which each event's description says in words.
 """
 
 import csv
 import io
-import json
+import math
 from datetime import UTC, datetime, timedelta
 
 from icalendar import Calendar, Event
@@ -19,6 +23,10 @@ from dynamics import __version__
 
 #: Shortest half-window of a calendar event (minutes), so that an event never has zero length.
 MIN_HALF_WINDOW_MIN = 5.0
+#: Significant figures of ZHR numbers in words: the model's uncertainty is a factor of several
+#: (dynamics.activity.MODEL_UNCERTAINTY_FACTOR), so a third figure would claim too much
+#: (common practice, no source).
+ZHR_SIGNIFICANT_FIGURES = 2
 
 #: Columns that come first, in this order, when present; other keys follow sorted.
 _LEADING_COLUMNS = (
@@ -41,27 +49,51 @@ _LEADING_COLUMNS = (
     "vinf_km_s",
     "particles",
     "dilution",
+    "zhr.estimate",
+    "zhr.low",
+    "zhr.high",
+    "zhr.mode",
+    "window.start_utc",
+    "window.end_utc",
+)
+#: Columns of the profiles CSV: which encounter (as in the encounters CSV), then one point.
+PROFILE_COLUMNS = (
+    "forecast_id",
+    "parent",
+    "kind",
+    "year",
+    "trail.perihelion_year",
+    "trail.revolutions",
+    "peak_utc",
+    "time_utc",
+    "zhr",
 )
 
 
 def flatten(obj: dict, prefix: str = "") -> dict:
-    """``{"radiant": {"ra_deg": 1}}`` -> ``{"radiant.ra_deg": 1}``; lists become JSON text."""
+    """``{"radiant": {"ra_deg": 1}}`` -> ``{"radiant.ra_deg": 1}``; lists are left out."""
     out = {}
     for key, value in obj.items():
         name = f"{prefix}{key}"
         if isinstance(value, dict):
             out.update(flatten(value, name + "."))
         elif isinstance(value, list):
-            out[name] = json.dumps(value)
+            continue  # one value per column: lists get their own CSV (profiles_csv)
         else:
             out[name] = value
     return out
 
 
 def encounters_csv(rows: list[dict]) -> str:
-    """CSV text of flat rows: leading columns first, then every other key, sorted."""
+    """CSV text of flat rows: leading columns first, then every other scalar key, sorted.
+
+    A key that is ``null`` in a row and an object with dotted columns in another (``window``)
+    keeps only its dotted columns, left empty where the object is ``null``.
+    """
     flat = [flatten(r) for r in rows]
     keys = set().union(*flat) if flat else set(_LEADING_COLUMNS)
+    parents = {k.rsplit(".", 1)[0] for k in keys if "." in k}
+    keys = {k for k in keys if k not in parents}
     columns = [c for c in _LEADING_COLUMNS if c in keys] + sorted(keys - set(_LEADING_COLUMNS))
     buf = io.StringIO()
     writer = csv.DictWriter(buf, fieldnames=columns, lineterminator="\r\n")
@@ -71,8 +103,74 @@ def encounters_csv(rows: list[dict]) -> str:
     return buf.getvalue()
 
 
+def profiles_csv(rows: list[dict]) -> str:
+    """One row per point of each encounter's activity profile (:data:`PROFILE_COLUMNS`).
+
+    ``rows`` as for :func:`encounters_csv` (``forecast_id``, ``parent``, ``kind`` and the
+    encounter's keys); encounters without a profile add no row.
+    """
+    buf = io.StringIO()
+    writer = csv.DictWriter(buf, fieldnames=PROFILE_COLUMNS, lineterminator="\r\n")
+    writer.writeheader()
+    for r in rows:
+        trail = r.get("trail") or {}
+        for point in r.get("profile") or []:
+            writer.writerow(
+                {
+                    "forecast_id": r.get("forecast_id"),
+                    "parent": r.get("parent"),
+                    "kind": r.get("kind"),
+                    "year": r.get("year"),
+                    "trail.perihelion_year": trail.get("perihelion_year"),
+                    "trail.revolutions": trail.get("revolutions"),
+                    "peak_utc": r.get("peak_utc"),
+                    "time_utc": point.get("time_utc"),
+                    "zhr": point.get("zhr"),
+                }
+            )
+    return buf.getvalue()
+
+
 def _utc(text: str) -> datetime:
     return datetime.fromisoformat(text.replace("Z", "+00:00")).astimezone(UTC)
+
+
+def _when(t: datetime) -> str:
+    return t.strftime("%Y-%m-%d %H:%M UTC")
+
+
+def rounded(x: float, figures: int = ZHR_SIGNIFICANT_FIGURES) -> str:
+    """A positive number to ``figures`` significant figures, with thousands separators.
+
+    >>> rounded(408.0), rounded(68.0), rounded(2448.0), rounded(0.52), rounded(0.0)
+    ('410', '68', '2,400', '0.52', '0')
+    """
+    if not (isinstance(x, int | float) and math.isfinite(x)) or x == 0:
+        return "0"
+    digits = figures - 1 - math.floor(math.log10(abs(x)))
+    value = round(x, digits)
+    return f"{value:,.{max(digits, 0)}f}"
+
+
+def zhr_words(zhr) -> str | None:
+    """``"ZHR about 410 (68-2,400)"`` from a ``zhr`` object, or None when there is none."""
+    if not isinstance(zhr, dict) or not isinstance(zhr.get("estimate"), int | float):
+        return None
+    est = zhr["estimate"]
+    low, high = zhr.get("low"), zhr.get("high")
+    text = f"ZHR about {rounded(est)}"
+    if isinstance(low, int | float) and isinstance(high, int | float):
+        text += f" ({rounded(low)}-{rounded(high)})"
+    return text
+
+
+def revolutions_words(n) -> str:
+    """``1 revolution``, ``2 revolutions``."""
+    return f"{n} revolution" if n == 1 else f"{n} revolutions"
+
+
+def _signed(x, digits: int) -> str:
+    return f"{x:+.{digits}f}" if isinstance(x, int | float) else "?"
 
 
 def event_window(encounter: dict) -> tuple[datetime, datetime, str]:
@@ -82,39 +180,60 @@ def event_window(encounter: dict) -> tuple[datetime, datetime, str]:
         return (
             _utc(window["start_utc"]),
             _utc(window["end_utc"]),
-            "Window: the activity window the forecast gives.",
+            "Window: the predicted activity window (where the activity profile stays above a "
+            "tenth of its peak).",
         )
     peak = _utc(encounter["peak_utc"])
     fwhm_h = encounter.get("fwhm_hours") or 0.0
     half_min = max(60.0 * float(fwhm_h) / 2.0, MIN_HALF_WINDOW_MIN)
     half = timedelta(minutes=half_min)
+    if isinstance(encounter.get("zhr"), dict):
+        why = "the predicted activity stays too low for an activity window"
+    else:
+        why = "this forecast has no activity profile"
     return (
         peak - half,
         peak + half,
-        f"Window: peak +/- FWHM/2 ({half_min:.0f} min either side; FWHM of the simulated "
-        f"meteoroids' Earth passage times, at least {MIN_HALF_WINDOW_MIN:.0f} min). This is "
-        "not an activity profile: the activity model will replace it.",
+        f"Window: {why}, so the event spans the peak +/- {half_min:.0f} min (half the spread, "
+        "FWHM, of the simulated meteoroids' times of Earth passage).",
     )
 
 
-def _description(parent: str, e: dict, window_note: str, cautions: list[str]) -> str:
+def event_summary(parent: str, e: dict) -> str:
+    """``Possible meteor outburst: <parent>, 2026 trail, ZHR about 410 (68-2,400)``."""
+    trail = e.get("trail", {})
+    text = f"Possible meteor outburst: {parent}, {trail.get('perihelion_year', '?')} trail"
+    zhr = zhr_words(e.get("zhr"))
+    return f"{text}, {zhr}" if zhr else text
+
+
+def event_description(parent: str, e: dict, window_note: str, cautions: list[str]) -> str:
+    """The event's description in sentences: trail, peak, ZHR, window, radiant, distances."""
     trail = e.get("trail", {})
     radiant = e.get("radiant", {})
+    start, end, _ = event_window(e)
     lines = [
-        f"Predicted encounter of Earth with the {trail.get('perihelion_year', '?')} dust trail of "
-        f"{parent} ({trail.get('revolutions', '?')} revolutions old).",
-        f"Peak: {e.get('peak_utc')} UTC, solar longitude {e.get('solar_longitude_deg')} deg "
-        "(geometric, J2000).",
-        f"Radiant: RA {radiant.get('ra_deg')} deg, Dec {radiant.get('dec_deg')} deg (J2000); "
-        f"Vg {e.get('vg_km_s')} km/s.",
-        f"Miss distance: {e.get('miss_distance_au')} au (+/- {e.get('miss_distance_spread_au')} "
-        f"au), trail minus Earth; FWHM {e.get('fwhm_hours')} h; {e.get('particles')} simulated "
-        "meteoroids.",
+        f"Earth meets the dust trail that {parent} shed at its "
+        f"{trail.get('perihelion_year', '?')} perihelion "
+        f"({revolutions_words(trail.get('revolutions', '?'))} ago).",
+        f"Peak: {_when(_utc(e['peak_utc']))} (solar longitude "
+        f"{e.get('solar_longitude_deg', float('nan')):.3f} deg, geometric J2000).",
     ]
-    zhr = e.get("zhr")
-    if zhr is not None:
-        lines.append(f"ZHR: {json.dumps(zhr)}")
-    lines.append(window_note)
+    zhr = zhr_words(e.get("zhr"))
+    if zhr:
+        mode = (e.get("zhr") or {}).get("mode")
+        lines.append(f"{zhr}, a model estimate" + (f" ({mode} mode)." if mode else "."))
+    lines.append(f"From {_when(start)} to {_when(end)}. {window_note}")
+    lines.append(
+        f"Radiant: RA {radiant.get('ra_deg')} deg, Dec {_signed(radiant.get('dec_deg'), 2)} deg "
+        f"(J2000); meteors enter at {e.get('vinf_km_s')} km/s (geocentric {e.get('vg_km_s')} "
+        "km/s)."
+    )
+    lines.append(
+        f"The trail passes {_signed(e.get('miss_distance_au'), 5)} au from Earth's path (trail "
+        f"minus Earth; spread {e.get('miss_distance_spread_au')} au), from "
+        f"{e.get('particles')} simulated meteoroids."
+    )
     lines += [f"Caution: {c}" for c in cautions]
     return "\n".join(lines)
 
@@ -142,12 +261,8 @@ def encounters_ics(
         ev.add("dtstamp", _utc(finished_utc) if finished_utc else datetime.now(UTC))
         ev.add("dtstart", start)
         ev.add("dtend", end)
-        trail = e.get("trail", {})
-        ev.add(
-            "summary",
-            f"Possible meteor outburst: {parent}, {trail.get('perihelion_year', '?')} trail",
-        )
-        ev.add("description", _description(parent, e, note, cautions))
+        ev.add("summary", event_summary(parent, e))
+        ev.add("description", event_description(parent, e, note, cautions))
         ev.add("categories", ["Meteor forecast"])
         ev.add("transp", "TRANSPARENT")
         cal.add_component(ev)

@@ -25,6 +25,7 @@ under one lock, since matplotlib's text and font caches are not documented as th
 """
 
 import io
+import textwrap
 import threading
 from collections import OrderedDict
 from datetime import UTC, datetime
@@ -33,7 +34,7 @@ import matplotlib
 import numpy as np
 from matplotlib import dates as mdates
 from matplotlib.figure import Figure
-from matplotlib.ticker import ScalarFormatter
+from matplotlib.ticker import MaxNLocator, ScalarFormatter
 
 CHARTS = ("crossings", "profile", "radiants")
 #: Media type of each downloadable format.
@@ -41,6 +42,18 @@ FORMATS = {"svg": "image/svg+xml", "png": "image/png"}
 #: Figure size (inches) and PNG resolution (dots per inch): 1000 x 560 px, readable on a laptop.
 FIGSIZE_IN = (10.0, 5.6)
 PNG_DPI = 100
+#: The two layouts a page can ask for. ``wide``: :data:`FIGSIZE_IN`, legend beside the axes, for
+#: boxes of about 600 px and more (an SVG of 720 pt shown 600-1000 px wide keeps 11 pt text at
+#: 9-15 px). ``narrow``: for phones, 4.6 in = 331 pt wide, so that shown in a 340-380 px box
+#: (a 390 px phone less the page's margins) 1 pt is 1.0-1.15 px and no text is under 11 px;
+#: the legend goes under the axes and the title wraps.
+SIZES = {
+    "wide": {"figsize_in": FIGSIZE_IN, "legend_pt": 10, "title_chars": 120, "ticks": (3, 8)},
+    "narrow": {"figsize_in": (4.6, 6.4), "legend_pt": 11, "title_chars": 44, "ticks": (2, 5)},
+}
+#: Most peaks named on a time axis (the encounters of the year, else the nearest near misses):
+#: more labels would cover the points they describe (no source).
+MAX_PEAK_LABELS = 3
 
 #: A widely used colour-blind-safe palette, ordered so that neighbours differ in lightness;
 #: markers and dashes repeat the distinction for greyscale prints.
@@ -120,34 +133,110 @@ def _utc(text: str) -> datetime:
     return datetime.fromisoformat(text.replace("Z", "+00:00")).astimezone(UTC)
 
 
-def _date_axis(ax) -> None:
-    locator = mdates.AutoDateLocator(minticks=4, maxticks=8)
+class UtcDayFormatter(mdates.DateFormatter):
+    """Time ticks (UTC) that carry the date where it changes: ``23:00`` over ``Apr 11``.
+
+    The first tick and every tick on a new day (UTC) get the month and day under the time, so
+    that a peak at 23:20 on 11 April reads as April 11, not as the day after; ticks that all
+    fall on midnight (an axis of several days) show the date alone.
+    """
+
+    def __init__(self):
+        super().__init__("%H:%M", tz=UTC)
+
+    def format_ticks(self, values):
+        times = [mdates.num2date(v, tz=UTC) for v in values]
+        if times and all((t.hour, t.minute) == (0, 0) for t in times):
+            return [t.strftime("%b %d") for t in times]
+        labels, day = [], None
+        for t in times:
+            text = t.strftime("%H:%M")
+            if t.date() != day:
+                text += "\n" + t.strftime("%b %d")
+                day = t.date()
+            labels.append(text)
+        return labels
+
+    def __call__(self, x, pos=0):
+        return mdates.num2date(x, tz=UTC).strftime("%Y-%m-%d %H:%M")
+
+
+def _date_axis(ax, size: str) -> None:
+    low, high = SIZES[size]["ticks"]
+    locator = mdates.AutoDateLocator(minticks=low, maxticks=high, tz=UTC)
     ax.xaxis.set_major_locator(locator)
-    ax.xaxis.set_major_formatter(mdates.ConciseDateFormatter(locator, tz=UTC))
+    ax.xaxis.set_major_formatter(UtcDayFormatter())
+
+
+def peak_label(peak_utc: str) -> str:
+    """``peak 2039-04-11 23:20 UTC`` (the peak to the minute)."""
+    return "peak " + _utc(peak_utc).strftime("%Y-%m-%d %H:%M UTC")
+
+
+def _mark_peaks(ax, items, styles) -> None:
+    """A dotted line at each named peak, labelled with its date and time (UTC) at the top."""
+    encounters = [(k, e) for k, e, _c in items if k == "encounter"]
+    chosen = encounters or sorted(
+        ((k, e) for k, e, _c in items), key=lambda ke: abs(ke[1]["miss_distance_au"])
+    )
+    left, right = ax.get_xlim()
+    for n, (_kind, e) in enumerate(
+        sorted(chosen[:MAX_PEAK_LABELS], key=lambda ke: ke[1]["peak_utc"])
+    ):
+        ty = e["trail"]["perihelion_year"]
+        x = mdates.date2num(_utc(e["peak_utc"]))
+        line = ax.axvline(x, color=styles[ty]["color"], linestyle=":", linewidth=1.2)
+        line.set_gid(f"peak-line-{ty}")
+        on_right = (x - left) > 0.5 * (right - left)
+        label = ax.text(
+            x,
+            0.97 - 0.08 * n,
+            f" {peak_label(e['peak_utc'])} " + ("" if len(chosen) == 1 else f"({ty} trail) "),
+            transform=ax.get_xaxis_transform(),
+            ha="right" if on_right else "left",
+            va="top",
+            color=EARTH_COLOUR,
+            bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.8, "pad": 1.0},
+        )
+        label.set_gid(f"peak-{ty}")
 
 
 def _note(ax, text: str) -> None:
-    ax.text(0.5, 0.5, text, transform=ax.transAxes, ha="center", va="center", color=EARTH_COLOUR)
+    ax.text(
+        0.5,
+        0.5,
+        text,
+        transform=ax.transAxes,
+        ha="center",
+        va="center",
+        color=EARTH_COLOUR,
+        wrap=True,
+    )
 
 
-def _figure(title: str):
-    fig = Figure(figsize=FIGSIZE_IN, layout="constrained")
-    fig.suptitle(title)
+def _figure(title: str, size: str):
+    fig = Figure(figsize=SIZES[size]["figsize_in"], layout="constrained")
+    fig.suptitle(textwrap.fill(title, SIZES[size]["title_chars"]))
     ax = fig.add_subplot()
     ax.grid(True, color="#dddddd", linewidth=0.6)
     ax.set_axisbelow(True)
     return fig, ax
 
 
-def _legend(ax) -> None:
-    if ax.get_legend_handles_labels()[0]:
-        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=9, frameon=False)
+def _legend(fig, ax, size: str) -> None:
+    if not ax.get_legend_handles_labels()[0]:
+        return
+    fontsize = SIZES[size]["legend_pt"]
+    if size == "narrow":
+        fig.legend(loc="outside lower center", fontsize=fontsize, frameon=False)
+    else:
+        ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=fontsize, frameon=False)
 
 
-def crossings_figure(result: dict, year: int) -> Figure:
+def crossings_figure(result: dict, year: int, size: str = "wide") -> Figure:
     """Meteoroid crossings of Earth's path: time (UTC) against signed miss distance (au)."""
     parent = result["parent"].get("name", "")
-    fig, ax = _figure(f"Trail crossings of Earth's path, {year}: {parent}")
+    fig, ax = _figure(f"Trail crossings of Earth's path, {year}: {parent}", size)
     styles = trail_styles(result)
     t_all, lam_all = [], []
     for kind, e, c in _items(result, year):
@@ -175,7 +264,8 @@ def crossings_figure(result: dict, year: int) -> Figure:
     ax.set_ylabel("miss distance, trail minus Earth (au)")
     ax.set_xlabel("time Earth passes the meteoroid's node (UTC)")
     if t_all:
-        _date_axis(ax)
+        _date_axis(ax, size)
+        _mark_peaks(ax, _items(result, year), styles)
         lam = np.unwrap(np.radians(lam_all))
         if np.ptp(t_all) > 0:
             slope, offset = np.polyfit(t_all, np.degrees(lam), 1)
@@ -190,16 +280,17 @@ def crossings_figure(result: dict, year: int) -> Figure:
     else:
         ax.set_xticks([])
         _note(ax, f"no trail crosses Earth's path within the near-miss distance in {year}")
-    _legend(ax)
+    _legend(fig, ax, size)
     return fig
 
 
-def profile_figure(result: dict, year: int) -> Figure:
+def profile_figure(result: dict, year: int, size: str = "wide") -> Figure:
     """Predicted ZHR against time (UTC) per trail, with the low-high band and activity window."""
     parent = result["parent"].get("name", "")
-    fig, ax = _figure(f"Predicted activity profile, {year}: {parent}")
+    fig, ax = _figure(f"Predicted activity profile, {year}: {parent}", size)
     styles = trail_styles(result)
     drawn = 0
+    profiled: list[dict] = []
     for kind, e, _c in _items(result, year):
         profile = e.get("profile") or []
         zhr = e.get("zhr") or {}
@@ -244,22 +335,24 @@ def profile_figure(result: dict, year: int) -> Figure:
             )
             span.set_gid(f"window-{ty}")
         drawn += 1
+        profiled.append(e)
     ax.set_ylabel("ZHR (meteors per hour, zenithal)")
     ax.set_xlabel("time (UTC)")
     if drawn:
-        _date_axis(ax)
+        _date_axis(ax, size)
         ax.set_ylim(bottom=0)
+        _mark_peaks(ax, [i for i in _items(result, year) if i[1] in profiled], styles)
     else:
         ax.set_xticks([])
         _note(ax, f"no activity predicted from the simulated trails in {year}")
-    _legend(ax)
+    _legend(fig, ax, size)
     return fig
 
 
-def radiants_figure(result: dict, year: int) -> Figure:
+def radiants_figure(result: dict, year: int, size: str = "wide") -> Figure:
     """Radiants of the simulated meteoroids and each trail's median: RA/Dec (deg, J2000)."""
     parent = result["parent"].get("name", "")
-    fig, ax = _figure(f"Radiants, {year}: {parent}")
+    fig, ax = _figure(f"Radiants, {year}: {parent}", size)
     styles = trail_styles(result)
     drawn = 0
     for kind, e, c in _items(result, year):
@@ -293,20 +386,21 @@ def radiants_figure(result: dict, year: int) -> Figure:
     ax.set_xlabel("right ascension α (deg, J2000; increasing to the left)")
     ax.set_ylabel("declination δ (deg, J2000)")
     if drawn:
+        ax.xaxis.set_major_locator(MaxNLocator(SIZES[size]["ticks"][1]))
         ax.invert_xaxis()
         ax.set_aspect("equal", adjustable="datalim")
     else:
         ax.set_xticks([])
         _note(ax, f"no trail crosses Earth's path within the near-miss distance in {year}")
-    _legend(ax)
+    _legend(fig, ax, size)
     return fig
 
 
 _FIGURES = {"crossings": crossings_figure, "profile": profile_figure, "radiants": radiants_figure}
 
 
-def render(result: dict, chart: str, year: int, fmt: str) -> bytes:
-    """The chart as SVG or PNG bytes.
+def render(result: dict, chart: str, year: int, fmt: str, size: str = "wide") -> bytes:
+    """The chart as SVG or PNG bytes, in the layout ``size`` (:data:`SIZES`).
 
     Raises
     ------
@@ -322,9 +416,11 @@ def render(result: dict, chart: str, year: int, fmt: str) -> bytes:
     make = _FIGURES[chart]
     if fmt not in FORMATS:
         raise KeyError(fmt)
+    if size not in SIZES:
+        raise KeyError(size)
     # One id salt per chart: the three SVGs inlined in one page never share an element id.
     with _LOCK, matplotlib.rc_context({**_RC, "svg.hashsalt": f"trailcast-{chart}"}):
-        fig = make(result, year)
+        fig = make(result, year, size)
         buf = io.BytesIO()
         if fmt == "svg":
             fig.savefig(buf, format="svg", metadata={"Date": None})
@@ -333,14 +429,16 @@ def render(result: dict, chart: str, year: int, fmt: str) -> bytes:
     return buf.getvalue()
 
 
-def render_cached(key: str, result: dict, chart: str, year: int, fmt: str) -> bytes:
-    """:func:`render`, remembered under ``(key, chart, year, fmt)`` (key: the job id)."""
-    k = (key, chart, year, fmt)
+def render_cached(
+    key: str, result: dict, chart: str, year: int, fmt: str, size: str = "wide"
+) -> bytes:
+    """:func:`render`, remembered under ``(key, chart, year, fmt, size)`` (key: the job id)."""
+    k = (key, chart, year, fmt, size)
     with _LOCK:
         if k in _CACHE:
             _CACHE.move_to_end(k)
             return _CACHE[k]
-    body = render(result, chart, year, fmt)
+    body = render(result, chart, year, fmt, size)
     with _LOCK:
         _CACHE[k] = body
         while len(_CACHE) > CACHE_SIZE:

@@ -469,9 +469,11 @@ _CSV_EXAMPLE = (
     response_class=Response,
     summary="A done forecast's encounters and near misses as CSV",
     description=(
-        "One row per trail crossing (`kind` = encounter or near_miss); nested keys flattened "
-        "with dots (`radiant.ra_deg`); every key the forecast has becomes a column (later "
-        "fields such as `zhr` included). Times UTC; solar longitude geometric J2000. The "
+        "One row per trail crossing (`kind` = encounter or near_miss), one value per column: "
+        "nested keys flattened with dots (`radiant.ra_deg`, `zhr.estimate`, "
+        "`window.start_utc`); every scalar key the forecast has becomes a column. The activity "
+        "profiles have their own CSV (`/v1/forecasts/{id}/profiles.csv`). Times UTC; solar "
+        "longitude geometric J2000. The "
         "cautions travel in the `Trailcast-Cautions` header: predictions are model estimates; "
         "spacecraft operators defer to the responsible agencies."
     ),

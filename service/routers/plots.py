@@ -12,6 +12,7 @@ from pydantic import BaseModel, ConfigDict, Field
 from dynamics.forecast import CAUTIONS
 
 from .. import plots
+from ..exports import PROFILE_COLUMNS, profiles_csv
 from ..jobs import Job, JobStore
 from ..problems import TYPE_BASE, ProblemError, problem_responses
 from ._jobs import finished_job
@@ -30,6 +31,7 @@ JobId = Annotated[
 ]
 Chart = Literal["crossings", "profile", "radiants"]
 Format = Literal["svg", "png"]
+Size = Literal["wide", "narrow"]
 CHART_DESCRIPTIONS = {
     "crossings": "Each simulated meteoroid where Earth passes its node: time (UTC; solar "
     "longitude on the top axis) against signed miss distance (au, trail minus Earth); Earth's "
@@ -82,6 +84,7 @@ class PlotIndexOut(BaseModel):
                             },
                         }
                     ],
+                    "profiles_csv": f"/v1/forecasts/{_EXAMPLE_ID}/profiles.csv",
                     "cautions": list(CAUTIONS),
                 }
             ]
@@ -99,6 +102,11 @@ class PlotIndexOut(BaseModel):
         "before the dashboard existed do not: their crossing chart has no points)",
     )
     plots: list[PlotOut]
+    profiles_csv: str = Field(
+        ...,
+        description="The activity profiles behind the profile chart as CSV (one row per point)",
+        examples=[f"/v1/forecasts/{_EXAMPLE_ID}/profiles.csv"],
+    )
     cautions: list[str]
 
 
@@ -142,7 +150,51 @@ def list_plots(job_id: JobId, jobs: Jobs) -> PlotIndexOut:
             for year in years
             for chart in plots.CHARTS
         ],
+        profiles_csv=f"/v1/forecasts/{job.id}/profiles.csv",
         cautions=list(CAUTIONS),
+    )
+
+
+_PROFILES_EXAMPLE = (
+    ",".join(PROFILE_COLUMNS) + "\r\n"
+    f"{_EXAMPLE_ID},P/2026 W3 (Hollow Pine) [invented demo comet],encounter,2040,2026,1,"
+    "2040-04-11T08:32:43Z,2040-04-11T08:30:00Z,85.0\r\n"
+)
+
+
+@router.get(
+    "/forecasts/{job_id}/profiles.csv",
+    response_class=Response,
+    summary="The activity profiles of a done forecast as CSV: one row per profile point",
+    description=(
+        "The predicted ZHR against time (UTC) of every encounter and near miss that has an "
+        "activity profile: which crossing (forecast, parent, kind, year, trail, peak time, as in "
+        "`encounters.csv`), then `time_utc` and `zhr`. Crossings without a profile add no row. "
+        "Predictions are model estimates (a factor of several either way in absolute mode); "
+        "cautions in the `Trailcast-Cautions` header."
+    ),
+    responses={
+        200: {
+            "content": {"text/csv": {"schema": {"type": "string"}, "example": _PROFILES_EXAMPLE}}
+        },
+        **problem_responses(404, 409, 422),
+    },
+)
+def get_profiles_csv(job_id: JobId, jobs: Jobs) -> Response:
+    job = _done_job(jobs, job_id)
+    parent = job.result["parent"].get("name", job.parent_name)
+    rows = [
+        {"forecast_id": job.id, "parent": parent, "kind": kind, **e}
+        for kind, key in (("encounter", "encounters"), ("near_miss", "near_misses"))
+        for e in job.result.get(key, [])
+    ]
+    return Response(
+        profiles_csv(rows),
+        media_type="text/csv; charset=utf-8",
+        headers={
+            "Content-Disposition": f'attachment; filename="trailcast-{job.id}-profiles.csv"',
+            "Trailcast-Cautions": " ".join(CAUTIONS),
+        },
     )
 
 
@@ -173,17 +225,24 @@ def get_plot(
         None, ge=1800, le=2199, description="Forecast year (UTC)", examples=[2040]
     ),
     download: bool = Query(False, description="Ask the browser to save it (attachment)"),
+    size: Size = Query(
+        "wide",
+        description="Layout: `wide` (720 x 403 pt, legend beside the axes) for boxes of about "
+        "600 px and more; `narrow` (331 x 461 pt, legend below) for phones, where its text "
+        "stays 11 px or more",
+        examples=["narrow"],
+    ),
 ) -> Response:
     job = _done_job(jobs, job_id)
     if year is None:
         year = plots.default_year(job.result) or 0
     try:
-        body = plots.render_cached(job.id, job.result, chart, year, fmt)
+        body = plots.render_cached(job.id, job.result, chart, year, fmt, size)
     except plots.NoSuchYear as exc:
         raise ProblemError(
             422, "Invalid request", f"year: {exc}", TYPE_BASE + "invalid-request", field="year"
         ) from None
-    name = f"trailcast-{job.id}-{chart}-{year}.{fmt}"
+    name = f"trailcast-{job.id}-{chart}-{year}{'' if size == 'wide' else '-' + size}.{fmt}"
     disposition = "attachment" if download else "inline"
     return Response(
         body,

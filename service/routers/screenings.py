@@ -436,7 +436,7 @@ _CSV_EXAMPLE = (
     "line,rank,name,verdict,candidate,moid_au,nearest_node_au,ascending_miss_distance_au,"
     "descending_miss_distance_au,encounters,near_misses,first_encounter_peak_utc,"
     "closest_encounter_miss_distance_au,max_zhr,error,key\r\n"
-    f"0,1,{_DEMO_ORBIT['name']},no encounter,True,0.00917,0.00968,6.12013,-0.00968,0,0,,,,,"
+    f"1,1,{_DEMO_ORBIT['name']},no encounter,True,0.00917,0.00968,6.12013,-0.00968,0,0,,,,,"
     "3f0c...\r\n"
 )
 
@@ -446,7 +446,8 @@ _CSV_EXAMPLE = (
     response_class=Response,
     summary="A done screening as CSV: one row per orbit",
     description=(
-        "Columns: line (the orbit's index in the request), rank, name, verdict, candidate, "
+        "Columns: line (the orbit's place in the request counted from 1, as `trailcast "
+        "screen` numbers the lines of a batch file), rank, name, verdict, candidate, "
         "MOID and node distances (au), numbers of encounters and near misses, the first "
         "encounter's peak (UTC), the closest encounter's miss distance (au), the largest ZHR "
         "estimate, the error of an unreadable or failed orbit and its content key. Cautions in "
@@ -459,7 +460,11 @@ _CSV_EXAMPLE = (
 )
 def get_screening_csv(job_id: JobId, screenings: Screenings) -> Response:
     job = _done(screenings, job_id)
-    rows = [{**r, "line": r.get("index", r.get("line"))} for r in job.result["orbits"]]
+    # Numbered from 1, as `trailcast screen` numbers the lines of a batch file: item k of the
+    # request is line k of a JSON-lines file holding the same orbits.
+    rows = [
+        {**r, "line": r["index"] + 1 if "index" in r else r["line"]} for r in job.result["orbits"]
+    ]
     return Response(
         table_csv({"orbits": rows}),
         media_type="text/csv; charset=utf-8",
