@@ -82,6 +82,9 @@ def test_submit_progress_results_and_reuse(client):
     assert "Spacecraft operators" in r.headers["trailcast-cautions"]
     rows = list(csv.DictReader(io.StringIO(r.text)))
     assert [row["verdict"] for row in rows] == [o["verdict"] for o in res["orbits"]]
+    # Numbered from 1, as `trailcast screen` numbers a batch file's lines (issue 14).
+    assert [row["line"] for row in rows] == [str(o["index"] + 1) for o in res["orbits"]]
+    assert rows[0]["line"] == "1"
 
     # same batch again: same job, served from the store; per-orbit results stored by key
     r = c.post("/v1/screenings", json=body)
