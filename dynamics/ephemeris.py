@@ -147,7 +147,8 @@ def _check_times(t_tdb_jd) -> np.ndarray:
         raise OutsideTimeSpan(
             f"{_EPHEMERIS_NAME} covers {EPHEMERIS_SPAN_TDB_ISO[0]} to {EPHEMERIS_SPAN_TDB_ISO[1]} "
             f"TDB (JD {first} to {last}); got JD {bad:.6f} (TDB). trailcast never extrapolates "
-            "the ephemeris: integrate the planets from a date inside this span instead.",
+            "the ephemeris: ask for times between 1800 and 2199, and give orbits with an "
+            "epoch in that span (propagate them there with your orbit software).",
             span=EPHEMERIS_SPAN_TDB_JD,
         )
     return t

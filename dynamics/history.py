@@ -22,10 +22,12 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .constants import GM_SUN_AU3_D2
-from .errors import TrailcastError
+from .ephemeris import EPHEMERIS_SPAN_TDB_ISO, EPHEMERIS_SPAN_TDB_JD
+from .errors import OutsideTimeSpan, TrailcastError
 from .nbody import MassiveBodies, _new_simulation, massive_bodies_from_ephemeris
 from .orbit_input import OrbitInput
 from .orbits import Elements, elements_to_state, state_to_elements
+from .timescales import format_iso
 
 # Marsden, Sekanina & Yeomans (1973) g(r) constants for water ice.
 NONGRAV_ALPHA = 0.1112620426
@@ -122,7 +124,27 @@ def _add_nongrav(sim, index: int, a1: float, a2: float, a3: float):
     return force
 
 
+def check_epoch_in_ephemeris(orbit: OrbitInput) -> None:
+    """Raise :class:`OutsideTimeSpan`, saying what to do, if the orbit's epoch lies outside DE423.
+
+    The parent's integration starts from the planets at the orbit's epoch, read from DE423
+    (Folkner 2010; 1799-12-16 to 2200-02-01 TDB), so elements at another epoch cannot be used.
+    """
+    first, last = EPHEMERIS_SPAN_TDB_JD
+    if not first <= orbit.epoch_tdb_jd <= last:
+        raise OutsideTimeSpan(
+            f"the orbit's epoch (JD {orbit.epoch_tdb_jd:.1f} TDB, "
+            f"{format_iso(orbit.epoch_tdb_jd, 'TDB')[:10]}) lies outside the planetary ephemeris "
+            f"DE423 ({EPHEMERIS_SPAN_TDB_ISO[0]} to {EPHEMERIS_SPAN_TDB_ISO[1]} TDB), where "
+            "the integration has to start: propagate the orbit to an epoch between 1800 and 2200 "
+            "(DE423's span) with your orbit software, or give osculating elements at such an "
+            "epoch (e.g. from an orbit solution published for a date in that span).",
+            span=EPHEMERIS_SPAN_TDB_JD,
+        )
+
+
 def _parent_simulation(orbit: OrbitInput):
+    check_epoch_in_ephemeris(orbit)
     bodies = massive_bodies_from_ephemeris(orbit.epoch_tdb_jd)
     sim = _new_simulation(bodies, "ias15", 1.0)
     r, v = elements_to_state(

@@ -96,3 +96,29 @@ def test_hyperbolic_original_orbit_is_a_first_passage():
     orbit = parse_orbit(HYPERBOLIC)
     with pytest.raises(FirstPassage, match="first passage"):
         parent_history(orbit, orbit.epoch_tdb_jd - 500 * 365.25, orbit.epoch_tdb_jd + 3650.0)
+
+
+def test_an_epoch_outside_the_ephemeris_is_refused_with_what_to_do():
+    # DE423's span (Folkner 2010): 1799-12-16 to 2200-02-01 TDB; 2250 lies outside it.
+    from dynamics.errors import OutsideTimeSpan
+    from dynamics.history import check_epoch_in_ephemeris, parent_history
+    from dynamics.orbit_input import parse_orbit
+
+    late = parse_orbit(
+        {
+            "name": "x",
+            "epoch": "2250-01-01T00:00:00 TDB",
+            "q": 0.9,
+            "e": 0.7,
+            "i": 16.0,
+            "node": 2.7,
+            "peri": 128.5,
+            "tp": "2250-02-26T12:00:00 TDB",
+        }
+    )
+    with pytest.raises(
+        OutsideTimeSpan, match="propagate the orbit to an epoch between 1800 and 2200"
+    ):
+        check_epoch_in_ephemeris(late)
+    with pytest.raises(OutsideTimeSpan, match="2250-01-01"):
+        parent_history(late, late.epoch_tdb_jd - 3650.0, late.epoch_tdb_jd)

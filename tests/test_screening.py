@@ -260,6 +260,8 @@ def test_invented_batch_end_to_end_interrupted_and_resumed(tmp_path):
     assert by_name["C/2027 C5 (hyperbolic) [invented]"]["verdict"] == "no trails"
     late = by_name["P/2250 C6 (late epoch) [invented]"]
     assert late["verdict"] == "error" and "DE423" in late["error"]["message"]
+    # The message says what to do about it (issue 14).
+    assert "propagate the orbit to an epoch between 1800 and 2200" in late["error"]["message"]
     assert any("mean J2000" in n for n in late["geometry"]["notes"])
     periodic = [r for n, r in by_name.items() if "(candidate)" in n]
     assert periodic and all(r["forecast"] is not None for r in periodic)
