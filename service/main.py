@@ -5,6 +5,7 @@ from contextlib import asynccontextmanager
 
 from fastapi import Depends, FastAPI, HTTPException
 from fastapi.staticfiles import StaticFiles
+from fastapi_offline import FastAPIOffline
 
 from dynamics import __version__
 
@@ -35,6 +36,10 @@ J2000.0. Errors are RFC 9457 `application/problem+json`. When the server sets
 Spacecraft operators: defer to the responsible agencies' meteoroid environment assessments.
 Observers: follow the usual night-time and outdoor safety practice.
 """
+
+
+#: Where the interactive API documentation's scripts and styles are served (fastapi-offline).
+DOCS_ASSETS_URL = "/docs-assets"
 
 
 class BodySizeLimit:
@@ -145,12 +150,16 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             app.state.runner.stop()
             store.close()
 
-    app = FastAPI(
+    # /docs (Swagger UI) and /redoc from the assets that the fastapi-offline package installs,
+    # not from a CDN: the pages work with no network, as the dashboard does.
+    app: FastAPI = FastAPIOffline(
         title="trailcast",
         version=__version__,
         description=DESCRIPTION,
         lifespan=lifespan,
         openapi_url="/openapi.json",
+        static_url=DOCS_ASSETS_URL,
+        favicon_url="data:,",
     )
     app.state.settings = settings
     app.state.latencies = RequestLatencies()

@@ -313,3 +313,19 @@ def test_narrow_charts_keep_text_readable_on_a_phone(chart):
     # The same points as the wide layout: only the drawing changes.
     if chart == "crossings":
         assert len(_group(root, "trail-2026").findall(f".//{SVG_NS}use")) == N_2026
+
+
+def test_api_docs_pages_load_their_assets_from_this_service(client_with_jobs):
+    # /docs and /redoc name only this service's URLs (the fastapi-offline package's copies of
+    # Swagger UI and ReDoc), each of which answers; the browser test renders /docs offline.
+    client, _, _ = client_with_jobs
+    for page in ("/docs", "/redoc"):
+        r = client.get(page)
+        assert r.status_code == 200 and r.headers["content-type"].startswith("text/html")
+        urls = re.findall(r"""(?:src|href|spec-url)=["']([^"']+)["']""", r.text)
+        assert urls and not re.search(r"https?://", r.text), page
+        for url in urls:
+            assert url.startswith(("/", "data:")), (page, url)
+            if url.startswith("/"):
+                asset = client.get(url)
+                assert asset.status_code == 200 and len(asset.content) > 1000, url
