@@ -174,30 +174,34 @@ def peak_label(peak_utc: str) -> str:
 
 
 def _mark_peaks(ax, items, styles) -> None:
-    """A dotted line at each named peak, labelled with its date and time (UTC) at the top."""
+    """A dotted line at each named peak, labelled upright along it with the peak's date and time.
+
+    The label runs up the line (rotated 90 degrees) so that it needs no width: it fits the
+    narrow layout and never pushes the axes aside (it takes no part in the layout).
+    """
     encounters = [(k, e) for k, e, _c in items if k == "encounter"]
     chosen = encounters or sorted(
         ((k, e) for k, e, _c in items), key=lambda ke: abs(ke[1]["miss_distance_au"])
     )
-    left, right = ax.get_xlim()
-    for n, (_kind, e) in enumerate(
-        sorted(chosen[:MAX_PEAK_LABELS], key=lambda ke: ke[1]["peak_utc"])
-    ):
+    chosen = sorted(chosen[:MAX_PEAK_LABELS], key=lambda ke: ke[1]["peak_utc"])
+    for _kind, e in chosen:
         ty = e["trail"]["perihelion_year"]
         x = mdates.date2num(_utc(e["peak_utc"]))
         line = ax.axvline(x, color=styles[ty]["color"], linestyle=":", linewidth=1.2)
         line.set_gid(f"peak-line-{ty}")
-        on_right = (x - left) > 0.5 * (right - left)
         label = ax.text(
             x,
-            0.97 - 0.08 * n,
-            f" {peak_label(e['peak_utc'])} " + ("" if len(chosen) == 1 else f"({ty} trail) "),
+            0.98,
+            (f"{ty} " if len(chosen) > 1 else "") + peak_label(e["peak_utc"]),
             transform=ax.get_xaxis_transform(),
-            ha="right" if on_right else "left",
+            rotation=90,
+            ha="right",
             va="top",
             color=EARTH_COLOUR,
-            bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.8, "pad": 1.0},
+            clip_on=True,
+            bbox={"facecolor": "white", "edgecolor": "none", "alpha": 0.75, "pad": 1.0},
         )
+        label.set_in_layout(False)
         label.set_gid(f"peak-{ty}")
 
 

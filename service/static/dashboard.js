@@ -158,6 +158,30 @@ function utcText(iso) {
   return iso ? iso.replace("T", " ").replace("Z", "") : "–";
 }
 
+/** An activity window, short: "07:30–09:30" on the peak's day, dates only where they differ. */
+function windowText(w, peakIso) {
+  if (!w) return "–";
+  const [d0, t0] = utcText(w.start_utc).split(" ");
+  const [d1, t1] = utcText(w.end_utc).split(" ");
+  const day = (peakIso || "").slice(0, 10);
+  const hm = (t) => t.slice(0, 5);
+  if (d0 === day && d1 === day) return `${hm(t0)}–${hm(t1)}`;
+  return `${d0} ${hm(t0)} – ${d1} ${hm(t1)}`;
+}
+
+/**
+ * Give each cell of a table's body the text of its column heading (data-label), which the
+ * phone layout shows beside the value when the rows become stacked cards.
+ */
+function labelCells(table) {
+  const heads = [...table.querySelectorAll("thead th")].map((th) => th.textContent.trim());
+  for (const tr of table.querySelectorAll("tbody tr")) {
+    [...tr.children].forEach((td, k) => {
+      if (heads[k] && !td.hasAttribute("colspan")) td.dataset.label = heads[k];
+    });
+  }
+}
+
 async function getJson(url) {
   const r = await fetch(url, { headers: { Accept: "application/json" } });
   const body = await r.json().catch(() => null);
@@ -205,7 +229,11 @@ function route() {
 // ---------------------------------------------------------------------------------------------
 // Upcoming encounters
 
-const upcoming = { rows: [], key: "peak", dir: 1 };
+const upcoming = { rows: [], key: "peak", dir: 1, hidden: 0 };
+/** Forecast id -> {options, finished} (a done forecast never changes: fetched once). */
+const forecastMeta = new Map();
+/** At most this many forecast look-ups at once (the service runs on a few cores). */
+const META_PARALLEL = 4;
 
 function upcomingRange() {
   const n = Math.max(1, Math.min(175, parseInt($("#upcoming-years").value, 10) || 20));
@@ -221,21 +249,94 @@ async function loadUpcoming() {
   $("#upcoming-status").textContent = "Loading…";
   const rows = [];
   try {
-    let url = `/v1/encounters?${query}&limit=500`;
+    // all=true: every stored forecast's encounters (a service that lists only the latest
+    // forecast per parent and options by default takes it; one that lists all ignores it).
+    // The page picks the latest itself, so it reads the same from either.
+    let url = `/v1/encounters?${query}&all=true&limit=500`;
     while (url) {
       const page = await getJson(url);
       rows.push(...page.items);
       url = page.links.next;
     }
+    await markOlder(rows);
   } catch (err) {
     $("#upcoming-status").textContent = `Could not load encounters: ${err.message}`;
     return;
   }
   upcoming.rows = rows;
-  $("#upcoming-status").textContent = rows.length
-    ? `${rows.length} predicted encounter${rows.length === 1 ? "" : "s"} from ${from} to ${to}.`
-    : `No predicted encounters stored from ${from} to ${to}. Submit a forecast to add some.`;
   renderUpcoming();
+}
+
+/** Options as canonical text: keys sorted at every level, so equal options give equal text. */
+function canonicalText(v) {
+  if (Array.isArray(v)) return `[${v.map(canonicalText).join(",")}]`;
+  if (isObject(v)) return `{${Object.keys(v).sort().map((k) => `${JSON.stringify(k)}:${canonicalText(v[k])}`).join(",")}}`;
+  return JSON.stringify(v);
+}
+
+async function loadMeta(ids) {
+  const todo = ids.filter((id) => !forecastMeta.has(id));
+  async function worker() {
+    while (todo.length) {
+      const id = todo.pop();
+      const job = await getJson(`/v1/forecasts/${id}`);
+      forecastMeta.set(id, {
+        options: job.options || {},
+        finished: (job.timings && (job.timings.finished_utc || job.timings.created_utc)) || "",
+      });
+    }
+  }
+  await Promise.all(Array.from({ length: Math.min(META_PARALLEL, todo.length) }, worker));
+}
+
+/**
+ * Mark each row `older` unless its forecast is the latest (by finish time) of its parent and
+ * option set. The option set is the listing's own `options_hash` when the service gives one,
+ * else the forecast's options read from the forecast itself.
+ */
+async function markOlder(rows) {
+  const needMeta = [...new Set(rows.filter((r) => !r.options_hash).map((r) => r.forecast_id))];
+  await loadMeta(needMeta);
+  const idsOfParent = new Map();
+  const latest = new Map();
+  for (const r of rows) {
+    const meta = forecastMeta.get(r.forecast_id) || { options: {}, finished: "" };
+    r.optionsKey = r.options_hash || canonicalText(meta.options);
+    r.options = meta.options;
+    const key = `${r.parent_name}\u0000${r.optionsKey}`;
+    const finished = r.finished_utc || meta.finished;
+    const best = latest.get(key);
+    if (!best || finished > best.finished || (finished === best.finished && r.forecast_id > best.id)) {
+      latest.set(key, { id: r.forecast_id, finished });
+    }
+    if (!idsOfParent.has(r.parent_name)) idsOfParent.set(r.parent_name, new Set());
+    idsOfParent.get(r.parent_name).add(r.optionsKey);
+  }
+  // Per parent, the option names whose values differ between its forecasts: what the rows show.
+  const differing = new Map();
+  for (const [parent, keys] of idsOfParent) {
+    const sets = rows.filter((r) => r.parent_name === parent && keys.has(r.optionsKey)).map((r) => r.options);
+    const names = new Set(sets.flatMap((o) => Object.keys(o)));
+    differing.set(parent, [...names].filter((k) => new Set(sets.map((o) => canonicalText(o[k]))).size > 1).sort());
+  }
+  for (const r of rows) {
+    r.older = latest.get(`${r.parent_name}\u0000${r.optionsKey}`).id !== r.forecast_id;
+    r.manyOptionSets = idsOfParent.get(r.parent_name).size > 1;
+    r.differing = differing.get(r.parent_name);
+  }
+}
+
+/** The options that tell forecasts of one parent apart (`keys`), in a few words. */
+function optionsText(o, keys) {
+  if (!o) return "";
+  const words = {
+    particles: (v) => `${v} meteoroids`,
+    trails: (v) => (v ? `trails ${v.join(", ")}` : "all trails"),
+    max_trail_age_years: (v) => `trails ≤ ${v} yr`,
+  };
+  return keys
+    .map((k) => (words[k] ? words[k](o[k]) : `${k.replace(/_/g, " ")} ${isObject(o[k]) || Array.isArray(o[k]) ? canonicalText(o[k]) : o[k] ?? "default"}`))
+    .join(" · ");
 }
 
 const SORT_KEYS = {
@@ -250,7 +351,16 @@ const SORT_KEYS = {
 
 function renderUpcoming() {
   const key = SORT_KEYS[upcoming.key];
-  const rows = [...upcoming.rows].sort((a, b) => {
+  const showOlder = $("#upcoming-older").checked;
+  const shown = upcoming.rows.filter((r) => showOlder || !r.older);
+  const hidden = upcoming.rows.length - shown.length;
+  const { from, to } = upcomingRange();
+  const n = shown.length;
+  $("#upcoming-status").textContent = upcoming.rows.length
+    ? `${n} predicted encounter${n === 1 ? "" : "s"} from ${from} to ${to}` +
+      (hidden ? `; ${hidden} more from older forecasts (tick “Include older forecasts” to list them).` : ".")
+    : `No predicted encounters stored from ${from} to ${to}. Submit a forecast to add some.`;
+  const rows = shown.sort((a, b) => {
     const x = key(a);
     const y = key(b);
     return (x < y ? -1 : x > y ? 1 : 0) * upcoming.dir;
@@ -274,10 +384,23 @@ function renderUpcoming() {
         el("td", { class: "num" }, `${e.miss_distance_au >= 0 ? "+" : ""}${fmt(e.miss_distance_au, 5)}`),
         el("td", { class: "num" }, zhrText(e.zhr)),
         el("td", { class: "num" }, `${fmt(e.radiant.ra_deg, 1)}, ${e.radiant.dec_deg >= 0 ? "+" : ""}${fmt(e.radiant.dec_deg, 1)}`),
-        el("td", {}, el("a", { href: `#/forecasts/${r.forecast_id}` }, "view"), " ", el("a", { href: r.links.forecast }, "JSON")),
+        el(
+          "td",
+          {},
+          el(
+            "span",
+            {},
+            el("a", { href: `#/forecasts/${r.forecast_id}` }, "view"),
+            " ",
+            el("a", { href: r.links.forecast }, "JSON"),
+            r.older ? el("span", { class: "badge" }, "older") : "",
+            r.manyOptionSets ? el("span", { class: "opts" }, optionsText(r.options, r.differing)) : "",
+          ),
+        ),
       );
     }),
   );
+  labelCells($("#upcoming-table"));
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -344,6 +467,7 @@ async function showForecast(job) {
   $("#fc-csv").href = job.links.encounters_csv;
   $("#fc-ics").href = job.links.encounters_ics;
   $("#fc-json").href = job.links.self;
+  $("#fc-profiles").href = index.profiles_csv || `/v1/forecasts/${job.id}/profiles.csv`;
   const select = $("#fc-year");
   select.replaceChildren(...index.years.map((y) => el("option", { value: y }, y)));
   select.value = String(index.default_year ?? index.years[0]);
@@ -362,9 +486,19 @@ async function showYear(year) {
   );
 }
 
+/** Boxes narrower than this (px) get the phone layout of the charts (service/plots.py SIZES). */
+const NARROW_CHART_PX = 600;
+
+function chartSize(fig) {
+  const width = fig.querySelector(".svg-holder").clientWidth || fig.clientWidth;
+  return width < NARROW_CHART_PX ? "narrow" : "wide";
+}
+
 async function loadChart(fig, id, year) {
   const chart = fig.dataset.chart;
   const base = `/v1/forecasts/${id}/plots/${chart}`;
+  const size = chartSize(fig);
+  fig.dataset.size = size;
   for (const a of fig.querySelectorAll(".downloads a")) {
     a.href = `${base}.${a.dataset.fmt}?year=${year}&download=true`;
     a.setAttribute("download", `trailcast-${id}-${chart}-${year}.${a.dataset.fmt}`);
@@ -372,12 +506,14 @@ async function loadChart(fig, id, year) {
   const holder = fig.querySelector(".svg-holder");
   holder.setAttribute("aria-busy", "true");
   try {
-    const r = await fetch(`${base}.svg?year=${year}`);
+    const r = await fetch(`${base}.svg?year=${year}&size=${size}`);
     if (!r.ok) throw new Error(`${r.status}`);
     const doc = new DOMParser().parseFromString(await r.text(), "image/svg+xml");
     const svg = document.importNode(doc.documentElement, true);
     svg.setAttribute("role", "img");
     svg.setAttribute("aria-label", fig.querySelector("figcaption").textContent.trim());
+    svg.classList.add(size);
+    addPointTitles(svg, chart, current.job, year);
     if (current.id === id && current.year === year) holder.replaceChildren(svg);
   } catch (err) {
     holder.replaceChildren(el("p", { class: "error" }, `Chart not available (${err.message}).`));
@@ -385,6 +521,73 @@ async function loadChart(fig, id, year) {
     holder.removeAttribute("aria-busy");
     fig.dataset.loadedYear = String(year);
   }
+}
+
+function svgTitle(node, text) {
+  const t = document.createElementNS(node.namespaceURI, "title"); // the SVG namespace
+  t.textContent = text;
+  node.prepend(t);
+}
+
+const signed = (x, d) => `${x >= 0 ? "+" : ""}${fmt(x, d)}`;
+
+/**
+ * Hover details: a <title> on every plotted meteoroid (its time, solar longitude and miss
+ * distance, or its radiant) and on each trail's median radiant, from the stored result. The
+ * chart draws one <use> per meteoroid in the stored order; a group whose count differs is
+ * left without titles rather than labelled wrongly.
+ */
+function addPointTitles(svg, chart, job, year) {
+  if (!job || !job.result) return;
+  const res = job.result;
+  // The crossings in the order the chart draws them: encounters, then near misses, by index.
+  const byItem = new Map((res.particle_crossings || []).map((c) => [`${c.kind}:${c.index}`, c]));
+  const crossings = [];
+  for (const [kind, key] of [["encounter", "encounters"], ["near_miss", "near_misses"]]) {
+    res[key].forEach((e, k) => {
+      const c = byItem.get(`${kind}:${k}`);
+      if (e.year === year && c && c.t_earth_utc.length) crossings.push(c);
+    });
+  }
+  if (chart === "crossings" || chart === "radiants") {
+    const prefix = chart === "crossings" ? "trail-" : "radiants-";
+    const groups = [...svg.querySelectorAll(`g[id^="${prefix}"]`)];
+    groups.forEach((g, k) => {
+      const c = crossings[k];
+      const uses = g.querySelectorAll("use");
+      if (!c || uses.length !== c.t_earth_utc.length || g.id !== `${prefix}${c.perihelion_year}`) return;
+      uses.forEach((u, j) => {
+        const head = `${c.perihelion_year} trail, meteoroid ${j + 1}: `;
+        svgTitle(u, chart === "crossings"
+          ? `${head}${utcText(c.t_earth_utc[j])} UTC, λ☉ ${fmt(c.solar_longitude_deg[j], 4)}°, miss ${signed(c.miss_distance_au[j], 5)} au`
+          : `${head}radiant α ${fmt(c.ra_deg[j], 2)}°, δ ${signed(c.dec_deg[j], 2)}°`);
+      });
+    });
+  }
+  if (chart === "radiants" || chart === "profile") {
+    for (const [kind, key] of [["encounter", "encounters"], ["near miss", "near_misses"]]) {
+      for (const e of res[key]) {
+        if (e.year !== year) continue;
+        const ty = e.trail.perihelion_year;
+        const text = `${ty} trail (${kind}): peak ${utcText(e.peak_utc)} UTC, ZHR ${zhrText(e.zhr)}, ` +
+          `radiant α ${fmt(e.radiant.ra_deg, 1)}°, δ ${signed(e.radiant.dec_deg, 1)}°`;
+        const g = svg.querySelector(chart === "radiants" ? `#radiant-${ty}` : `#profile-${ty}`);
+        if (g && !g.querySelector(":scope > title")) svgTitle(g, text);
+      }
+    }
+  }
+}
+
+/** Redraw charts whose box crossed NARROW_CHART_PX since they were drawn (phone turned, window resized). */
+let resizeTimer = null;
+function onResize() {
+  clearTimeout(resizeTimer);
+  resizeTimer = setTimeout(() => {
+    if ($("#fc-done").hidden || !current.job) return;
+    for (const fig of document.querySelectorAll("figure.chart")) {
+      if (fig.dataset.size && fig.dataset.size !== chartSize(fig)) loadChart(fig, current.id, current.year);
+    }
+  }, 200);
 }
 
 function renderNumbers(job, year) {
@@ -406,7 +609,7 @@ function renderNumbers(job, year) {
           el("td", { class: "num" }, fmt(e.vg_km_s, 1)),
           el("td", { class: "num" }, e.particles),
           el("td", { class: "num" }, zhrText(e.zhr)),
-          el("td", {}, e.window ? `${utcText(e.window.start_utc)} – ${utcText(e.window.end_utc)}` : "–"),
+          el("td", {}, windowText(e.window, e.peak_utc)),
         ),
       );
     }
@@ -415,6 +618,7 @@ function renderNumbers(job, year) {
     rows.push(el("tr", {}, el("td", { colspan: 11 }, `No trail passes near Earth's path in ${year}: no outburst expected from the simulated trails.`)));
   }
   $("#fc-table tbody").replaceChildren(...rows);
+  labelCells($("#fc-table"));
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -565,6 +769,8 @@ document.addEventListener("DOMContentLoaded", () => {
       renderUpcoming();
     });
   }
+  $("#upcoming-older").addEventListener("change", renderUpcoming);
+  window.addEventListener("resize", onResize);
   $("#fc-year").addEventListener("change", (ev) => showYear(Number(ev.target.value)));
   $("#submit-form").addEventListener("submit", submitForecast);
   for (const r of document.querySelectorAll('input[name="mode"]')) r.addEventListener("change", () => setMode(mode()));
