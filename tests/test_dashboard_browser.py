@@ -12,6 +12,8 @@ loopback server. Screenshots are saved under test-artifacts/dashboard/ (git-igno
 import json
 import os
 import shutil
+import time
+from datetime import datetime
 from pathlib import Path
 from urllib.parse import urlsplit
 
@@ -120,6 +122,54 @@ def _count_uses(page, selector: str) -> int:
     return page.locator(f"{selector} use").count()
 
 
+def _tables_that_overflow(page) -> list:
+    """Every visible table on the page that is wider than its box, or whose box scrolls."""
+    return page.evaluate(
+        """() => [...document.querySelectorAll('main table')]
+            .filter((t) => t.offsetParent !== null)
+            .map((t) => {
+              const box = t.closest('.table-wrap') || t.parentElement;
+              return {id: t.id, table: t.getBoundingClientRect().width,
+                      box: box.clientWidth, scroll: box.scrollWidth};
+            })
+            .filter((m) => m.table > m.box + 1 || m.scroll > m.box + 1)"""
+    )
+
+
+def _visible_tables(page) -> int:
+    return page.evaluate(
+        "[...document.querySelectorAll('main table')].filter((t) => t.offsetParent).length"
+    )
+
+
+#: Smallest chart text allowed on screen at 390 px (issue 14: "no chart text below 10 px").
+MIN_CHART_TEXT_PX = 10.0
+
+
+def _smallest_chart_text(page) -> tuple[float, str]:
+    """The on-screen size (px) of the smallest text in the page's charts: its font size times
+    the SVG's scale on screen (the length of the first column of its screen matrix)."""
+    return tuple(
+        page.evaluate(
+            """() => {
+              let smallest = [Infinity, ''];
+              for (const t of document.querySelectorAll('.svg-holder svg text')) {
+                const m = t.getScreenCTM();
+                const px = parseFloat(getComputedStyle(t).fontSize) * Math.hypot(m.a, m.b);
+                if (px < smallest[0]) smallest = [px, t.textContent];
+              }
+              return smallest;
+            }"""
+        )
+    )
+
+
+def _peak_words(peak_utc: str) -> tuple[str, str]:
+    """What the time axis must show for a peak: 'peak 2040-04-11 08:32 UTC' and 'Apr 11'."""
+    t = datetime.fromisoformat(peak_utc.replace("Z", "+00:00"))
+    return f"peak {t:%Y-%m-%d %H:%M} UTC", f"{t:%b %d}"
+
+
 @pytest.mark.slow
 def test_dashboard_end_to_end_in_chromium(server, browser):
     context = browser.new_context(viewport={"width": 1280, "height": 800}, accept_downloads=True)
@@ -223,6 +273,25 @@ def test_dashboard_end_to_end_in_chromium(server, browser):
         crossings_svg = page.locator("#chart-crossings svg").text_content()
         assert "miss distance, trail minus Earth (au)" in crossings_svg
         assert "solar longitude λ☉ (deg" in crossings_svg
+        # The time axes name the peak's date: a labelled line at the peak, and the day under
+        # the first tick (issue 14: a peak at 23:20 on 11 April must read "Apr 11").
+        for chart in ("crossings", "profile"):
+            text = page.locator(f"#chart-{chart} svg").text_content()
+            for e in encounters_2040:
+                label, day = _peak_words(e["peak_utc"])
+                if chart == "crossings" or (e["zhr"]["estimate"] > 0 and e["profile"]):
+                    assert label in text and day in text, (chart, label, day)
+        # Hover details: every plotted meteoroid carries an SVG <title> with its numbers.
+        for c in stored:
+            points = page.locator(f"#chart-crossings #trail-{c['perihelion_year']} use > title")
+            assert points.count() == len(c["t_earth_utc"])
+            first_time = c["t_earth_utc"][0].replace("T", " ").replace("Z", "")
+            assert first_time in points.first.text_content()
+        assert page.locator("#chart-radiants [id^='radiant-'] > title").count() >= 1
+        assert page.locator("#chart-crossings").get_attribute("data-size") == "wide"
+        # The activity profiles have their own CSV beside the other exports.
+        profiles = page.request.get(server.url + page.get_attribute("#fc-profiles", "href"))
+        assert profiles.ok and profiles.text().startswith("forecast_id,parent,kind,year,")
 
         # The numbers and the cautions of this forecast.
         rows = page.locator("#fc-table tbody tr")
@@ -232,6 +301,8 @@ def test_dashboard_end_to_end_in_chromium(server, browser):
         assert first["peak_utc"].replace("T", " ").replace("Z", "") in page.inner_text("#fc-table")
         assert page.locator("#fc-cautions").is_visible()
         assert "Spacecraft operators" in page.inner_text("#fc-cautions")
+        # Every table fits its box at laptop size (issue 14: ZHR cut off, Window hidden).
+        assert _visible_tables(page) == 1 and _tables_that_overflow(page) == []
         _shot(page, "forecast-1280x800")
 
         # --- downloads: SVG and PNG, as the browser saves them -----------------------------
@@ -266,6 +337,7 @@ def test_dashboard_end_to_end_in_chromium(server, browser):
         ]
         assert misses == sorted(misses, reverse=True)
         assert page.locator(f"#upcoming-table a[href='#/forecasts/{job_id}']").count() >= 1
+        assert _visible_tables(page) == 1 and _tables_that_overflow(page) == []
         _shot(page, "upcoming-1280x800")
 
         # Follow the calendar link (through the page's own context, so it is recorded too).
@@ -282,15 +354,33 @@ def test_dashboard_end_to_end_in_chromium(server, browser):
 
         # --- phone size: the same views, usable without sideways scrolling ---------------
         page.set_viewport_size({"width": 390, "height": 844})
-        page.wait_for_selector("#chart-crossings svg")
+        # The charts are redrawn in their narrow layout for the phone-sized box.
+        for chart in ("crossings", "profile", "radiants"):
+            page.wait_for_selector(f"#chart-{chart}[data-size='narrow'] svg.narrow")
         assert _no_horizontal_scroll(page)
         assert page.locator("#cautions").is_visible()
         chart_box = page.locator("#chart-crossings svg").bounding_box()
         assert chart_box["width"] <= 390
+        smallest = _smallest_chart_text(page)
+        assert smallest[0] >= MIN_CHART_TEXT_PX, smallest
+        text = page.locator("#chart-crossings svg").text_content()
+        assert all(w in text for w in _peak_words(encounters_2040[0]["peak_utc"]))
+        # The numbers become cards that fit the screen; each value keeps its heading.
+        assert _tables_that_overflow(page) == []
+        first_cell = page.locator("#fc-table tbody tr").first.locator("td").first
+        assert first_cell.get_attribute("data-label") == "Kind"
+        assert first_cell.evaluate("td => getComputedStyle(td).display") == "flex"
         _shot(page, "forecast-390x844")
         page.click("#nav-upcoming")
         page.wait_for_selector("#upcoming-table tbody tr")
-        assert _no_horizontal_scroll(page)  # the wide table scrolls inside its own box
+        assert _no_horizontal_scroll(page)
+        assert _tables_that_overflow(page) == []
+        # Sorting still works from the buttons above the cards.
+        page.click("#upcoming-table thead button[data-key='peak']")
+        peak_header = page.locator(
+            "#upcoming-table thead th", has=page.locator("[data-key='peak']")
+        )
+        assert peak_header.get_attribute("aria-sort") == "ascending"
         _shot(page, "upcoming-390x844")
         page.click("#nav-submit")
         assert _no_horizontal_scroll(page)
@@ -300,5 +390,77 @@ def test_dashboard_end_to_end_in_chromium(server, browser):
 
     assert errors == [], errors
     # No request left loopback: every URL the page asked for went to the test's server.
+    assert requests.refused == []
+    assert requests.hosts() == {"127.0.0.1"}, requests.hosts()
+
+
+def _wait_done(server, job_id: str) -> dict:
+    deadline = time.monotonic() + WAIT_S
+    while True:
+        job = httpx.get(f"{server.url}/v1/forecasts/{job_id}", timeout=30.0).json()
+        if job["state"] == "done":
+            return job
+        assert job["state"] in ("queued", "running") and time.monotonic() < deadline, job
+        time.sleep(0.3)
+
+
+@pytest.mark.slow
+def test_upcoming_lists_the_latest_forecast_per_parent_and_options(server, browser):
+    # Two forecasts of the same parent with the same options, the second from a revised orbit
+    # (q changed in the fifth decimal): only the second is listed until older ones are asked for.
+    base = {"years": [2040, 2040], "particles": 20, "options": {"trails": [2026], "seed": 7}}
+    ids = []
+    for q in (DEMO_ORBIT["q"], DEMO_ORBIT["q"] + 0.00001):
+        r = httpx.post(
+            f"{server.url}/v1/forecasts", json={**base, "orbit": {**DEMO_ORBIT, "q": q}}, timeout=30
+        )
+        assert r.status_code in (200, 202), r.text
+        ids.append(r.json()["id"])
+        _wait_done(server, ids[-1])  # one after the other: the second finishes later
+    older, latest = ids
+    context = browser.new_context(viewport={"width": 1280, "height": 800})
+    requests = Requests(context, server.url)
+    page = context.new_page()
+    try:
+        page.goto(server.url + "/#/upcoming")
+        page.wait_for_selector(f"#upcoming-table a[href='#/forecasts/{latest}']")
+        assert page.locator(f"#upcoming-table a[href='#/forecasts/{older}']").count() == 0
+        assert "more from older forecasts" in page.inner_text("#upcoming-status")
+        page.check("#upcoming-older")
+        row = page.locator(
+            "#upcoming-table tbody tr", has=page.locator(f"a[href='#/forecasts/{older}']")
+        )
+        assert row.count() >= 1 and "older" in row.first.inner_text()
+        # The options that tell this parent's forecasts apart are named beside the links.
+        assert "seed 7" in page.inner_text("#upcoming-table")
+        assert _tables_that_overflow(page) == []
+        _shot(page, "upcoming-older-1280x800")
+    finally:
+        context.close()
+    assert requests.refused == []
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize(("width", "height"), [(1280, 800), (390, 844)])
+def test_api_docs_render_with_no_network(server, browser, width, height):
+    # Every request is recorded and any off loopback refused, as with no network at all: the
+    # Swagger UI page must still render the whole API from this service's own assets.
+    context = browser.new_context(viewport={"width": width, "height": height})
+    requests = Requests(context, server.url)
+    page = context.new_page()
+    errors: list[str] = []
+    page.on("pageerror", lambda exc: errors.append(str(exc)))
+    try:
+        page.goto(server.url + "/docs")
+        page.wait_for_selector(".swagger-ui .info .title:has-text('trailcast')", timeout=WAIT_MS)
+        page.wait_for_selector(".swagger-ui .opblock")
+        spec = httpx.get(f"{server.url}/openapi.json", timeout=30.0).json()
+        n_operations = sum(len(item) for item in spec["paths"].values())
+        assert page.locator(".swagger-ui .opblock").count() == n_operations
+        assert "Spacecraft operators" in page.inner_text(".swagger-ui .info")
+        _shot(page, f"docs-{width}x{height}")
+    finally:
+        context.close()
+    assert errors == [], errors
     assert requests.refused == []
     assert requests.hosts() == {"127.0.0.1"}, requests.hosts()
