@@ -225,13 +225,15 @@ def get_plot(
         None, ge=1800, le=2199, description="Forecast year (UTC)", examples=[2040]
     ),
     download: bool = Query(False, description="Ask the browser to save it (attachment)"),
-    size: Size = Query(
-        "wide",
-        description="Layout: `wide` (720 x 403 pt, legend beside the axes) for boxes of about "
-        "600 px and more; `narrow` (331 x 461 pt, legend below) for phones, where its text "
-        "stays 11 px or more",
-        examples=["narrow"],
-    ),
+    size: Annotated[
+        Size,
+        Query(
+            description="Layout: `wide` (720 x 403 pt, legend beside the axes) for boxes of "
+            "about 600 px and more; `narrow` (331 x 461 pt, legend below) for phones, where its "
+            "text stays 11 px or more",
+            examples=["narrow"],
+        ),
+    ] = "wide",
 ) -> Response:
     job = _done_job(jobs, job_id)
     if year is None:
