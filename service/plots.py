@@ -17,8 +17,14 @@ Three charts per forecast year, each a pure function of the stored result (the J
 
 Every trail keeps one style (colour, marker, line dash) in every chart of a forecast, chosen so
 that trails stay apart in greyscale too. SVG groups carry stable ids (``trail-<year>``,
-``radiants-<year>``, ``profile-<year>``, ``band-<year>``, ``window-<year>``, ``earth-path``) so
-that pages and tests can find the plotted elements; one ``<use>`` element per plotted point.
+``radiants-<year>``, ``radiant-<year>``, ``profile-<year>``, ``band-<year>``, ``window-<year>``,
+``peak-<year>``, ``peak-line-<year>``, ``earth-path``) so that pages and tests can find the
+plotted elements; one ``<use>`` element per plotted point.
+
+Time axes name the date (:class:`UtcDayFormatter`: the month and day under the first tick and
+at every change of UTC day) and mark each encounter's peak with a dotted line labelled to the
+minute. Each chart comes in two layouts (:data:`SIZES`): ``wide`` for laptops and reports,
+``narrow`` for phones, where its text stays at 11 px or more on screen.
 
 Rendering uses :class:`matplotlib.figure.Figure` directly (no pyplot, no global figure state)
 under one lock, since matplotlib's text and font caches are not documented as thread-safe.
