@@ -334,7 +334,11 @@ function optionsText(o, keys) {
     trails: (v) => (v ? `trails ${v.join(", ")}` : "all trails"),
     max_trail_age_years: (v) => `trails ≤ ${v} yr`,
   };
+  const first = ["particles", "trails", "max_trail_age_years", "seed"];
+  const rank = (k) => (first.includes(k) ? first.indexOf(k) : first.length);
   return keys
+    .filter((k) => !(k === "max_trail_age_years" && o.trails)) // named trails: the age limit is moot
+    .sort((a, b) => rank(a) - rank(b) || (a < b ? -1 : 1))
     .map((k) => (words[k] ? words[k](o[k]) : `${k.replace(/_/g, " ")} ${isObject(o[k]) || Array.isArray(o[k]) ? canonicalText(o[k]) : o[k] ?? "default"}`))
     .join(" · ");
 }
