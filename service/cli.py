@@ -390,7 +390,7 @@ def forecast_options_from_args(args):
 
     from dynamics.ejection import EJECTION_SPEED_LAWS
     from dynamics.forecast import ForecastOptions
-    from dynamics.trails import EjectionModel
+    from dynamics.release import EjectionModel
 
     first, last = _parse_years(args.years)
     if args.particles < 3 or args.particles > 100_000:
@@ -449,7 +449,8 @@ def _parse_calibration(text):
 
 
 def cmd_forecast(args) -> int:
-    from dynamics.forecast import forecast, forecast_solutions
+    from dynamics.forecast import forecast
+    from dynamics.uncertainty import forecast_solutions
 
     orbit = load_orbit_file(args.orbit)
     options = forecast_options_from_args(args)
