@@ -329,6 +329,9 @@ def _forecast(
     if options.last_year < options.first_year:
         raise ValueError("last_year must not precede first_year")
     calibration = None
+    if orbit.ejection_events:  # events of the orbit file join those of the options
+        extra = tuple(ev for ev in orbit.ejection_events if ev not in options.events)
+        options = replace(options, events=tuple(options.events) + extra)
     if options.calibration is not None:
         calibration, options = _calibrate(orbit, options, executor)
     y_start, _ = calendar_year_tdb_jd(options.first_year)

@@ -150,3 +150,31 @@ def test_selection_is_a_random_subset_with_its_inclusion_fraction():
     assert ArrivalMap(x, y, np.zeros(201, dtype=int), 1).brackets() == (True, 0.0)
     late = ArrivalMap(x, y + 1000.0, np.zeros(201, dtype=int), 1)
     assert late.brackets() == (False, -1.0)  # all late: look at earlier predictions
+
+
+@pytest.mark.invariant
+def test_orbit_file_and_cli_name_the_same_ejection_event():
+    from dynamics.errors import InvalidOrbit
+    from service.cli import UsageError, _parse_event
+
+    base = dict(PARENT_55P)
+    base["ejection_events"] = [
+        {"kind": "fragmentation", "start": 2450000.5, "duration_days": 5, "speed_multiplier": 8}
+    ]
+    orbit = parse_orbit(base)
+    (ev,) = orbit.ejection_events
+    assert ev == _parse_event("fragmentation:2450000.5:8:5").__class__(
+        "fragmentation", 2450000.5, 5.0, 8.0, source=""
+    )
+    assert parse_orbit(orbit.to_json()).ejection_events == orbit.ejection_events  # round trip
+    for bad, field in [
+        ({"kind": "explosion", "start": 2450000.5}, "kind"),
+        ({"kind": "outburst"}, "start"),
+        ({"kind": "outburst", "start": 2450000.5, "speed_multiplier": 1e4}, "speed_multiplier"),
+        ({"kind": "outburst", "start": 2450000.5, "colour": 1}, "colour"),
+    ]:
+        with pytest.raises(InvalidOrbit) as exc:
+            parse_orbit({**PARENT_55P, "ejection_events": [bad]})
+        assert exc.value.field.endswith(field)
+    with pytest.raises(UsageError):
+        _parse_event("fragmentation:1995-09-10:fast")
