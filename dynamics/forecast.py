@@ -33,7 +33,7 @@ from .crossings import MISS_DISTANCE_CONVENTION, Crossings, node_crossings
 from .ephemeris import ephemeris_info
 from .errors import TrailcastError
 from .executors import Task, default_workers, make_executor, run_tasks
-from .history import FirstPassage, ParentHistory, ParentReturn, parent_history
+from .history import FirstPassage, ParentHistory, ParentReturn, cached_parent_history
 from .nbody import provenance, step_grid
 from .orbit_input import OrbitInput
 from .release import Candidates, EjectionEvent, EjectionModel, draw_candidates, event_of_return
@@ -343,7 +343,7 @@ def _forecast(
     period = orbit.period_days if np.isfinite(orbit.period_days) else 0.0
     t_max = y_end + min(1.3 * period, 300 * DAYS_PER_JULIAN_YEAR) + 60.0
     try:
-        history = parent_history(
+        history = cached_parent_history(
             orbit, t_min, t_max, active_r_max_au=options.ejection.active_r_max_au
         )
     except FirstPassage as exc:  # a result, not an error: no earlier returns, no trails
@@ -427,6 +427,7 @@ def _forecast(
             encounters.append(enc)
         elif outcome["outcome"] == "near miss":
             near.append(enc)
+    outcomes = _one_row_per_passage(outcomes, targets)
     if trail_ids and targets and not encounters:
         notes.append(_nothing_found_note(outcomes))
     encounters.sort(key=lambda e: e.peak_tdb_jd)
@@ -724,6 +725,23 @@ def _outcome(tg: Target, tr: _Trail, enc, options) -> dict:
             "(none bound, or none predicted within the pilot span)",
         )
     return row
+
+
+def _one_row_per_passage(outcomes, targets) -> list[dict]:
+    """Drop revolution counts that no candidate could reach when another count of the same
+    trail and Earth passage was integrated; if none was, keep the one whose parent node
+    passage lies nearest Earth's (the trail's natural revolution count)."""
+    groups: dict[tuple, list[int]] = {}
+    for k, tg in enumerate(targets):
+        groups.setdefault((tg.trail, tg.year, tg.node, round(tg.t_earth, 3)), []).append(k)
+    keep = []
+    for ks in groups.values():
+        tried = [k for k in ks if outcomes[k]["tried"]["meteoroids_integrated"] > 0]
+        if tried:
+            keep += tried
+        else:
+            keep.append(min(ks, key=lambda k: abs(targets[k].t_parent_node - targets[k].t_earth)))
+    return [outcomes[k] for k in sorted(keep)]
 
 
 def _nothing_found_note(outcomes) -> str:

@@ -42,6 +42,9 @@ DEFAULT_ACTIVE_R_MAX_AU = 3.0
 ARC_STEP_DAYS = 1.0
 #: How far back to look for the previous return of a long-period comet (years).
 MAX_LOOKBACK_YEARS = 30_000.0
+#: Uncertainty of 1/a used to say how well a long-period parent's previous return is dated
+#: (1/au): typical of a well-observed single apparition (common practice, no source).
+INVERSE_A_UNCERTAINTY_PER_AU = 1e-5
 #: Distance beyond which the barycentric orbit is taken as the comet's original orbit (au).
 ORIGINAL_ORBIT_DISTANCE_AU = 250.0
 
@@ -122,7 +125,14 @@ def _bodies_at(sim: ParentSimulation) -> MassiveBodies:
     return sim.massive_bodies()
 
 
-def _march(sim, t_stop: float, direction: int, active_r_max_au: float, stop_after_perihelia=None):
+def _march(
+    sim,
+    t_stop: float,
+    direction: int,
+    active_r_max_au: float,
+    stop_after_perihelia=None,
+    counting_before_tdb_jd=math.inf,
+):
     """Step the parent simulation towards ``t_stop``; return samples and perihelion passages.
 
     Samples are taken every day inside the active arc and every few percent of the local
@@ -165,7 +175,7 @@ def _march(sim, t_stop: float, direction: int, active_r_max_au: float, stop_afte
             perihelia.append((t, r, v))
         if (
             stop_after_perihelia is not None
-            and len(perihelia) >= stop_after_perihelia
+            and sum(1 for p in perihelia if p[0] < counting_before_tdb_jd) >= stop_after_perihelia
             and not inside
         ):
             break  # enough returns, and the last one's active arc is complete
@@ -181,6 +191,81 @@ def _march(sim, t_stop: float, direction: int, active_r_max_au: float, stop_afte
             break
         prev = (t, r, v, rv)
     return samples, perihelia
+
+
+#: Spans of cached histories are widened to multiples of this (days), so that forecasts of
+#: nearby years share one history (50 Julian years; no source).
+CACHE_SPAN_QUANTUM_DAYS = 50 * 365.25
+#: Histories kept in memory per process.
+CACHE_ENTRIES = 16
+_memory_cache: dict[str, "ParentHistory"] = {}
+
+
+def cache_dir():
+    """Where parent histories are kept between runs: ``$TRAILCAST_CACHE_DIR``, else
+    ``~/.cache/trailcast/history`` (None when neither can be used)."""
+    import os
+    from pathlib import Path
+
+    base = os.environ.get("TRAILCAST_CACHE_DIR")
+    path = Path(base) if base else Path.home() / ".cache" / "trailcast" / "history"
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except OSError:
+        return None
+    return path
+
+
+def cached_parent_history(
+    orbit: OrbitInput,
+    t_min_tdb_jd: float,
+    t_max_tdb_jd: float,
+    *,
+    active_r_max_au: float = DEFAULT_ACTIVE_R_MAX_AU,
+) -> "ParentHistory":
+    """:func:`parent_history` over a span widened to :data:`CACHE_SPAN_QUANTUM_DAYS`, computed
+    once per parent and span and reused: keyed by a hash of the orbit's JSON, the span, the
+    active-arc limit and trailcast's version; kept in memory and in :func:`cache_dir` (files
+    written atomically, so a killed run never leaves a half-written history)."""
+    import hashlib
+    import json
+    import os
+    import pickle
+
+    from . import __version__
+
+    q = CACHE_SPAN_QUANTUM_DAYS
+    lo = math.floor(t_min_tdb_jd / q) * q
+    hi = math.ceil(t_max_tdb_jd / q) * q
+    key_src = json.dumps(
+        [orbit.to_json(), lo, hi, active_r_max_au, __version__, "history-v2"], sort_keys=True
+    )
+    key = hashlib.sha256(key_src.encode()).hexdigest()[:32]
+    if key in _memory_cache:
+        return _memory_cache[key]
+    folder = cache_dir()
+    path = None if folder is None else folder / f"{key}.pickle"
+    hist = None
+    if path is not None and path.exists():
+        try:
+            with open(path, "rb") as fh:
+                hist = pickle.load(fh)
+        except (OSError, pickle.UnpicklingError, EOFError, AttributeError):
+            hist = None  # unreadable: compute again and overwrite
+    if hist is None:
+        hist = parent_history(orbit, lo, hi, active_r_max_au=active_r_max_au)
+        if path is not None:
+            tmp = path.with_suffix(f".{os.getpid()}.tmp")
+            try:
+                with open(tmp, "wb") as fh:
+                    pickle.dump(hist, fh, protocol=pickle.HIGHEST_PROTOCOL)
+                os.replace(tmp, path)
+            except OSError:
+                tmp.unlink(missing_ok=True)
+    if len(_memory_cache) >= CACHE_ENTRIES:
+        _memory_cache.pop(next(iter(_memory_cache)))
+    _memory_cache[key] = hist
+    return hist
 
 
 def parent_history(
@@ -231,6 +316,7 @@ def parent_history(
             -1,
             active_r_max_au,
             stop_after_perihelia=min_previous_returns - n_before,
+            counting_before_tdb_jd=orbit.tp_tdb_jd - 1.0,
         )
         back += more
         peri_back += peri_more
@@ -247,11 +333,15 @@ def parent_history(
             prev = max(t for (t, _, _) in peri_back if t < orbit.tp_tdb_jd - 1.0)
             years = (orbit.tp_tdb_jd - prev) / 365.25
             if years > 200.0:  # a long-period parent (Halley-type and shorter stay silent)
+                # dP/d(1/a) = -1.5 P / (1/a) with 1/a = (P / 2 pi)^(-2/3) mu^(1/3) (Kepler)
+                inv_a = (years * 365.25 * math.sqrt(GM_SUN_AU3_D2) / (2 * math.pi)) ** (-2 / 3)
+                shift = 1.5 * years / inv_a * INVERSE_A_UNCERTAINTY_PER_AU
                 notes.append(
                     f"long-period parent: integrated back to its previous return, {years:.0f} "
-                    "years before the orbit's perihelion; planetary perturbations over that "
-                    "revolution make its date uncertain: run the orbit's alternative solutions "
-                    "or clones to see by how much"
+                    f"years before the orbit's perihelion (1/a = {inv_a:.5f} /au over that "
+                    f"revolution); an error of {INVERSE_A_UNCERTAINTY_PER_AU:g} /au in 1/a moves "
+                    f"that return by about {shift:.1f} years, and planetary perturbations add "
+                    "more: run the orbit's alternative solutions or clones to see the spread"
                 )
 
     sim = _parent_simulation(orbit)

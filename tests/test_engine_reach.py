@@ -178,3 +178,27 @@ def test_orbit_file_and_cli_name_the_same_ejection_event():
         assert exc.value.field.endswith(field)
     with pytest.raises(UsageError):
         _parse_event("fragmentation:1995-09-10:fast")
+
+
+@pytest.mark.invariant
+def test_parent_history_is_computed_once_and_reused(tmp_path, monkeypatch):
+    import json
+    from pathlib import Path
+
+    from dynamics import history
+
+    monkeypatch.setenv("TRAILCAST_CACHE_DIR", str(tmp_path))
+    monkeypatch.setattr(history, "_memory_cache", {})
+    demo = Path(__file__).resolve().parents[1] / "examples" / "demo-comet.json"
+    orbit = parse_orbit(json.loads(demo.read_text()))
+    t0 = orbit.tp_tdb_jd
+    first = history.cached_parent_history(orbit, t0 - 30 * 365.25, t0 + 365.0)
+    assert len(list(tmp_path.glob("*.pickle"))) == 1
+    calls = []
+    monkeypatch.setattr(history, "parent_history", lambda *a, **k: calls.append(a))
+    again = history.cached_parent_history(orbit, t0 - 31 * 365.25, t0 + 300.0)  # same quantum
+    assert again is first and not calls
+    monkeypatch.setattr(history, "_memory_cache", {})  # a new process: read from disk
+    disk = history.cached_parent_history(orbit, t0 - 30 * 365.25, t0 + 365.0)
+    assert not calls
+    assert [r.tp_tdb_jd for r in disk.returns] == [r.tp_tdb_jd for r in first.returns]
