@@ -68,6 +68,9 @@ NEAR_MISS_MAX_AU = 0.05
 #: re-maps predicted to real arrivals with everything integrated so far (old, strongly perturbed
 #: trails need them). No source.
 REFINEMENT_ROUNDS = 3
+#: Most candidates drawn per trail when few map into the window (8 batches of the default
+#: 200,000; ~200 MB of release states at most). No source.
+MAX_CANDIDATES_PER_TRAIL = 1_600_000
 #: Pilot output step (days) per day of pilot half-span: arrivals far from Earth's passage are
 #: extrapolated along the osculating orbit from the nearest output (no source).
 PILOT_STEP_PER_SPAN = 1.0 / 40.0
@@ -303,12 +306,15 @@ class _Trail:
     n_drawn: int
     event: EjectionEvent | None
     cls: np.ndarray = field(repr=False)
+    edges: np.ndarray = field(repr=False, default_factory=lambda: np.zeros(0))
+    batches: int = 1
 
 
-def _seed_for(seed: int, tp_tdb_jd: float) -> np.random.SeedSequence:
+def _seed_for(seed: int, tp_tdb_jd: float, batch: int = 0) -> np.random.SeedSequence:
     """Seed of a trail's draws: the user's seed and the trail's perihelion day (any date, also
-    before JD 0, maps to a non-negative integer)."""
-    return np.random.SeedSequence([int(seed), int(round(tp_tdb_jd)) % 2**32])
+    before JD 0, maps to a non-negative integer), and the batch of candidates."""
+    key = [int(seed), int(round(tp_tdb_jd)) % 2**32]
+    return np.random.SeedSequence(key + [batch] if batch else key)
 
 
 def _forecast(
@@ -359,7 +365,6 @@ def _forecast(
         notes.append(_no_target_note(returns, trail_ids))
 
     trails: dict[int, _Trail] = {}
-    drawn = 0
     for k in sorted({t.trail for t in targets}):
         ret = returns[k]
         rng = np.random.default_rng(_seed_for(options.seed, ret.tp_tdb_jd))
@@ -374,9 +379,8 @@ def _forecast(
             )
         edges = beta_class_edges(pool.beta)
         trails[k] = _Trail(
-            ret, pool, model, options.candidates, event, beta_classes(pool.beta, edges)
+            ret, pool, model, options.candidates, event, beta_classes(pool.beta, edges), edges
         )
-        drawn += options.candidates
     for ev in options.events:
         if not any(t.event is ev for t in trails.values()):
             notes.append(
@@ -385,6 +389,8 @@ def _forecast(
             )
 
     integrated = _pilot(targets, trails, options, executor, say)
+    _grow_pools(targets, trails, options)
+    drawn = sum(tr.n_drawn for tr in trails.values())
     per_target, picked, integrated = _main_rounds(
         targets, trails, options, executor, say, integrated
     )
@@ -568,6 +574,50 @@ def _pilot(targets, trails, options, executor, say) -> int:
             else:
                 todo.append((ti, float(np.nanmax(tg.x_seen)) + 1e-9, tg.span_days, n_cls))
     return integrated
+
+
+def _grow_pools(targets, trails, options) -> None:
+    """Draw more candidates for trails whose mapped arrivals leave fewer than the particle
+    budget within the window (one-revolution dust of long-period parents spreads over
+    centuries of arrival: a few in 1e4 land within weeks of Earth's passage). Doubling batches,
+    up to MAX_CANDIDATES_PER_TRAIL; every batch has its own seed, so results stay reproducible,
+    and the number drawn enters the activity's weights."""
+    for k, tr in trails.items():
+        tis = [ti for ti, tg in enumerate(targets) if tg.trail == k and len(tg.idx_seen)]
+        while tr.n_drawn < MAX_CANDIDATES_PER_TRAIL and tis:
+            short = False
+            for ti in tis:
+                tg = targets[ti]
+                amap = ArrivalMap(tg.x_seen, tg.y_seen, tg.c_seen, BETA_CLASSES)
+                seen = np.zeros(len(tr.pool), dtype=bool)
+                seen[tg.idx_seen] = True
+                _, eligible, _ = select_for_window(
+                    amap, tg.x_pool, tr.cls, options.window_days, seen, options.particles
+                )
+                short |= len(eligible) < options.particles
+            if not short:
+                break
+            n_new = min(tr.n_drawn, MAX_CANDIDATES_PER_TRAIL - tr.n_drawn)
+            rng = np.random.default_rng(_seed_for(options.seed, tr.ret.tp_tdb_jd, tr.batches))
+            new = draw_candidates(tr.ret, options.ejection, n_new, rng, event=tr.event)
+            tr.batches += 1
+            tr.n_drawn += n_new
+            tr.pool = _concat_candidates(tr.pool, new)
+            tr.cls = np.concatenate([tr.cls, beta_classes(new.beta, tr.edges)])
+            for ti in tis:
+                tg = targets[ti]
+                tg.x_pool = np.concatenate([tg.x_pool, predicted_offset(new, tg)])
+                tg.keep_prob = np.concatenate([tg.keep_prob, np.ones(len(new))])
+            for ti, tg in enumerate(targets):  # targets of this trail not piloted: keep shapes
+                if tg.trail == k and ti not in tis:
+                    tg.x_pool = np.concatenate([tg.x_pool, predicted_offset(new, tg)])
+                    tg.keep_prob = np.concatenate([tg.keep_prob, np.ones(len(new))])
+
+
+def _concat_candidates(a: Candidates, b: Candidates) -> Candidates:
+    return Candidates(
+        *(np.concatenate([getattr(a, f), getattr(b, f)]) for f in Candidates.__dataclass_fields__)
+    )
 
 
 def _record(tg: Target, tr: _Trail, idx, cr: Crossings) -> None:

@@ -202,3 +202,30 @@ def test_parent_history_is_computed_once_and_reused(tmp_path, monkeypatch):
     disk = history.cached_parent_history(orbit, t0 - 30 * 365.25, t0 + 365.0)
     assert not calls
     assert [r.tp_tdb_jd for r in disk.returns] == [r.tp_tdb_jd for r in first.returns]
+
+
+@pytest.mark.invariant
+@pytest.mark.slow
+def test_a_forecast_that_finds_nothing_says_what_it_tried():
+    # The invented demo comet's 2026 trail cannot reach Earth in 2030 (it left four years
+    # earlier with the parent's own period of 13 years): nothing comes near, and the result
+    # must still state, for every trail passage in scope, what became of it and what was tried.
+    import json
+    from pathlib import Path
+
+    from dynamics.forecast import forecast
+
+    demo = Path(__file__).resolve().parents[1] / "examples" / "demo-comet.json"
+    orbit = parse_orbit(json.loads(demo.read_text()))
+    res = forecast(orbit, ForecastOptions(2030, 2030, trails=(2026,), particles=20, workers=1))
+    out = res.to_json()
+    assert out["encounters"] == []
+    assert out["trails"], "trails in scope but no word about them"
+    for row in out["trails"]:
+        assert row["outcome"] in {"encounter", "near miss", "distant", "not reached"}
+        assert {"pilot_rounds", "pilot_span_days", "selection", "meteoroids_integrated"} <= set(
+            row["tried"]
+        )
+        if row["outcome"] == "not reached":
+            assert row["reason"]
+    assert any(n.startswith("no encounter") for n in out["notes"]), out["notes"]
