@@ -52,7 +52,7 @@ def zhr_value(x: float) -> float:
 def year_of(t_tdb_jd: float) -> int:
     """Calendar year (TDB, astronomical numbering) of a TDB Julian date."""
     text = format_iso(t_tdb_jd, "TDB")
-    return int(text[:5]) if text.startswith("-") else int(text[:4])
+    return int(text[: text.index("-", 1)])
 
 
 def weighted_median(x, w) -> float:

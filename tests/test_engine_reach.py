@@ -229,3 +229,18 @@ def test_a_forecast_that_finds_nothing_says_what_it_tried():
         if row["outcome"] == "not reached":
             assert row["reason"]
     assert any(n.startswith("no encounter") for n in out["notes"]), out["notes"]
+
+
+@pytest.mark.invariant
+@pytest.mark.parametrize("years_back", [2_000, 6_000, 20_000, 24_000])  # whole 400-yr cycles
+def test_perihelia_tens_of_thousands_of_years_back_have_dates(years_back):
+    # A long-period parent's previous return 20,000 years ago has a negative Julian date and
+    # lies before erfa's calendar (-4799): it must still be written and get its year.
+    from dynamics.summaries import year_of
+    from dynamics.timescales import format_iso
+
+    t = 2451545.0 - years_back * 365.2425  # J2000.0 minus whole Gregorian years
+    y = 2000 - years_back
+    year_text = f"{y:04d}" if y >= 0 else f"-{-y:04d}"
+    assert format_iso(t, "TDB") == f"{year_text}-01-01T12:00:00 TDB"
+    assert year_of(t) == y
