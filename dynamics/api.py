@@ -14,23 +14,24 @@ from .activity import zhr_from_flux
 from .errors import InvalidOrbit, InvalidTime, OutsideTimeSpan, TrailcastError
 from .forecast import (
     Calibration,
+    EjectionEvent,
     ForecastOptions,
     ForecastResult,
-    SolutionsResult,
     TrailEncounter,
     forecast,
-    forecast_solutions,
 )
 from .geometry import quick_look
 from .history import FirstPassage, parent_history
 from .moid import moid
 from .orbit_input import OrbitInput, parse_orbit
+from .release import EjectionModel
 from .solar_longitude import solar_longitude_deg, times_of_solar_longitude_tdb
 from .timescales import format_utc, iso_to_tdb_jd
-from .trails import EjectionModel
+from .uncertainty import SolutionsResult, forecast_solutions
 
 __all__ = [
     "Calibration",
+    "EjectionEvent",
     "EjectionModel",
     "FirstPassage",
     "ForecastOptions",

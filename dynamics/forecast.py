@@ -1,7 +1,14 @@
-"""The dust-trail forecast pipeline: parent history -> release -> targeting -> N-body -> crossings.
+"""The dust-trail forecast pipeline, stage by stage: the conductor that calls them.
+
+history (:mod:`~dynamics.history`) -> targets (:mod:`~dynamics.targeting`) -> release
+(:mod:`~dynamics.release`) -> integration (:mod:`~dynamics.executors`, :mod:`~dynamics.nbody`)
+-> crossings (:mod:`~dynamics.crossings`) -> activity and summaries (:mod:`~dynamics.activity`,
+:mod:`~dynamics.summaries`). This module holds no stage logic of its own.
 
 :func:`forecast` is the Python API the CLI and the service call. It returns a
-:class:`ForecastResult` whose :meth:`~ForecastResult.to_json` gives the documented JSON.
+:class:`ForecastResult` whose :meth:`~ForecastResult.to_json` gives the documented JSON. Every
+trail in scope ends with a stated outcome (``trails`` in the JSON): encounter, near miss,
+distant crossing, or not reached, with the closest approach found and what was tried.
 
 Reproducibility: every random draw comes from ``numpy.random.SeedSequence([seed, trail])``, and
 particles are split into chunks of a fixed size in a fixed order, so the result does not depend
@@ -9,8 +16,6 @@ on how many worker processes ran the chunks (meteoroids are test particles: none
 another).
 """
 
-import concurrent.futures as cf
-import multiprocessing
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 
@@ -21,30 +26,34 @@ from .activity import (
     DEFAULT_DUST_MASS_RANGE_G,
     DEFAULT_DUST_TO_GAS,
     DEFAULT_EROSION_M_PER_RETURN,
-    MODEL_UNCERTAINTY_FACTOR,
-    Profile,
-    activity_profile,
     default_dust_mass_per_return_g,
-    limiting_mass_g,
-    meteoroids_per_particle,
 )
 from .constants import DAYS_PER_JULIAN_YEAR
-from .ejection import population_index_from_mass_index
-from .encounters import Crossings, circular_median_radec, node_crossings
-from .ephemeris import ephemeris_info, heliocentric_state
+from .crossings import MISS_DISTANCE_CONVENTION, Crossings, node_crossings
+from .ephemeris import ephemeris_info
 from .errors import TrailcastError
-from .history import FirstPassage, ParentHistory, ParentReturn, parent_history
-from .nbody import integrate_particles, provenance, step_grid
+from .executors import Task, default_workers, make_executor, run_tasks
+from .history import FirstPassage, ParentHistory, ParentReturn, cached_parent_history
+from .nbody import provenance, step_grid
 from .orbit_input import OrbitInput
-from .solar_longitude import solar_longitude_deg, times_of_solar_longitude_tdb
-from .timescales import TIME_SCALE_NOTES, calendar_year_tdb_jd, format_iso, format_utc
-from .trails import (
-    Candidates,
-    EjectionModel,
-    draw_candidates,
-    nodes_near_earth,
-    parent_node_time,
+from .release import Candidates, EjectionEvent, EjectionModel, draw_candidates, event_of_return
+from .summaries import TrailEncounter, round_sig, summarise, year_of
+from .targeting import (
+    BETA_CLASSES,
+    NODE_MAX_DISTANCE_AU,
+    PILOT_EXPANSION_FACTOR,
+    PILOT_EXPANSION_PARTICLES,
+    PILOT_EXPANSIONS,
+    ArrivalMap,
+    Target,
+    beta_class_edges,
+    beta_classes,
+    find_targets,
+    pilot_pick,
+    predicted_offset,
+    select_for_window,
 )
+from .timescales import TIME_SCALE_NOTES, calendar_year_tdb_jd, format_iso
 
 #: |median miss distance| below which a trail crossing can be an encounter (au).
 #: Common practice, no source: trails passing within ~0.005 au have given outbursts.
@@ -57,10 +66,16 @@ EARTH_RADIUS_AU = 6371.0 / 149_597_870.7  # mean Earth radius (IUGG), in au
 NEAR_MISS_MAX_AU = 0.05
 #: Extra selection rounds for a trail whose meteoroids mostly missed Earth's passage: each
 #: re-maps predicted to real arrivals with everything integrated so far (old, strongly perturbed
-#: trails need them).
+#: trails need them). No source.
 REFINEMENT_ROUNDS = 3
-#: A parent node farther than this from Earth's orbit is not followed (au).
-NODE_MAX_DISTANCE_AU = 0.25
+#: Most candidates drawn per trail when few map into the window (8 batches of the default
+#: 200,000; ~200 MB of release states at most). No source.
+MAX_CANDIDATES_PER_TRAIL = 1_600_000
+#: Pilot output step (days) per day of pilot half-span: arrivals far from Earth's passage are
+#: extrapolated along the osculating orbit from the nearest output (no source).
+PILOT_STEP_PER_SPAN = 1.0 / 40.0
+#: Crossings farther than NEAR_MISS_MAX_AU are "distant"; no meteoroid within the window of
+#: Earth's passage at all: "not reached".
 
 
 class CalibrationFailed(TrailcastError):
@@ -112,7 +127,10 @@ class ForecastOptions:
     trails : tuple of int or None
         Perihelion years whose trails to include (None: all within ``max_trail_age_years``).
     max_trail_age_years : float
-        Oldest trail followed for short-period parents (years before ``first_year``).
+        Oldest trail followed for short-period parents (years before ``first_year``). The
+        parent's two most recent returns before ``first_year`` are always in scope, however old
+        (for a long-period parent, its previous return); what the limit left out is said in the
+        notes.
     window_days : float
         A meteoroid counts for an Earth passage when it crosses the node within this many days
         of Earth passing the same longitude.
@@ -121,12 +139,15 @@ class ForecastOptions:
     integrator, dt_days : str, float
         REBOUND integrator and WHFast step (see the README's comparison with IAS15).
     workers : int
-        Worker processes for the chunks (1 = in this process).
+        Worker processes for the chunks (1 = in this process; default: one per core).
     chunk_size : int
         Meteoroids per simulation chunk.
     candidates : int
         Release conditions drawn per trail for the targeting.
     ejection : EjectionModel
+    events : tuple of EjectionEvent
+        Break-ups or outbursts: the return whose active arc holds an event releases its dust
+        as the event says (see :class:`dynamics.release.EjectionEvent`).
     """
 
     first_year: int
@@ -140,10 +161,11 @@ class ForecastOptions:
     pilot_window_days: float = 150.0
     integrator: str = "whfast"
     dt_days: float = 0.5
-    workers: int = 1
+    workers: int = field(default_factory=default_workers)
     chunk_size: int = 250
     candidates: int = 200_000
     ejection: EjectionModel = field(default_factory=EjectionModel)
+    events: tuple[EjectionEvent, ...] = ()
     dust_mass_per_return_g: float | None = None
     calibration: Calibration | None = None
     zhr_scale: float = 1.0  # set by the calibration; 1 in absolute mode
@@ -160,6 +182,7 @@ class ForecastOptions:
             "integrator": self.integrator,
             "dt_days": self.dt_days,
             "chunk_size": self.chunk_size,
+            "events": [e.describe() for e in self.events],
             "dust_mass_per_return_g": self.dust_mass(),
             "dust_mass_rule": None
             if self.dust_mass_per_return_g is not None
@@ -182,72 +205,6 @@ class ForecastOptions:
 
 
 @dataclass(frozen=True)
-class TrailEncounter:
-    """One trail's crossing of Earth's path at one Earth passage."""
-
-    year: int
-    trail_perihelion_tdb_jd: float
-    revolutions: int
-    node: str
-    peak_tdb_jd: float
-    solar_longitude_deg: float
-    miss_distance_au: float
-    miss_distance_spread_au: float
-    fwhm_hours: float
-    ra_deg: float
-    dec_deg: float
-    vg_km_s: float
-    vinf_km_s: float
-    particles: int
-    dilution: float
-    earth_passage_tdb_jd: float
-    crossings: Crossings = field(repr=False)
-    weights: np.ndarray = field(repr=False)
-    meteoroids: Candidates = field(repr=False)  # release time, mass, size, beta of each one
-    profile: Profile | None = field(default=None, repr=False)
-    population_index: float = float("nan")
-    zhr_estimate: float = 0.0
-    zhr_low: float = 0.0
-    zhr_high: float = 0.0
-    zhr_mode: str = "absolute"
-
-    def to_json(self) -> dict:
-        return {
-            "year": self.year,
-            "trail": {
-                "perihelion_tdb": format_iso(self.trail_perihelion_tdb_jd, "TDB"),
-                "perihelion_year": _year_of(self.trail_perihelion_tdb_jd),
-                "revolutions": self.revolutions,
-            },
-            "node": self.node,
-            "peak_utc": format_utc(self.peak_tdb_jd),
-            "solar_longitude_deg": round(self.solar_longitude_deg, 4),
-            "miss_distance_au": round(self.miss_distance_au, 6),
-            "miss_distance_spread_au": round(self.miss_distance_spread_au, 6),
-            "fwhm_hours": round(self.fwhm_hours, 2),
-            "radiant": {"ra_deg": round(self.ra_deg, 2), "dec_deg": round(self.dec_deg, 2)},
-            "vg_km_s": round(self.vg_km_s, 2),
-            "vinf_km_s": round(self.vinf_km_s, 2),
-            "particles": self.particles,
-            "dilution": round(self.dilution, 4),
-            "population_index": round(self.population_index, 3),
-            "zhr": {
-                "estimate": _zhr(self.zhr_estimate),
-                "low": _zhr(self.zhr_low),
-                "high": _zhr(self.zhr_high),
-                "mode": self.zhr_mode,
-            },
-            "window": None
-            if self.profile is None or self.profile.window_tdb_jd is None
-            else {
-                "start_utc": format_utc(self.profile.window_tdb_jd[0]),
-                "end_utc": format_utc(self.profile.window_tdb_jd[1]),
-            },
-            "profile": [] if self.profile is None else _profile_json(self.profile),
-        }
-
-
-@dataclass(frozen=True)
 class ForecastResult:
     parent: OrbitInput
     options: ForecastOptions
@@ -259,6 +216,7 @@ class ForecastResult:
     history: ParentHistory = field(repr=False)
     notes: tuple[str, ...] = ()
     calibration: dict | None = None
+    trails: tuple[dict, ...] = ()
 
     def to_json(self) -> dict:
         return {
@@ -279,6 +237,10 @@ class ForecastResult:
                 "zhr_mode": "calibrated" if self.calibration else "absolute",
                 "calibration": self.calibration,
                 "dust_mass_per_return_g": self.options.dust_mass(),
+                "parent_history": {
+                    "original_inverse_a_per_au": self.history.original_inverse_a_per_au,
+                    "notes": list(self.history.notes),
+                },
                 "zhr_method": "kernel density of simulated meteoroids above the +6.5 mag mass "
                 "limit along Earth's path; flux Q = n Vg; ZHR = Q x 37200 km^2 / c(r) "
                 "(Koschack & Rendtel 1990); low/high: bootstrap 16-84 % widened by the model "
@@ -288,124 +250,20 @@ class ForecastResult:
                 "times": "UTC, ISO 8601",
                 "solar_longitude": "geometric, equinox J2000",
                 "radiant": "RA/Dec, equinox J2000, geocentric, without zenith attraction",
-                "miss_distance": "meteoroid node distance minus Earth's heliocentric distance at "
-                "the same longitude (au); positive = trail outside Earth's orbit",
+                "miss_distance": MISS_DISTANCE_CONVENTION,
+                "peak": "weighted median of Earth's closest-point times over the meteoroids that "
+                "give visual meteors (mass of a +6.5 mag meteor or more at their speed)",
                 "time_scale_notes": list(TIME_SCALE_NOTES),
             },
             "encounters": [e.to_json() for e in self.encounters],
             "near_misses": [e.to_json() for e in self.near_misses],
+            "trails": list(self.trails),
             "notes": list(self.notes),
             "cautions": list(CAUTIONS),
         }
 
 
-# --- tasks (top-level so that worker processes can run them) -------------------------------------
-
-
-@dataclass(frozen=True)
-class _Task:
-    key: tuple
-    bodies: object
-    release_t: np.ndarray
-    r: np.ndarray
-    v: np.ndarray
-    beta: np.ndarray
-    out_t: np.ndarray
-    integrator: str
-    dt_days: float
-
-
-def _run_task(task: _Task):
-    return integrate_particles(
-        task.bodies,
-        task.release_t,
-        task.r,
-        task.v,
-        task.beta,
-        task.out_t,
-        integrator=task.integrator,
-        dt_days=task.dt_days,
-    )
-
-
-def _run_all(tasks, workers: int, executor=None, on_done=None):
-    """Run integration tasks, in order of submission; ``on_done(k, n)`` after each one.
-
-    An exception raised by ``on_done`` (e.g. a cancelled job) stops the run: tasks not yet
-    started are cancelled.
-    """
-    n = len(tasks)
-    report = on_done or (lambda k, total: None)
-    if executor is None and (workers <= 1 or n <= 1):
-        out = []
-        for k, t in enumerate(tasks):
-            out.append(_run_task(t))
-            report(k + 1, n)
-        return out
-    own = executor is None
-    if own:
-        ctx = multiprocessing.get_context("spawn")  # safe under a threaded web server
-        executor = cf.ProcessPoolExecutor(max_workers=workers, mp_context=ctx)
-    futures = [executor.submit(_run_task, t) for t in tasks]
-    try:
-        for k, _ in enumerate(cf.as_completed(futures)):
-            report(k + 1, n)
-        return [f.result() for f in futures]
-    except BaseException:
-        for f in futures:
-            f.cancel()
-        raise
-    finally:
-        if own:
-            executor.shutdown(wait=True, cancel_futures=True)
-
-
 # --- the pipeline ------------------------------------------------------------------------------
-
-
-@dataclass
-class _Target:
-    """One trail, one Earth passage of one node, one number of revolutions."""
-
-    trail: int
-    year: int
-    node: str
-    t_earth: float
-    revolutions: int
-    t_parent_node: float
-    fit: tuple = (0.0, 1.0)
-    x_seen: np.ndarray = field(default_factory=lambda: np.zeros(0))  # predicted offsets (days)
-    y_seen: np.ndarray = field(default_factory=lambda: np.zeros(0))  # actual offsets (days)
-    selection: Candidates | None = None
-    selection_scale: float = 1.0  # weight of all candidates in the window / of those integrated
-
-
-#: ZHR values below this are reported as 0 (far below anything an observer could notice).
-ZHR_REPORT_FLOOR = 0.01
-
-
-def _round_sig(x: float, digits: int = 3) -> float:
-    if not np.isfinite(x) or x == 0:
-        return 0.0 if x == 0 else float(x)
-    return float(f"{x:.{digits}g}")
-
-
-def _zhr(x: float) -> float:
-    return 0.0 if x < ZHR_REPORT_FLOOR else _round_sig(x)
-
-
-def _profile_json(p: Profile, n: int = 61) -> list:
-    idx = np.unique(np.linspace(0, len(p.t_tdb_jd) - 1, n).round().astype(int))
-    times = format_utc(p.t_tdb_jd[idx])
-    return [
-        {"time_utc": t, "zhr": _round_sig(float(z))} for t, z in zip(times, p.zhr[idx], strict=True)
-    ]
-
-
-def _year_of(t_tdb_jd: float) -> int:
-    """Calendar year (TDB, astronomical numbering) of a TDB Julian date."""
-    text = format_iso(t_tdb_jd, "TDB")
-    return int(text[:5]) if text.startswith("-") else int(text[:4])
 
 
 def forecast(
@@ -426,23 +284,37 @@ def forecast(
         Called as ``progress(fraction, stage)`` while the forecast runs.
     executor : concurrent.futures.Executor, optional
         Runs the integration chunks (a Dask client's executor works too); default: a local
-        process pool with ``options.workers`` processes.
+        process pool with ``options.workers`` processes (:func:`dynamics.executors.make_executor`).
 
     Returns
     -------
     ForecastResult
-
-    Raises
-    ------
-    dynamics.history.FirstPassage
-        When the parent is on its first passage (no earlier returns: no trails).
     """
     if executor is None and options.workers > 1:
-        # one pool for the pilot and the main stage: worker start-up is paid once
-        ctx = multiprocessing.get_context("spawn")  # safe under a threaded web server
-        with cf.ProcessPoolExecutor(max_workers=options.workers, mp_context=ctx) as pool:
+        with make_executor(options.workers) as pool:  # one pool for every stage
             return _forecast(orbit, options, progress=progress, executor=pool)
     return _forecast(orbit, options, progress=progress, executor=executor)
+
+
+@dataclass
+class _Trail:
+    """One parent return's candidate pool and how it was made."""
+
+    ret: ParentReturn
+    pool: Candidates
+    model: EjectionModel
+    n_drawn: int
+    event: EjectionEvent | None
+    cls: np.ndarray = field(repr=False)
+    edges: np.ndarray = field(repr=False, default_factory=lambda: np.zeros(0))
+    batches: int = 1
+
+
+def _seed_for(seed: int, tp_tdb_jd: float, batch: int = 0) -> np.random.SeedSequence:
+    """Seed of a trail's draws: the user's seed and the trail's perihelion day (any date, also
+    before JD 0, maps to a non-negative integer), and the batch of candidates."""
+    key = [int(seed), int(round(tp_tdb_jd)) % 2**32]
+    return np.random.SeedSequence(key + [batch] if batch else key)
 
 
 def _forecast(
@@ -463,6 +335,9 @@ def _forecast(
     if options.last_year < options.first_year:
         raise ValueError("last_year must not precede first_year")
     calibration = None
+    if orbit.ejection_events:  # events of the orbit file join those of the options
+        extra = tuple(ev for ev in orbit.ejection_events if ev not in options.events)
+        options = replace(options, events=tuple(options.events) + extra)
     if options.calibration is not None:
         calibration, options = _calibrate(orbit, options, executor)
     y_start, _ = calendar_year_tdb_jd(options.first_year)
@@ -470,159 +345,100 @@ def _forecast(
     say(0.0, "parent history")
     t_min = y_start - options.max_trail_age_years * DAYS_PER_JULIAN_YEAR
     if options.trails:  # only the named trails: no need to go further back than the oldest
-        t_min = calendar_year_tdb_jd(min(options.trails))[0] - 400.0
+        t_min = min(t_min, calendar_year_tdb_jd(min(options.trails))[0] - 400.0)
     period = orbit.period_days if np.isfinite(orbit.period_days) else 0.0
     t_max = y_end + min(1.3 * period, 300 * DAYS_PER_JULIAN_YEAR) + 60.0
     try:
-        history = parent_history(
+        history = cached_parent_history(
             orbit, t_min, t_max, active_r_max_au=options.ejection.active_r_max_au
         )
     except FirstPassage as exc:  # a result, not an error: no earlier returns, no trails
         history = ParentHistory((), orbit.epoch_tdb_jd, None, (str(exc),))
     returns = history.returns
     notes = list(history.notes)
-
-    # Which trails: returns before the forecast span, with an active arc.
-    trail_ids = []
-    for k, ret in enumerate(returns):
-        if ret.tp_tdb_jd >= y_end or len(ret.arc_t_tdb_jd) == 0:
-            continue
-        if options.trails is not None:
-            if _year_of(ret.tp_tdb_jd) not in options.trails:
-                continue
-        elif ret.tp_tdb_jd < t_min and k != _last_before(returns, y_start):
-            continue
-        trail_ids.append(k)
-    if not trail_ids:
-        notes.append("no parent return in the requested span has an active arc: no trails")
+    trail_ids, scope_notes = _trails_in_scope(returns, options, t_min, y_start, y_end)
+    notes += scope_notes
 
     say(0.05, "targeting")
-    targets = _targets(returns, trail_ids, options)
+    targets = find_targets(returns, trail_ids, options.first_year, options.last_year)
     if trail_ids and not targets:
-        notes.append(
-            "no trail can reach Earth's path in the requested years with the ejection model"
-        )
+        notes.append(_no_target_note(returns, trail_ids))
 
-    # Candidates per trail (deterministic per trail).
-    pools: dict[int, Candidates] = {}
-    rngs: dict[int, np.random.Generator] = {}
-    drawn = 0
+    trails: dict[int, _Trail] = {}
     for k in sorted({t.trail for t in targets}):
-        rngs[k] = np.random.default_rng(
-            np.random.SeedSequence([options.seed, int(round(returns[k].tp_tdb_jd))])
-        )
-        pools[k] = draw_candidates(returns[k], options.ejection, options.candidates, rngs[k])
-        drawn += options.candidates
-
-    # Pilot: integrate a spread of candidates per target, fit real vs predicted arrival.
-    pilot_tasks, pilot_meta = [], []
-    for ti, tg in enumerate(targets):
-        pool = pools[tg.trail]
-        x = _predicted_offset(pool, tg)
-        inside = np.flatnonzero(np.abs(x) <= _pilot_window(options, tg))
-        if len(inside) == 0:
-            continue
-        order = inside[np.argsort(x[inside])]
-        pick = order[
-            np.unique(np.linspace(0, len(order) - 1, options.pilot_particles).round().astype(int))
-        ]
-        sel = pool.take(pick)
-        out_t = _output_times(
-            returns[tg.trail], tg.t_earth, _pilot_window(options, tg) + 40.0, 5.0, options.dt_days
-        )
-        pilot_tasks.append(_make_task(("pilot", ti), returns[tg.trail], sel, out_t, options))
-        pilot_meta.append((ti, sel, x[pick]))
-    say(0.1, "pilot integration")
-    pilot_results = _run_all(
-        pilot_tasks,
-        options.workers,
-        executor,
-        lambda k, n: say(0.1 + 0.2 * k / n, "pilot integration"),
-    )
-    integrated = sum(len(t.beta) for t in pilot_tasks)
-    for (ti, sel, x_pred), snaps in zip(pilot_meta, pilot_results, strict=True):
-        tg = targets[ti]
-        cr = node_crossings(snaps, sel.beta, tg.node)
-        tg.x_seen = np.asarray(x_pred, dtype=float)
-        tg.y_seen = cr.t_cross_tdb_jd - tg.t_earth
-        tg.fit = _robust_line(tg.x_seen, tg.y_seen)
-        if not (0.2 <= tg.fit[1] <= 5.0):  # no sensible calibration: fall back to the prediction
-            tg.fit = (0.0, 1.0)
-
-    # Main integration, then up to REFINEMENT_ROUNDS rounds for targets where most meteoroids
-    # missed: the arrivals of everything integrated so far map the prediction to the real one.
-    per_target: dict[int, list] = {}
-    used: dict[int, np.ndarray] = {}
-    for round_ in range(1 + REFINEMENT_ROUNDS):
-        # progress: selection 0.30, main integration 0.35-0.75, each refinement round 0.05 more
-        lo, span = (0.35, 0.4) if round_ == 0 else (0.75 + 0.05 * (round_ - 1), 0.05)
-        say(0.3 if round_ == 0 else lo, "selection" if round_ == 0 else "refinement")
-        main_tasks, main_meta = [], []
-        for ti, tg in enumerate(targets):
-            if round_ > 0 and not _needs_refinement(tg, per_target.get(ti, []), options):
-                continue
-            pool = pools[tg.trail]
-            x_all = _predicted_offset(pool, tg)
-            ok = np.abs(_arrival_model(tg)(x_all)) <= options.window_days
-            taken = used.get(ti, np.zeros(len(pool), dtype=bool))
-            idx = np.flatnonzero(ok & ~taken)[: options.particles]
-            if len(idx) == 0:
-                continue
-            taken = taken.copy()
-            taken[idx] = True
-            used[ti] = taken
-            new = pool.take(idx)
-            tg.selection = new if tg.selection is None else _concat_candidates(tg.selection, new)
-            tg.selection_scale = float(pool.weight[ok].sum() / pool.weight[taken].sum())
-            out_t = _output_times(
-                returns[tg.trail], tg.t_earth, options.window_days + 30.0, 2.0, options.dt_days
+        ret = returns[k]
+        rng = np.random.default_rng(_seed_for(options.seed, ret.tp_tdb_jd))
+        event = event_of_return(ret, options.events)
+        pool = draw_candidates(ret, options.ejection, options.candidates, rng, event=event)
+        model = options.ejection
+        if event is not None:
+            model = replace(
+                model,
+                mass_min_g=event.mass_min_g or model.mass_min_g,
+                mass_max_g=event.mass_max_g or model.mass_max_g,
             )
-            for start in range(0, len(idx), options.chunk_size):
-                chunk = new.take(np.arange(start, min(start + options.chunk_size, len(idx))))
-                main_tasks.append(
-                    _make_task(
-                        ("main", round_, ti, start), returns[tg.trail], chunk, out_t, options
-                    )
-                )
-                main_meta.append((ti, x_all[idx[start : start + options.chunk_size]]))
-        results = _run_all(
-            main_tasks,
-            options.workers,
-            executor,
-            lambda k, n, lo=lo, span=span: say(lo + span * k / n, "integration"),
+        edges = beta_class_edges(pool.beta)
+        trails[k] = _Trail(
+            ret, pool, model, options.candidates, event, beta_classes(pool.beta, edges), edges
         )
-        integrated += sum(len(t.beta) for t in main_tasks)
-        for (ti, x_chunk), task, snaps in zip(main_meta, main_tasks, results, strict=True):
-            cr = node_crossings(snaps, task.beta, targets[ti].node)
-            per_target.setdefault(ti, []).append(cr)
-            tg = targets[ti]
-            tg.x_seen = np.concatenate([tg.x_seen, x_chunk])
-            tg.y_seen = np.concatenate([tg.y_seen, cr.t_cross_tdb_jd - tg.t_earth])
-
-    # Assemble per target.
-    say(0.9, "encounters")
-    encounters, near = [], []
-    contributing = 0
-    for ti, parts in per_target.items():
-        tg = targets[ti]
-        cr = _concat_crossings(parts)
-        w = tg.selection.weight
-        summary = _summarise(tg, returns[tg.trail], cr, w, options)
-        if summary is None:
+    for ev in options.events:
+        if not any(t.event is ev for t in trails.values()):
             notes.append(
-                f"{_year_of(returns[tg.trail].tp_tdb_jd)} trail ({tg.revolutions} rev) in {tg.year}: "
-                "the targeting could not place meteoroids at Earth's passage; whether this trail "
-                "comes near Earth then is unresolved, not ruled out"
+                f"the {ev.kind} of {format_iso(ev.t_tdb_jd, 'TDB')[:10]} falls in no followed "
+                "trail's active arc: it was not used"
             )
+
+    integrated = _pilot(targets, trails, options, executor, say)
+    _grow_pools(targets, trails, options)
+    drawn = sum(tr.n_drawn for tr in trails.values())
+    per_target, picked, integrated = _main_rounds(
+        targets, trails, options, executor, say, integrated
+    )
+
+    say(0.9, "encounters")
+    encounters, near, outcomes = [], [], []
+    contributing = 0
+    for ti, tg in enumerate(targets):
+        tr = trails[tg.trail]
+        parts = per_target.get(ti, [])
+        enc = None
+        slope = float("nan")
+        if parts:
+            cr = _concat_crossings(parts)
+            idx = np.concatenate(picked[ti])
+            x = predicted_offset(tr.pool, tg)
+            amap = ArrivalMap(tg.x_seen, tg.y_seen, tg.c_seen, BETA_CLASSES)
+            lag = cr.t_cross_tdb_jd - tg.t_earth
+            hit = np.isfinite(lag) & (np.abs(lag) <= options.window_days)
+            if hit.any():
+                slope = float(np.nanmedian(amap.local_slope(x[idx[hit]], tr.cls[idx[hit]])))
+            enc = summarise(
+                tg,
+                tr.ret.tp_tdb_jd,
+                cr,
+                tr.pool.take(idx),
+                1.0 - tg.keep_prob[idx],
+                options,
+                tr.model,
+                tr.n_drawn,
+                slope,
+                event=None if tr.event is None else tr.event.kind,
+            )
+        outcome = _outcome(tg, tr, enc, options)
+        outcomes.append(outcome)
+        if enc is None:
             continue
-        contributing += summary.particles
-        reach = ENCOUNTER_SIGMAS * summary.miss_distance_spread_au + EARTH_RADIUS_AU
-        if abs(summary.miss_distance_au) <= min(ENCOUNTER_MAX_MISS_AU, reach):
-            encounters.append(summary)
-        elif abs(summary.miss_distance_au) <= NEAR_MISS_MAX_AU:
-            near.append(summary)
+        contributing += enc.particles
+        if outcome["outcome"] == "encounter":
+            encounters.append(enc)
+        elif outcome["outcome"] == "near miss":
+            near.append(enc)
+    outcomes = _one_row_per_passage(outcomes, targets)
+    if trail_ids and targets and not encounters:
+        notes.append(_nothing_found_note(outcomes))
     encounters.sort(key=lambda e: e.peak_tdb_jd)
     near.sort(key=lambda e: e.peak_tdb_jd)
+    outcomes.sort(key=lambda o: (o["year"], o["trail"]["perihelion_year"], o["revolutions"]))
     say(1.0, "done")
     return ForecastResult(
         parent=orbit,
@@ -635,6 +451,363 @@ def _forecast(
         history=history,
         notes=tuple(notes),
         calibration=calibration,
+        trails=tuple(outcomes),
+    )
+
+
+def _trails_in_scope(returns, options, t_min, y_start, y_end):
+    """Indices of the returns whose trails are followed, and notes on what was left out."""
+    notes = []
+    active = [k for k, r in enumerate(returns) if r.tp_tdb_jd < y_end and len(r.arc_t_tdb_jd)]
+    inactive = [
+        year_of(r.tp_tdb_jd) for r in returns if r.tp_tdb_jd < y_end and len(r.arc_t_tdb_jd) == 0
+    ]
+    if inactive:
+        notes.append(
+            f"returns of {', '.join(map(str, inactive))} came no closer to the Sun than "
+            f"{options.ejection.active_r_max_au} au: no active arc, no trail"
+        )
+    if options.trails is not None:
+        ids = [k for k in active if year_of(returns[k].tp_tdb_jd) in options.trails]
+        found = {year_of(returns[k].tp_tdb_jd) for k in ids}
+        missing = sorted(set(options.trails) - found)
+        if missing:
+            have = ", ".join(str(year_of(returns[k].tp_tdb_jd)) for k in active) or "none"
+            notes.append(
+                f"no active parent return in {', '.join(map(str, missing))} (returns found: {have})"
+            )
+    else:
+        recent = [k for k in active if returns[k].tp_tdb_jd < y_start][-2:]
+        ids = [k for k in active if returns[k].tp_tdb_jd >= t_min or k in recent]
+        left = [k for k in active if k not in ids]
+        if left:
+            notes.append(
+                f"{len(left)} older returns ({year_of(returns[left[0]].tp_tdb_jd)} to "
+                f"{year_of(returns[left[-1]].tp_tdb_jd)}) lie beyond the trail-age limit of "
+                f"{options.max_trail_age_years:g} years and were not followed"
+            )
+    if not ids:
+        notes.append("no parent return in scope has an active arc: no trails")
+    return ids, notes
+
+
+def _no_target_note(returns, trail_ids) -> str:
+    from .crossings import node_of_orbit
+
+    el = returns[trail_ids[-1]].elements
+    parts = []
+    for which in ("ascending", "descending"):
+        r, _ = node_of_orbit(
+            float(el.q_au),
+            float(el.e),
+            float(el.incl_deg),
+            float(el.node_deg),
+            float(el.peri_deg),
+            which,
+        )
+        parts.append(f"{which} node at {float(r):.3f} au" if np.isfinite(r) else f"no {which} node")
+    return (
+        f"no trail can meet Earth in the requested years: the parent's {' and '.join(parts)} "
+        f"from the Sun, none within {NODE_MAX_DISTANCE_AU} au of Earth's orbit"
+    )
+
+
+def _pilot(targets, trails, options, executor, say) -> int:
+    """Integrate pilot meteoroids per target, widening the span until arrivals bracket Earth's
+    passage (at most PILOT_EXPANSIONS times). Returns the number integrated."""
+    integrated = 0
+    per_class = max(4, options.pilot_particles // BETA_CLASSES)
+    todo = []
+    for ti, tg in enumerate(targets):
+        tr = trails[tg.trail]
+        tg.span_days = max(options.pilot_window_days, 30.0 * tg.revolutions)
+        tg.keep_prob = np.ones(len(tr.pool))
+        x = predicted_offset(tr.pool, tg)
+        todo.append((ti, -tg.span_days, tg.span_days, per_class))
+        tg.x_pool = x
+    for round_ in range(1 + PILOT_EXPANSIONS):
+        tasks, meta = [], []
+        for ti, lo, hi, n_cls in todo:
+            tg = targets[ti]
+            tr = trails[tg.trail]
+            seen = np.zeros(len(tr.pool), dtype=bool)
+            seen[tg.idx_seen] = True
+            pick = pilot_pick(tg.x_pool, tr.cls, lo, hi, n_cls, seen)
+            if len(pick) == 0:
+                continue
+            tg.pilot_rounds += 1
+            half = tg.span_days + 40.0
+            step = max(5.0, tg.span_days * PILOT_STEP_PER_SPAN)
+            out_t = _output_times(tr.ret, tg.t_earth, half, step, options.dt_days)
+            for start in range(0, len(pick), options.chunk_size):
+                sub = pick[start : start + options.chunk_size]
+                tasks.append(
+                    _make_task(
+                        ("pilot", ti, round_, start), tr.ret, tr.pool.take(sub), out_t, options
+                    )
+                )
+                meta.append((ti, sub))
+        if not tasks:
+            break
+        say(0.1 + 0.04 * round_, "pilot integration")
+        results = run_tasks(tasks, executor)
+        integrated += sum(len(t.beta) for t in tasks)
+        for (ti, sub), task, snaps in zip(meta, tasks, results, strict=True):
+            _record(
+                targets[ti],
+                trails[targets[ti].trail],
+                sub,
+                node_crossings(snaps, task.beta, targets[ti].node),
+            )
+        todo = []
+        for ti, tg in enumerate(targets):
+            if round_ >= PILOT_EXPANSIONS or len(tg.idx_seen) == 0:
+                continue
+            ok, side = ArrivalMap(tg.x_seen, tg.y_seen, tg.c_seen, BETA_CLASSES).brackets()
+            if ok or side == 0:
+                continue
+            old = tg.span_days
+            tg.span_days = old * PILOT_EXPANSION_FACTOR
+            n_cls = max(2, PILOT_EXPANSION_PARTICLES // BETA_CLASSES)
+            if side < 0:  # every meteoroid arrived late: look at earlier predicted arrivals
+                todo.append((ti, -tg.span_days, float(np.nanmin(tg.x_seen)) - 1e-9, n_cls))
+            else:
+                todo.append((ti, float(np.nanmax(tg.x_seen)) + 1e-9, tg.span_days, n_cls))
+    return integrated
+
+
+def _grow_pools(targets, trails, options) -> None:
+    """Draw more candidates for trails whose mapped arrivals leave fewer than the particle
+    budget within the window (one-revolution dust of long-period parents spreads over
+    centuries of arrival: a few in 1e4 land within weeks of Earth's passage). Doubling batches,
+    up to MAX_CANDIDATES_PER_TRAIL; every batch has its own seed, so results stay reproducible,
+    and the number drawn enters the activity's weights."""
+    for k, tr in trails.items():
+        tis = [ti for ti, tg in enumerate(targets) if tg.trail == k and len(tg.idx_seen)]
+        while tr.n_drawn < MAX_CANDIDATES_PER_TRAIL and tis:
+            short = False
+            for ti in tis:
+                tg = targets[ti]
+                amap = ArrivalMap(tg.x_seen, tg.y_seen, tg.c_seen, BETA_CLASSES)
+                seen = np.zeros(len(tr.pool), dtype=bool)
+                seen[tg.idx_seen] = True
+                _, eligible, _ = select_for_window(
+                    amap, tg.x_pool, tr.cls, options.window_days, seen, options.particles
+                )
+                short |= len(eligible) < options.particles
+            if not short:
+                break
+            n_new = min(tr.n_drawn, MAX_CANDIDATES_PER_TRAIL - tr.n_drawn)
+            rng = np.random.default_rng(_seed_for(options.seed, tr.ret.tp_tdb_jd, tr.batches))
+            new = draw_candidates(tr.ret, options.ejection, n_new, rng, event=tr.event)
+            tr.batches += 1
+            tr.n_drawn += n_new
+            tr.pool = _concat_candidates(tr.pool, new)
+            tr.cls = np.concatenate([tr.cls, beta_classes(new.beta, tr.edges)])
+            for ti in tis:
+                tg = targets[ti]
+                tg.x_pool = np.concatenate([tg.x_pool, predicted_offset(new, tg)])
+                tg.keep_prob = np.concatenate([tg.keep_prob, np.ones(len(new))])
+            for ti, tg in enumerate(targets):  # targets of this trail not piloted: keep shapes
+                if tg.trail == k and ti not in tis:
+                    tg.x_pool = np.concatenate([tg.x_pool, predicted_offset(new, tg)])
+                    tg.keep_prob = np.concatenate([tg.keep_prob, np.ones(len(new))])
+
+
+def _concat_candidates(a: Candidates, b: Candidates) -> Candidates:
+    return Candidates(
+        *(np.concatenate([getattr(a, f), getattr(b, f)]) for f in Candidates.__dataclass_fields__)
+    )
+
+
+def _record(tg: Target, tr: _Trail, idx, cr: Crossings) -> None:
+    """Keep what an integration taught about a target's arrival map."""
+    tg.x_seen = np.concatenate([tg.x_seen, tg.x_pool[idx]])
+    tg.y_seen = np.concatenate([tg.y_seen, cr.t_cross_tdb_jd - tg.t_earth])
+    tg.c_seen = np.concatenate([tg.c_seen, tr.cls[idx]])
+    tg.idx_seen = np.concatenate([tg.idx_seen, idx])
+    tg.miss_seen = np.concatenate([tg.miss_seen, cr.miss_distance_au])
+
+
+def _main_rounds(targets, trails, options, executor, say, integrated):
+    """Targeted integration, then refinement rounds for targets whose meteoroids mostly missed.
+
+    Returns per-target crossings, the pool indices behind them, and the running count of
+    integrated meteoroids.
+    """
+    per_target: dict[int, list] = {}
+    picked: dict[int, list] = {}
+    taken = {ti: np.zeros(len(trails[tg.trail].pool), dtype=bool) for ti, tg in enumerate(targets)}
+    for ti, tg in enumerate(targets):
+        taken[ti][tg.idx_seen] = True  # pilot meteoroids inform the map, never the activity
+        tg.selection_mode = "shooting"
+    active = list(range(len(targets)))
+    for round_ in range(1 + REFINEMENT_ROUNDS):
+        lo, span = (0.35, 0.4) if round_ == 0 else (0.75 + 0.05 * (round_ - 1), 0.05)
+        say(0.3 if round_ == 0 else lo, "selection" if round_ == 0 else "refinement")
+        tasks, meta = [], []
+        for ti in active:
+            tg = targets[ti]
+            tr = trails[tg.trail]
+            amap = ArrivalMap(tg.x_seen, tg.y_seen, tg.c_seen, BETA_CLASSES)
+            pick, eligible, frac = select_for_window(
+                amap, tg.x_pool, tr.cls, options.window_days, taken[ti], options.particles
+            )
+            if len(pick) == 0 and round_ == 0 and len(tg.idx_seen):
+                # shooting found no branch through Earth's passage: sample the whole pilot
+                # span uniformly instead, so that what is reported rests on real arrivals
+                inside = np.flatnonzero(
+                    (np.abs(tg.x_pool) <= tg.span_days) & np.isfinite(tg.x_pool) & ~taken[ti]
+                )
+                eligible, pick = inside, inside[: options.particles]
+                frac = len(pick) / max(1, len(inside))
+                tg.selection_mode = (
+                    "uniform fallback (shooting found no arrival at Earth's passage)"
+                )
+            if len(pick) == 0:
+                continue
+            tg.keep_prob[eligible] *= 1.0 - frac
+            taken[ti][pick] = True
+            tg.rounds += 1
+            out_t = _output_times(
+                tr.ret, tg.t_earth, options.window_days + 30.0, 2.0, options.dt_days
+            )
+            for start in range(0, len(pick), options.chunk_size):
+                sub = pick[start : start + options.chunk_size]
+                tasks.append(
+                    _make_task(
+                        ("main", round_, ti, start), tr.ret, tr.pool.take(sub), out_t, options
+                    )
+                )
+                meta.append((ti, sub))
+        if not tasks:
+            break
+        results = run_tasks(
+            tasks,
+            executor,
+            lambda k, n, lo=lo, span=span: say(lo + span * k / n, "integration"),
+        )
+        integrated += sum(len(t.beta) for t in tasks)
+        for (ti, sub), task, snaps in zip(meta, tasks, results, strict=True):
+            tg = targets[ti]
+            cr = node_crossings(snaps, task.beta, tg.node)
+            per_target.setdefault(ti, []).append(cr)
+            picked.setdefault(ti, []).append(sub)
+            _record(tg, trails[tg.trail], sub, cr)
+        active = [ti for ti in active if _needs_refinement(per_target.get(ti, []), options)]
+    return per_target, picked, integrated
+
+
+def _needs_refinement(parts, options) -> bool:
+    """True when fewer than half the meteoroids integrated for a target met Earth's passage."""
+    if not parts:
+        return False
+    lag = np.concatenate([p.t_cross_tdb_jd - p.t_earth_tdb_jd for p in parts])
+    hit = np.isfinite(lag) & (np.abs(lag) <= options.window_days)
+    return hit.sum() < 0.5 * min(len(lag), options.particles)
+
+
+def _outcome(tg: Target, tr: _Trail, enc, options) -> dict:
+    """What became of one trail passage: a stated result whatever happened."""
+    lag = tg.y_seen
+    miss = tg.miss_seen
+    inside = np.isfinite(lag) & (np.abs(lag) <= options.window_days) & np.isfinite(miss)
+    tried = {
+        "pilot_rounds": tg.pilot_rounds,
+        "pilot_span_days": round(tg.span_days, 1),
+        "selection": tg.selection_mode,
+        "selection_rounds": tg.rounds,
+        "meteoroids_integrated": int(len(tg.idx_seen)),
+    }
+    row = {
+        "year": tg.year,
+        "trail": {
+            "perihelion_year": year_of(tr.ret.tp_tdb_jd),
+            "perihelion_tdb": format_iso(tr.ret.tp_tdb_jd, "TDB"),
+            "event": None if tr.event is None else tr.event.kind,
+        },
+        "revolutions": tg.revolutions,
+        "node": tg.node,
+        "earth_passage_tdb": format_iso(tg.t_earth, "TDB"),
+        "tried": tried,
+    }
+    if enc is not None:
+        m = abs(enc.miss_distance_au)
+        reach = ENCOUNTER_SIGMAS * enc.miss_distance_spread_au + EARTH_RADIUS_AU
+        if m <= min(ENCOUNTER_MAX_MISS_AU, reach):
+            kind = "encounter"
+        elif m <= NEAR_MISS_MAX_AU:
+            kind = "near miss"
+        else:
+            kind = "distant"
+        row.update(
+            outcome=kind,
+            miss_distance_au=round(enc.miss_distance_au, 6),
+            peak_tdb=format_iso(enc.peak_tdb_jd, "TDB"),
+            meteoroids_at_earth=enc.particles,
+        )
+        return row
+    if inside.any():
+        j = np.flatnonzero(inside)[np.argmin(np.abs(miss[inside]))]
+        row.update(
+            outcome="not reached",
+            closest_miss_distance_au=round(float(miss[j]), 6),
+            closest_lag_days=round(float(lag[j]), 2),
+            reason=f"fewer than {3} meteoroids within {options.window_days:g} days of Earth's passage",
+        )
+        return row
+    fin = np.isfinite(lag)
+    if fin.any():
+        j = np.flatnonzero(fin)[np.argmin(np.abs(lag[fin]))]
+        row.update(
+            outcome="not reached",
+            closest_miss_distance_au=None if not np.isfinite(miss[j]) else round(float(miss[j]), 6),
+            closest_lag_days=round(float(lag[j]), 2),
+            reason="no integrated meteoroid arrived within "
+            f"{options.window_days:g} days of Earth's passage",
+        )
+    else:
+        row.update(
+            outcome="not reached",
+            closest_miss_distance_au=None,
+            closest_lag_days=None,
+            reason="no candidate release could be integrated to this passage "
+            "(none bound, or none predicted within the pilot span)",
+        )
+    return row
+
+
+def _one_row_per_passage(outcomes, targets) -> list[dict]:
+    """Drop revolution counts that no candidate could reach when another count of the same
+    trail and Earth passage was integrated; if none was, keep the one whose parent node
+    passage lies nearest Earth's (the trail's natural revolution count)."""
+    groups: dict[tuple, list[int]] = {}
+    for k, tg in enumerate(targets):
+        groups.setdefault((tg.trail, tg.year, tg.node, round(tg.t_earth, 3)), []).append(k)
+    keep = []
+    for ks in groups.values():
+        tried = [k for k in ks if outcomes[k]["tried"]["meteoroids_integrated"] > 0]
+        if tried:
+            keep += tried
+        else:
+            keep.append(min(ks, key=lambda k: abs(targets[k].t_parent_node - targets[k].t_earth)))
+    return [outcomes[k] for k in sorted(keep)]
+
+
+def _nothing_found_note(outcomes) -> str:
+    counts: dict[str, int] = {}
+    for o in outcomes:
+        counts[o["outcome"]] = counts.get(o["outcome"], 0) + 1
+    said = ", ".join(f"{v} {k}" for k, v in sorted(counts.items()))
+    closest = [
+        abs(o.get("miss_distance_au") or o.get("closest_miss_distance_au") or np.inf)
+        for o in outcomes
+    ]
+    best = min(closest) if closest else np.inf
+    tail = f"; the closest simulated approach was {best:.4f} au" if np.isfinite(best) else ""
+    return (
+        f"no encounter: {len(outcomes)} trail passages were followed ({said}){tail}; "
+        "see 'trails' for each one and what was tried"
     )
 
 
@@ -653,7 +826,7 @@ def _calibrate(orbit, options, executor):
     rows = [
         e
         for e in res.encounters + res.near_misses
-        if _year_of(e.trail_perihelion_tdb_jd) == cal.trail_year
+        if year_of(e.trail_perihelion_tdb_jd) == cal.trail_year
     ]
     if not rows or rows[0].zhr_estimate <= 0:
         raise CalibrationFailed(
@@ -663,120 +836,10 @@ def _calibrate(orbit, options, executor):
     factor = cal.zhr / model_zhr
     info = {
         "input": {"year": cal.year, "trail_year": cal.trail_year, "observed_zhr": cal.zhr},
-        "modelled_zhr": _round_sig(model_zhr),
-        "factor": _round_sig(factor, 4),
+        "modelled_zhr": round_sig(model_zhr),
+        "factor": round_sig(factor, 4),
     }
     return info, replace(options, zhr_scale=factor)
-
-
-def _last_before(returns, t):
-    ks = [k for k, r in enumerate(returns) if r.tp_tdb_jd < t]
-    return ks[-1] if ks else -1
-
-
-def _targets(returns, trail_ids, options) -> list[_Target]:
-    """Every (trail, Earth passage, node, revolutions) combination worth a pilot."""
-    if not trail_ids:
-        return []
-    out = []
-    for year in range(options.first_year, options.last_year + 1):
-        y0, y1 = calendar_year_tdb_jd(year)
-        # node geometry from the parent return nearest this year
-        ref = min(returns, key=lambda r: abs(r.tp_tdb_jd - 0.5 * (y0 + y1)))
-        for node, _r_node, lon in nodes_near_earth(ref, NODE_MAX_DISTANCE_AU):
-            for t_e in np.atleast_1d(times_of_solar_longitude_tdb((lon - 180.0) % 360.0, y0, y1)):
-                for k in trail_ids:
-                    for j in range(k, len(returns)):
-                        t_node = parent_node_time(returns[j], node)
-                        if t_node > t_e + 0.75 * returns[j].period_days:
-                            break
-                        if t_node < returns[k].tp_tdb_jd - 200.0:
-                            continue
-                        out.append(_Target(k, year, node, float(t_e), j - k, t_node))
-    return out
-
-
-def _predicted_offset(pool: Candidates, tg: _Target) -> np.ndarray:
-    """Predicted node arrival minus Earth's passage (days), zeroth order in perturbations."""
-    return tg.t_parent_node + tg.revolutions * pool.dperiod_days + pool.dtp_days - tg.t_earth
-
-
-def _pilot_window(options, tg) -> float:
-    """Half-width (days) of the pilot's span of predicted arrivals; older trails scatter more."""
-    return max(options.pilot_window_days, 30.0 * tg.revolutions)
-
-
-def _arrival_model(tg):
-    """Map a candidate's zeroth-order predicted arrival offset to its expected real one (days).
-
-    Inside the range of integrated meteoroids: piecewise-linear interpolation of their real
-    offsets against their predictions (planetary perturbations make the relation bend, and for
-    old trails fold); outside it: the robust straight line.
-    """
-    a, b = tg.fit
-    good = np.isfinite(tg.x_seen) & np.isfinite(tg.y_seen)
-    xs, ys = tg.x_seen[good], tg.y_seen[good]
-    order = np.argsort(xs, kind="stable")
-    xs, ys = xs[order], ys[order]
-    keep = np.concatenate([[True], np.diff(xs) > 0]) if len(xs) else np.zeros(0, dtype=bool)
-    xs, ys = xs[keep], ys[keep]
-
-    def predict(x):
-        x = np.asarray(x, dtype=float)
-        out = a + b * x
-        if len(xs) >= 5:
-            inside = (x >= xs[0]) & (x <= xs[-1])
-            out[inside] = np.interp(x[inside], xs, ys)
-            # beyond either end: the secant from the end cluster (meteoroids within 15 days of
-            # it, averaged) to the first ones at least 30 days farther in
-            for sign, sel in ((1.0, x < xs[0]), (-1.0, x > xs[-1])):
-                if not np.any(sel):
-                    continue
-                dist = sign * (xs - (xs[0] if sign > 0 else xs[-1]))
-                near, far = dist <= 15.0, dist >= 30.0
-                if not np.any(far):
-                    continue
-                x0, y0 = xs[near].mean(), ys[near].mean()
-                k = np.flatnonzero(far)[0 if sign > 0 else -1]
-                slope = (ys[k] - y0) / (xs[k] - x0)
-                if slope > 0.05:  # a usable local relation; else keep the global line
-                    out[sel] = y0 + slope * (x[sel] - x0)
-        return out
-
-    return predict
-
-
-def _needs_refinement(tg, parts, options) -> bool:
-    """True when fewer than half the meteoroids integrated for a target met Earth's passage."""
-    if tg.selection is None or not parts:
-        return False
-    lag = np.concatenate([p.t_cross_tdb_jd - p.t_earth_tdb_jd for p in parts])
-    hit = np.isfinite(lag) & (np.abs(lag) <= options.window_days)
-    return hit.sum() < 0.5 * min(len(lag), options.particles)
-
-
-def _concat_candidates(a: Candidates, b: Candidates) -> Candidates:
-    return Candidates(
-        *(np.concatenate([getattr(a, f), getattr(b, f)]) for f in Candidates.__dataclass_fields__)
-    )
-
-
-def _robust_line(x, y):
-    """Fit y = a + b x, dropping outliers (planetary close encounters) beyond 3 robust sigmas."""
-    good = np.isfinite(x) & np.isfinite(y)
-    x, y = x[good], y[good]
-    if len(x) < 5:
-        return (float(np.median(y - x)) if len(x) else 0.0, 1.0)
-    for _ in range(3):
-        b, a = np.polyfit(x, y, 1)
-        res = y - (a + b * x)
-        mad = 1.4826 * np.median(np.abs(res - np.median(res))) + 1e-6
-        keep = np.abs(res) <= 3.0 * mad
-        if keep.all() or keep.sum() < 5:
-            break
-        x, y = x[keep], y[keep]
-    b, a = np.polyfit(x, y, 1)
-    return float(a), float(b)
 
 
 def _output_times(ret: ParentReturn, t_center, half_width, step, dt_days):
@@ -785,9 +848,9 @@ def _output_times(ret: ParentReturn, t_center, half_width, step, dt_days):
     return np.unique(step_grid(t0, raw, dt_days))
 
 
-def _make_task(key, ret: ParentReturn, sel: Candidates, out_t, options) -> _Task:
+def _make_task(key, ret: ParentReturn, sel: Candidates, out_t, options) -> Task:
     t0 = ret.bodies_at_arc_start.t_tdb_jd
-    return _Task(
+    return Task(
         key=key,
         bodies=ret.bodies_at_arc_start,
         release_t=step_grid(t0, sel.release_t_tdb_jd, options.dt_days),
@@ -806,247 +869,14 @@ def _concat_crossings(parts) -> Crossings:
     )
 
 
-def _summarise(
-    tg: _Target, ret: ParentReturn, cr: Crossings, weights, options
-) -> TrailEncounter | None:
-    """Trail-level numbers from the particles that meet Earth's passage window."""
-    lag = cr.t_cross_tdb_jd - cr.t_earth_tdb_jd
-    # at the node within the window of Earth's passage, and Earth's passage is this target's
-    same_passage = np.abs(cr.t_earth_tdb_jd - tg.t_earth) <= 30.0
-    keep = np.isfinite(lag) & (np.abs(lag) <= options.window_days) & same_passage
-    n = int(keep.sum())
-    if n < 3:
-        return None
-    te = cr.t_earth_tdb_jd[keep]
-    miss = cr.miss_distance_au[keep]
-    peak = float(np.median(te))
-    q16, q84 = np.percentile(miss, [16, 84])
-    sigma_t = 1.4826 * float(np.median(np.abs(te - peak)))
-    ra, dec = circular_median_radec(cr.ra_deg[keep], cr.dec_deg[keep])
-    a, b = tg.fit
-    dilution = 1.0 / max(1.0, abs(b) * tg.revolutions)
-    sub = Crossings(*(getattr(cr, f)[keep] for f in Crossings.__dataclass_fields__))
-    met = tg.selection.take(np.flatnonzero(keep))
-    model = options.ejection
-    r_pop = float(population_index_from_mass_index(model.mass_index))
-    counts = (
-        meteoroids_per_particle(
-            met.mass_g,
-            model.mass_index,
-            model.mass_min_g,
-            model.mass_max_g,
-            options.candidates,
-            options.dust_mass(),
-        )
-        * tg.selection_scale
-        * options.zhr_scale
-    )
-    counts = np.where(met.mass_g >= limiting_mass_g(sub.vinf_km_s), counts, 0.0)
-    _, v_e = heliocentric_state("earth", peak)
-    prof = activity_profile(
-        sub.t_earth_tdb_jd,
-        sub.miss_distance_au,
-        sub.vz_au_d,
-        sub.vg_km_s,
-        counts,
-        options.window_days,
-        float(np.linalg.norm(v_e)),
-        r_pop,
-        rng=options.seed,
-    )
-    mode = "calibrated" if options.calibration is not None else "absolute"
-    factor = MODEL_UNCERTAINTY_FACTOR[mode]
-    b16, b84 = np.percentile(prof.boot_peak_zhr, [16, 84])
-    return TrailEncounter(
-        year=tg.year,
-        trail_perihelion_tdb_jd=ret.tp_tdb_jd,
-        revolutions=tg.revolutions,
-        node=tg.node,
-        peak_tdb_jd=peak,
-        solar_longitude_deg=float(solar_longitude_deg(peak)),
-        miss_distance_au=float(np.median(miss)),
-        miss_distance_spread_au=float(0.5 * (q84 - q16)),
-        fwhm_hours=prof.fwhm_hours if prof.peak_zhr > 0 else 2.3548 * sigma_t * 24.0,
-        ra_deg=ra,
-        dec_deg=dec,
-        vg_km_s=float(np.median(cr.vg_km_s[keep])),
-        vinf_km_s=float(np.median(cr.vinf_km_s[keep])),
-        particles=n,
-        dilution=dilution,
-        earth_passage_tdb_jd=tg.t_earth,
-        crossings=sub,
-        weights=np.asarray(weights)[keep],
-        meteoroids=met,
-        profile=prof,
-        population_index=r_pop,
-        zhr_estimate=prof.peak_zhr,
-        zhr_low=min(b16, prof.peak_zhr) / factor,
-        zhr_high=max(b84, prof.peak_zhr) * factor,
-        zhr_mode=mode,
-    )
-
-
 __all__ = [
+    "CAUTIONS",
     "Calibration",
     "CalibrationFailed",
+    "EjectionEvent",
+    "EjectionModel",
     "ForecastOptions",
     "ForecastResult",
-    "SolutionsResult",
     "TrailEncounter",
     "forecast",
-    "forecast_solutions",
-    "orbit_solutions",
 ]
-
-
-# --- orbit uncertainty: alternative solutions and covariance clones ------------------------------
-
-#: Clones drawn from a covariance when the caller does not say how many.
-DEFAULT_CLONES = 5
-_ELEMENT_FIELDS = ("q_au", "e", "incl_deg", "node_deg", "peri_deg", "tp_tdb_jd")
-
-
-@dataclass(frozen=True)
-class SolutionsResult:
-    """Forecasts of the same parent under several orbit solutions, with shared random draws."""
-
-    labels: tuple[str, ...]
-    orbits: tuple[OrbitInput, ...]
-    results: tuple[ForecastResult, ...]
-
-    def summary(self) -> list[dict]:
-        """Per trail and year: how peak time, miss distance and ZHR vary across solutions."""
-        rows: dict[tuple, dict] = {}
-        for label, res in zip(self.labels, self.results, strict=True):
-            for e in res.encounters + res.near_misses:
-                key = (e.year, _year_of(e.trail_perihelion_tdb_jd), e.revolutions)
-                rows.setdefault(key, {})[label] = e
-        out = []
-        for (year, trail_year, revs), by in sorted(rows.items()):
-            peaks = np.array([e.peak_tdb_jd for e in by.values()])
-            miss = np.array([e.miss_distance_au for e in by.values()])
-            zhr = np.array([e.zhr_estimate for e in by.values()])
-            missing = [lab for lab in self.labels if lab not in by]
-            text = (
-                f"{trail_year} trail in {year}: peak times span {np.ptp(peaks) * 1440:.1f} min, miss "
-                f"distances {miss.min():+.5f} to {miss.max():+.5f} au, ZHR {_zhr(zhr.min()):.3g} to "
-                f"{_zhr(zhr.max()):.3g} across {len(by)} solutions"
-            )
-            if missing:
-                text += f"; no crossing near Earth under {', '.join(missing)}"
-            out.append(
-                {
-                    "year": year,
-                    "trail_year": trail_year,
-                    "revolutions": revs,
-                    "solutions": sorted(by),
-                    "peak_spread_min": round(float(np.ptp(peaks) * 1440), 2),
-                    "miss_distance_range_au": [
-                        round(float(miss.min()), 6),
-                        round(float(miss.max()), 6),
-                    ],
-                    "zhr_range": [_zhr(float(zhr.min())), _zhr(float(zhr.max()))],
-                    "explanation": text,
-                }
-            )
-        return out
-
-    def parents(self) -> list[dict]:
-        """What each solution implies for the parent itself: period, previous return."""
-        out = []
-        for label, orbit, res in zip(self.labels, self.orbits, self.results, strict=True):
-            past = [r for r in res.history.returns if r.tp_tdb_jd < orbit.tp_tdb_jd - 1.0]
-            prev = past[-1] if past else None
-            out.append(
-                {
-                    "solution": label,
-                    "q_au": orbit.q_au,
-                    "e": orbit.e,
-                    "period_years": round(orbit.period_days / DAYS_PER_JULIAN_YEAR, 2)
-                    if np.isfinite(orbit.period_days)
-                    else None,
-                    "previous_perihelion_tdb": format_iso(prev.tp_tdb_jd, "TDB") if prev else None,
-                    "previous_period_years": round(
-                        (orbit.tp_tdb_jd - prev.tp_tdb_jd) / DAYS_PER_JULIAN_YEAR, 1
-                    )
-                    if prev
-                    else None,
-                    "encounters": len(res.encounters),
-                    "near_misses": len(res.near_misses),
-                    "notes": list(res.notes),
-                }
-            )
-        return out
-
-    def merged_rows(self, kind: str) -> list[tuple[int, int, dict]]:
-        """Every solution's encounters (``kind="encounters"``) or near misses, in the order
-        :meth:`to_json` lists them: (solution index, index within that solution, row JSON)."""
-        rows = []
-        for si, (label, res) in enumerate(zip(self.labels, self.results, strict=True)):
-            for k, row in enumerate(res.to_json()[kind]):
-                rows.append((si, k, dict(row, solution=label)))
-        return sorted(rows, key=lambda r: (r[2]["peak_utc"], r[2]["solution"]))
-
-    def to_json(self) -> dict:
-        base = self.results[0].to_json()
-        base["encounters"] = [row for _, _, row in self.merged_rows("encounters")]
-        base["near_misses"] = [row for _, _, row in self.merged_rows("near_misses")]
-        base["solutions"] = self.parents()
-        base["solution_summary"] = self.summary()
-        base["notes"] = sorted({n for r in self.results for n in r.notes})
-        return base
-
-
-def orbit_solutions(orbit: OrbitInput, clones: int = DEFAULT_CLONES, seed: int = 1):
-    """The nominal orbit, its alternative solutions, and clones drawn from its covariance.
-
-    Clones are drawn from a multivariate normal over (q, e, i, node, peri, tp) with a seeded
-    generator; draws with q <= 0 or e < 0 are redrawn, angles are wrapped.
-    """
-    labels, orbits = ["nominal"], [replace(orbit, solutions=(), covariance=None)]
-    for k, sol in enumerate(orbit.solutions, start=1):
-        labels.append(f"solution-{k}")
-        orbits.append(sol)
-    if orbit.covariance is not None and clones > 0:
-        rng = np.random.default_rng(np.random.SeedSequence([seed, 777]))
-        mean = np.array([getattr(orbit, f) for f in _ELEMENT_FIELDS])
-        k = 0
-        while k < clones:
-            x = rng.multivariate_normal(mean, orbit.covariance)
-            if x[0] <= 0 or x[1] < 0:
-                continue
-            k += 1
-            x[2] = abs(x[2]) % 360.0
-            x[2] = 360.0 - x[2] if x[2] > 180.0 else x[2]
-            x[3] %= 360.0
-            x[4] %= 360.0
-            labels.append(f"clone-{k}")
-            orbits.append(
-                replace(orbits[0], **dict(zip(_ELEMENT_FIELDS, map(float, x), strict=True)))
-            )
-    return tuple(labels), tuple(orbits)
-
-
-def forecast_solutions(
-    orbit: OrbitInput,
-    options: ForecastOptions,
-    *,
-    clones: int = DEFAULT_CLONES,
-    progress: Callable[[float, str], None] | None = None,
-    executor=None,
-) -> SolutionsResult:
-    """Run :func:`forecast` for every solution of ``orbit`` with the same seed, so that the
-    differences between their encounters come from the orbits, not from sampling noise."""
-    labels, orbits = orbit_solutions(orbit, clones, options.seed)
-    say = progress or (lambda f, s: None)
-    results = []
-    for k, (label, o) in enumerate(zip(labels, orbits, strict=True)):
-        results.append(
-            forecast(
-                o,
-                options,
-                executor=executor,
-                progress=lambda f, s, k=k, label=label: say((k + f) / len(orbits), f"{label}: {s}"),
-            )
-        )
-    return SolutionsResult(labels, orbits, tuple(results))

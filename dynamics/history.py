@@ -24,7 +24,7 @@ import numpy as np
 from .constants import GM_SUN_AU3_D2
 from .ephemeris import EPHEMERIS_SPAN_TDB_ISO, EPHEMERIS_SPAN_TDB_JD
 from .errors import OutsideTimeSpan, TrailcastError
-from .nbody import MassiveBodies, _new_simulation, massive_bodies_from_ephemeris
+from .nbody import MassiveBodies, ParentSimulation, massive_bodies_from_ephemeris
 from .orbit_input import OrbitInput
 from .orbits import Elements, elements_to_state, state_to_elements
 from .timescales import format_iso
@@ -43,6 +43,9 @@ DEFAULT_ACTIVE_R_MAX_AU = 3.0
 ARC_STEP_DAYS = 1.0
 #: How far back to look for the previous return of a long-period comet (years).
 MAX_LOOKBACK_YEARS = 30_000.0
+#: Uncertainty of 1/a used to say how well a long-period parent's previous return is dated
+#: (1/au): typical of a well-observed single apparition (common practice, no source).
+INVERSE_A_UNCERTAINTY_PER_AU = 1e-5
 #: Distance beyond which the barycentric orbit is taken as the comet's original orbit (au).
 ORIGINAL_ORBIT_DISTANCE_AU = 250.0
 
@@ -99,31 +102,6 @@ class ParentHistory:
     notes: tuple[str, ...]
 
 
-def _add_nongrav(sim, index: int, a1: float, a2: float, a3: float):
-    """Python force callback for one particle (only the parent: cost is one particle)."""
-
-    def force(sim_pointer):
-        s = sim_pointer.contents
-        ps = s.particles
-        sun, p = ps[0], ps[index]
-        x, y, z = p.x - sun.x, p.y - sun.y, p.z - sun.z
-        vx, vy, vz = p.vx - sun.vx, p.vy - sun.vy, p.vz - sun.vz
-        r = math.sqrt(x * x + y * y + z * z)
-        hx, hy, hz = y * vz - z * vy, z * vx - x * vz, x * vy - y * vx
-        h = math.sqrt(hx * hx + hy * hy + hz * hz)
-        rx, ry, rz = x / r, y / r, z / r
-        nx, ny, nz = hx / h, hy / h, hz / h
-        tx, ty, tz = ny * rz - nz * ry, nz * rx - nx * rz, nx * ry - ny * rx
-        g = float(nongrav_g(r))
-        p.ax += g * (a1 * rx + a2 * tx + a3 * nx)
-        p.ay += g * (a1 * ry + a2 * ty + a3 * ny)
-        p.az += g * (a1 * rz + a2 * tz + a3 * nz)
-
-    sim.additional_forces = force
-    sim.force_is_velocity_dependent = 1
-    return force
-
-
 def check_epoch_in_ephemeris(orbit: OrbitInput) -> None:
     """Raise :class:`OutsideTimeSpan`, saying what to do, if the orbit's epoch lies outside DE423.
 
@@ -143,10 +121,9 @@ def check_epoch_in_ephemeris(orbit: OrbitInput) -> None:
         )
 
 
-def _parent_simulation(orbit: OrbitInput):
+def _parent_simulation(orbit: OrbitInput) -> ParentSimulation:
     check_epoch_in_ephemeris(orbit)
     bodies = massive_bodies_from_ephemeris(orbit.epoch_tdb_jd)
-    sim = _new_simulation(bodies, "ias15", 1.0)
     r, v = elements_to_state(
         orbit.q_au,
         orbit.e,
@@ -156,54 +133,27 @@ def _parent_simulation(orbit: OrbitInput):
         orbit.tp_tdb_jd,
         orbit.epoch_tdb_jd,
     )
-    sun = bodies.r_au[0], bodies.v_au_d[0]
-    pos, vel = r + sun[0], v + sun[1]
-    sim.add(m=0.0, x=pos[0], y=pos[1], z=pos[2], vx=vel[0], vy=vel[1], vz=vel[2])
-    keep = None
-    if orbit.nongrav is not None and any(
-        (orbit.nongrav.a1_au_d2, orbit.nongrav.a2_au_d2, orbit.nongrav.a3_au_d2)
-    ):
-        keep = _add_nongrav(
-            sim, sim.N - 1, orbit.nongrav.a1_au_d2, orbit.nongrav.a2_au_d2, orbit.nongrav.a3_au_d2
-        )
-    return sim, bodies, keep
+    ng = orbit.nongrav
+    nongrav = None if ng is None else (ng.a1_au_d2, ng.a2_au_d2, ng.a3_au_d2, nongrav_g)
+    return ParentSimulation(bodies, r, v, nongrav)
 
 
-def _state(sim):
-    ps = sim.particles
-    sun, p = ps[0], ps[sim.N - 1]
-    r = np.array([p.x - sun.x, p.y - sun.y, p.z - sun.z])
-    v = np.array([p.vx - sun.vx, p.vy - sun.vy, p.vz - sun.vz])
-    return r, v
+def _bodies_at(sim: ParentSimulation) -> MassiveBodies:
+    """Sun and planets now: DE423's inside its span (no integration drift), else integrated."""
+    t = sim.t_tdb_jd
+    if EPHEMERIS_SPAN_TDB_JD[0] <= t <= EPHEMERIS_SPAN_TDB_JD[1]:
+        return massive_bodies_from_ephemeris(t)
+    return sim.massive_bodies()
 
 
-def _barycentric_inverse_a(sim) -> float:
-    """1/a of the parent's barycentric orbit about the total mass (1/au)."""
-    n = sim.N
-    xyz = np.empty((n, 3))
-    vel = np.empty((n, 3))
-    sim.serialize_particle_data(xyz=xyz, vxvyvz=vel)
-    m = np.array([sim.particles[i].m for i in range(sim.N_active)])
-    gm_total = m.sum()
-    r = np.linalg.norm(xyz[-1])  # the simulation frame is the DE423 barycentre
-    v2 = np.dot(vel[-1], vel[-1])
-    return 2.0 / r - v2 / gm_total
-
-
-def _massive_bodies(sim) -> MassiveBodies:
-    n_active = sim.N_active
-    xyz = np.empty((sim.N, 3))
-    vel = np.empty((sim.N, 3))
-    sim.serialize_particle_data(xyz=xyz, vxvyvz=vel)
-    from .nbody import MASSIVE_BODIES
-
-    gm = np.array([sim.particles[i].m for i in range(n_active)])
-    return MassiveBodies(
-        float(sim.t), MASSIVE_BODIES, gm, xyz[:n_active].copy(), vel[:n_active].copy()
-    )
-
-
-def _march(sim, t_stop: float, direction: int, active_r_max_au: float, stop_after_perihelia=None):
+def _march(
+    sim,
+    t_stop: float,
+    direction: int,
+    active_r_max_au: float,
+    stop_after_perihelia=None,
+    counting_before_tdb_jd=math.inf,
+):
     """Step the parent simulation towards ``t_stop``; return samples and perihelion passages.
 
     Samples are taken every day inside the active arc and every few percent of the local
@@ -213,13 +163,13 @@ def _march(sim, t_stop: float, direction: int, active_r_max_au: float, stop_afte
     """
     samples = []
     perihelia = []
-    r, v = _state(sim)
+    r, v = sim.parent_state()
     if direction > 0:  # the starting instant belongs to exactly one of the two marches
         inside = float(np.linalg.norm(r)) < active_r_max_au
-        samples.append((sim.t, r, v, _massive_bodies(sim) if inside else None))
-    prev = (sim.t, r, v, float(np.dot(r, v)))
-    t = sim.t
-    epoch = sim.t
+        samples.append((sim.t_tdb_jd, r, v, _bodies_at(sim) if inside else None))
+    prev = (sim.t_tdb_jd, r, v, float(np.dot(r, v)))
+    t = sim.t_tdb_jd
+    epoch = sim.t_tdb_jd
     while (t_stop - t) * direction > 0:
         rn = float(np.linalg.norm(prev[1]))
         if rn < active_r_max_au + 0.5:
@@ -234,19 +184,19 @@ def _march(sim, t_stop: float, direction: int, active_r_max_au: float, stop_afte
         t_next = t + direction * step
         if (t_stop - t_next) * direction < 0:
             t_next = t_stop
-        sim.integrate(t_next, exact_finish_time=1)
+        sim.integrate(t_next)
         t = t_next
-        r, v = _state(sim)
+        r, v = sim.parent_state()
         rv = float(np.dot(r, v))
         rn = float(np.linalg.norm(r))
         inside = rn < active_r_max_au
-        samples.append((t, r, v, _massive_bodies(sim) if inside else None))
+        samples.append((t, r, v, _bodies_at(sim) if inside else None))
         # perihelion between prev and now: r.v changes from - to + in forward time
         if prev[3] * rv < 0 and ((direction > 0 and rv > 0) or (direction < 0 and rv < 0)):
             perihelia.append((t, r, v))
         if (
             stop_after_perihelia is not None
-            and len(perihelia) >= stop_after_perihelia
+            and sum(1 for p in perihelia if p[0] < counting_before_tdb_jd) >= stop_after_perihelia
             and not inside
         ):
             break  # enough returns, and the last one's active arc is complete
@@ -254,7 +204,7 @@ def _march(sim, t_stop: float, direction: int, active_r_max_au: float, stop_afte
             direction < 0
             and rn > ORIGINAL_ORBIT_DISTANCE_AU
             and rv < 0
-            and _barycentric_inverse_a(sim) <= 0
+            and sim.barycentric_inverse_a() <= 0
         ):
             # moving away from the Sun backwards in time on an unbound barycentric orbit
             break
@@ -262,6 +212,81 @@ def _march(sim, t_stop: float, direction: int, active_r_max_au: float, stop_afte
             break
         prev = (t, r, v, rv)
     return samples, perihelia
+
+
+#: Spans of cached histories are widened to multiples of this (days), so that forecasts of
+#: nearby years share one history (50 Julian years; no source).
+CACHE_SPAN_QUANTUM_DAYS = 50 * 365.25
+#: Histories kept in memory per process.
+CACHE_ENTRIES = 16
+_memory_cache: dict[str, "ParentHistory"] = {}
+
+
+def cache_dir():
+    """Where parent histories are kept between runs: ``$TRAILCAST_CACHE_DIR``, else
+    ``~/.cache/trailcast/history`` (None when neither can be used)."""
+    import os
+    from pathlib import Path
+
+    base = os.environ.get("TRAILCAST_CACHE_DIR")
+    path = Path(base) if base else Path.home() / ".cache" / "trailcast" / "history"
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except OSError:
+        return None
+    return path
+
+
+def cached_parent_history(
+    orbit: OrbitInput,
+    t_min_tdb_jd: float,
+    t_max_tdb_jd: float,
+    *,
+    active_r_max_au: float = DEFAULT_ACTIVE_R_MAX_AU,
+) -> "ParentHistory":
+    """:func:`parent_history` over a span widened to :data:`CACHE_SPAN_QUANTUM_DAYS`, computed
+    once per parent and span and reused: keyed by a hash of the orbit's JSON, the span, the
+    active-arc limit and trailcast's version; kept in memory and in :func:`cache_dir` (files
+    written atomically, so a killed run never leaves a half-written history)."""
+    import hashlib
+    import json
+    import os
+    import pickle
+
+    from . import __version__
+
+    q = CACHE_SPAN_QUANTUM_DAYS
+    lo = math.floor(t_min_tdb_jd / q) * q
+    hi = math.ceil(t_max_tdb_jd / q) * q
+    key_src = json.dumps(
+        [orbit.to_json(), lo, hi, active_r_max_au, __version__, "history-v2"], sort_keys=True
+    )
+    key = hashlib.sha256(key_src.encode()).hexdigest()[:32]
+    if key in _memory_cache:
+        return _memory_cache[key]
+    folder = cache_dir()
+    path = None if folder is None else folder / f"{key}.pickle"
+    hist = None
+    if path is not None and path.exists():
+        try:
+            with open(path, "rb") as fh:
+                hist = pickle.load(fh)
+        except (OSError, pickle.UnpicklingError, EOFError, AttributeError):
+            hist = None  # unreadable: compute again and overwrite
+    if hist is None:
+        hist = parent_history(orbit, lo, hi, active_r_max_au=active_r_max_au)
+        if path is not None:
+            tmp = path.with_suffix(f".{os.getpid()}.tmp")
+            try:
+                with open(tmp, "wb") as fh:
+                    pickle.dump(hist, fh, protocol=pickle.HIGHEST_PROTOCOL)
+                os.replace(tmp, path)
+            except OSError:
+                tmp.unlink(missing_ok=True)
+    if len(_memory_cache) >= CACHE_ENTRIES:
+        _memory_cache.pop(next(iter(_memory_cache)))
+    _memory_cache[key] = hist
+    return hist
 
 
 def parent_history(
@@ -296,7 +321,7 @@ def parent_history(
         perihelion was found.
     """
     notes = []
-    sim, _, keep_force = _parent_simulation(orbit)
+    sim = _parent_simulation(orbit)
     back, peri_back = _march(sim, t_min_tdb_jd, -1, active_r_max_au)
     # The epoch's own passage and any before it within the span are in peri_back. Long-period
     # parents need the previous return even beyond t_min.
@@ -304,7 +329,7 @@ def parent_history(
     original_inv_a = None
     if (
         n_before < min_previous_returns
-        and sim.t > orbit.epoch_tdb_jd - MAX_LOOKBACK_YEARS * 365.25 + 1
+        and sim.t_tdb_jd > orbit.epoch_tdb_jd - MAX_LOOKBACK_YEARS * 365.25 + 1
     ):
         more, peri_more = _march(
             sim,
@@ -312,11 +337,12 @@ def parent_history(
             -1,
             active_r_max_au,
             stop_after_perihelia=min_previous_returns - n_before,
+            counting_before_tdb_jd=orbit.tp_tdb_jd - 1.0,
         )
         back += more
         peri_back += peri_more
         if not any(t < orbit.tp_tdb_jd - 1.0 for (t, _, _) in peri_back):
-            inv_a = _barycentric_inverse_a(sim)
+            inv_a = sim.barycentric_inverse_a()
             original_inv_a = inv_a
             if inv_a <= 0:
                 raise FirstPassage(
@@ -325,12 +351,22 @@ def parent_history(
                 )
             notes.append(f"no earlier perihelion found within {MAX_LOOKBACK_YEARS:.0f} years")
         else:
-            notes.append("long-period parent: integrated back to its previous return")
-    del keep_force
+            prev = max(t for (t, _, _) in peri_back if t < orbit.tp_tdb_jd - 1.0)
+            years = (orbit.tp_tdb_jd - prev) / 365.25
+            if years > 200.0:  # a long-period parent (Halley-type and shorter stay silent)
+                # dP/d(1/a) = -1.5 P / (1/a) with 1/a = (P / 2 pi)^(-2/3) mu^(1/3) (Kepler)
+                inv_a = (years * 365.25 * math.sqrt(GM_SUN_AU3_D2) / (2 * math.pi)) ** (-2 / 3)
+                shift = 1.5 * years / inv_a * INVERSE_A_UNCERTAINTY_PER_AU
+                notes.append(
+                    f"long-period parent: integrated back to its previous return, {years:.0f} "
+                    f"years before the orbit's perihelion (1/a = {inv_a:.5f} /au over that "
+                    f"revolution); an error of {INVERSE_A_UNCERTAINTY_PER_AU:g} /au in 1/a moves "
+                    f"that return by about {shift:.1f} years, and planetary perturbations add "
+                    "more: run the orbit's alternative solutions or clones to see the spread"
+                )
 
-    sim, _, keep_force = _parent_simulation(orbit)
+    sim = _parent_simulation(orbit)
     fwd, peri_fwd = _march(sim, t_max_tdb_jd, +1, active_r_max_au)
-    del keep_force
 
     samples = sorted(back + fwd, key=lambda s: s[0])
     peri = sorted(peri_back + peri_fwd, key=lambda p: p[0])

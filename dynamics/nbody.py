@@ -11,10 +11,17 @@ which the dust-trail engine uses by default after the measurement in ``benchmark
 
 Radiation pressure and Poynting-Robertson drag act per particle through REBOUNDx
 ``radiation_forces`` (Tamayo et al. 2020; Burns, Lamy & Soter 1979), with the speed of light set
-in au/day.
+in au/day. General relativity acts on every body through REBOUNDx ``gr`` with the Sun as its
+source (Anderson et al. 1975): without it Mercury drifts from DE423 by ~5e4 km and Venus by ~9e3
+km per century (measured in ``tests/test_nbody.py``).
+
+The parent comet's own integration (:class:`ParentSimulation`, IAS15 with optional Marsden
+non-gravitational forces) is here too, so that no other module touches REBOUND.
 """
 
+import math
 import warnings
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -79,6 +86,7 @@ def massive_bodies_from_ephemeris(t_tdb_jd: float, names=MASSIVE_BODIES) -> Mass
 
 
 def _new_simulation(bodies: MassiveBodies, integrator: str, dt_days: float):
+    """A REBOUND simulation of the massive bodies (G = 1, masses as GM), no forces attached."""
     import rebound
 
     if integrator not in INTEGRATORS:
@@ -103,15 +111,27 @@ def _new_simulation(bodies: MassiveBodies, integrator: str, dt_days: float):
     return sim
 
 
-def _attach_radiation(sim):
-    """Radiation pressure + Poynting-Robertson drag (REBOUNDx radiation_forces), Sun as source."""
+def _attach_forces(sim, radiation: bool, relativity: bool = True):
+    """REBOUNDx forces with the Sun as source: general relativity (``gr``, all bodies) and
+    radiation pressure + Poynting-Robertson drag (``radiation_forces``, particles with a beta).
+
+    Returns the Extras object (keep it alive while the simulation runs), or None.
+    """
+    if not (radiation or relativity):
+        return None
     import reboundx
 
     rebx = reboundx.Extras(sim)
-    force = rebx.load_force("radiation_forces")
-    rebx.add_force(force)
-    force.params["c"] = C_AU_DAY
-    sim.particles[0].params["radiation_source"] = 1
+    if relativity:
+        gr = rebx.load_force("gr")
+        rebx.add_force(gr)
+        gr.params["c"] = C_AU_DAY
+        sim.particles[0].params["gr_source"] = 1
+    if radiation:
+        force = rebx.load_force("radiation_forces")
+        rebx.add_force(force)
+        force.params["c"] = C_AU_DAY
+        sim.particles[0].params["radiation_source"] = 1
     return rebx
 
 
@@ -152,6 +172,7 @@ def integrate_particles(
     integrator: str = "whfast",
     dt_days: float = 0.5,
     radiation: bool = True,
+    relativity: bool = True,
 ) -> Snapshots:
     """Integrate test particles released at given times with the Sun and planets.
 
@@ -173,6 +194,8 @@ def integrate_particles(
         WHFast step (days); IAS15's initial step.
     radiation : bool
         Apply REBOUNDx radiation forces when any beta > 0.
+    relativity : bool
+        Apply REBOUNDx general relativity (Sun as source) to every body.
 
     Returns
     -------
@@ -205,7 +228,7 @@ def integrate_particles(
         key=lambda ev: (ev[0], ev[1]),
     )
     added: list[int] = []  # particle index of each simulation slot
-    rebx = _attach_radiation(sim) if radiation and np.any(beta > 0) else None
+    rebx = _attach_forces(sim, bool(radiation and np.any(beta > 0)), relativity)
     with warnings.catch_warnings():
         # REBOUNDx warns that P-R drag is velocity dependent under WHFast: its error is of the
         # order of the drag itself (tiny for mm grains over centuries; see the README's
@@ -245,6 +268,107 @@ def integrate_particles(
                     snaps_v[j, idx] = vh
     del rebx  # keep the REBOUNDx extras alive until the integration is over
     return Snapshots(out_t, snaps_r, snaps_v)
+
+
+class ParentSimulation:
+    """The parent comet as a test particle among the Sun and planets, integrated with IAS15.
+
+    Parameters
+    ----------
+    bodies : MassiveBodies
+        Sun and planets at the start (barycentric, ecliptic J2000).
+    r_helio_au, v_helio_au_d : array (3,)
+        The parent's heliocentric state at ``bodies.t_tdb_jd``.
+    nongrav : tuple, optional
+        ``(a1, a2, a3, g)``: the Marsden coefficients (au/day^2) and the g(r) law; the
+        acceleration ``g(r) (A1 R + A2 T + A3 N)`` is applied through a Python callback on this
+        one particle. General relativity (REBOUNDx) is used only without non-gravitational
+        forces: a Python force callback and REBOUNDx cannot share one simulation.
+    """
+
+    def __init__(self, bodies: MassiveBodies, r_helio_au, v_helio_au_d, nongrav=None):
+        sim = _new_simulation(bodies, "ias15", 1.0)
+        sun_r, sun_v = bodies.r_au[0], bodies.v_au_d[0]
+        pos = np.asarray(r_helio_au, dtype=float) + sun_r
+        vel = np.asarray(v_helio_au_d, dtype=float) + sun_v
+        sim.add(m=0.0, x=pos[0], y=pos[1], z=pos[2], vx=vel[0], vy=vel[1], vz=vel[2])
+        self._sim = sim
+        self._keep = None
+        self.relativity = False
+        if nongrav is not None and any(nongrav[:3]):
+            self._keep = _nongrav_callback(sim, sim.N - 1, *nongrav)
+        else:
+            self._keep = _attach_forces(sim, radiation=False, relativity=True)
+            self.relativity = True
+
+    @property
+    def t_tdb_jd(self) -> float:
+        return float(self._sim.t)
+
+    def integrate(self, t_tdb_jd: float) -> None:
+        """Advance (or go back) exactly to ``t_tdb_jd``."""
+        import rebound
+
+        try:
+            self._sim.integrate(float(t_tdb_jd), exact_finish_time=1)
+        except rebound.GenericError as exc:  # pragma: no cover - depends on REBOUND internals
+            raise IntegrationFailed(f"REBOUND stopped at t = {self._sim.t}: {exc}") from exc
+
+    def parent_state(self):
+        """Heliocentric position (au) and velocity (au/day) of the parent."""
+        ps = self._sim.particles
+        sun, p = ps[0], ps[self._sim.N - 1]
+        r = np.array([p.x - sun.x, p.y - sun.y, p.z - sun.z])
+        v = np.array([p.vx - sun.vx, p.vy - sun.vy, p.vz - sun.vz])
+        return r, v
+
+    def massive_bodies(self) -> MassiveBodies:
+        """Sun and planets now (barycentric)."""
+        sim = self._sim
+        n_active = sim.N_active
+        xyz = np.empty((sim.N, 3))
+        vel = np.empty((sim.N, 3))
+        sim.serialize_particle_data(xyz=xyz, vxvyvz=vel)
+        gm = np.array([sim.particles[i].m for i in range(n_active)])
+        return MassiveBodies(
+            float(sim.t), MASSIVE_BODIES, gm, xyz[:n_active].copy(), vel[:n_active].copy()
+        )
+
+    def barycentric_inverse_a(self) -> float:
+        """1/a of the parent's barycentric orbit about the total mass (1/au): the 'original'
+        orbit of a long-period comet when taken far from the planets."""
+        sim = self._sim
+        xyz = np.empty((sim.N, 3))
+        vel = np.empty((sim.N, 3))
+        sim.serialize_particle_data(xyz=xyz, vxvyvz=vel)
+        gm_total = sum(sim.particles[i].m for i in range(sim.N_active))
+        r = np.linalg.norm(xyz[-1])  # the simulation frame is the DE423 barycentre
+        return 2.0 / r - float(np.dot(vel[-1], vel[-1])) / gm_total
+
+
+def _nongrav_callback(sim, index: int, a1: float, a2: float, a3: float, g_of_r: Callable):
+    """Python force callback for one particle (only the parent: its cost is one particle)."""
+
+    def force(sim_pointer):
+        s = sim_pointer.contents
+        ps = s.particles
+        sun, p = ps[0], ps[index]
+        x, y, z = p.x - sun.x, p.y - sun.y, p.z - sun.z
+        vx, vy, vz = p.vx - sun.vx, p.vy - sun.vy, p.vz - sun.vz
+        r = math.sqrt(x * x + y * y + z * z)
+        hx, hy, hz = y * vz - z * vy, z * vx - x * vz, x * vy - y * vx
+        h = math.sqrt(hx * hx + hy * hy + hz * hz)
+        rx, ry, rz = x / r, y / r, z / r
+        nx, ny, nz = hx / h, hy / h, hz / h
+        tx, ty, tz = ny * rz - nz * ry, nz * rx - nx * rz, nx * ry - ny * rx
+        g = float(g_of_r(r))
+        p.ax += g * (a1 * rx + a2 * tx + a3 * nx)
+        p.ay += g * (a1 * ry + a2 * ty + a3 * ny)
+        p.az += g * (a1 * rz + a2 * tz + a3 * nz)
+
+    sim.additional_forces = force
+    sim.force_is_velocity_dependent = 1
+    return force
 
 
 def step_grid(t0_tdb_jd: float, t_tdb_jd, dt_days: float):

@@ -40,6 +40,7 @@ ORBIT_KEYS = (
     "nongrav",
     "covariance",
     "solutions",
+    "ejection_events",
 )
 #: Order of the covariance matrix rows and columns, with their units.
 COVARIANCE_ORDER = (
@@ -91,6 +92,7 @@ class OrbitInput:
     nongrav: NonGravParams | None = None
     covariance: np.ndarray | None = field(default=None, compare=False)
     solutions: tuple["OrbitInput", ...] = ()
+    ejection_events: tuple = ()  # dynamics.release.EjectionEvent: break-ups, outbursts
 
     @property
     def a_au(self) -> float:
@@ -130,6 +132,22 @@ class OrbitInput:
             out["covariance"] = self.covariance.tolist()
         if self.solutions:
             out["solutions"] = [s.to_json() for s in self.solutions]
+        if self.ejection_events:
+            out["ejection_events"] = [
+                {
+                    "kind": ev.kind,
+                    "start": ev.t_tdb_jd,
+                    "duration_days": ev.duration_days,
+                    "speed_multiplier": ev.speed_multiplier,
+                    "source": ev.source,
+                }
+                | (
+                    {}
+                    if ev.mass_min_g is None
+                    else {"mass_range_g": [ev.mass_min_g, ev.mass_max_g]}
+                )
+                for ev in self.ejection_events
+            ]
         return out
 
 
@@ -248,6 +266,10 @@ def parse_orbit(data, *, path: str = "", allow_solutions: bool = True) -> OrbitI
             for k, s in enumerate(sols)
         )
 
+    events = ()
+    if data.get("ejection_events") is not None:
+        events = _events(data["ejection_events"], path + "ejection_events")
+
     return OrbitInput(
         name=name.strip(),
         epoch_tdb_jd=epoch,
@@ -260,7 +282,59 @@ def parse_orbit(data, *, path: str = "", allow_solutions: bool = True) -> OrbitI
         nongrav=nongrav,
         covariance=covariance,
         solutions=solutions,
+        ejection_events=events,
     )
+
+
+#: Keys of one ejection event in the orbit file.
+EVENT_KEYS = ("kind", "start", "duration_days", "speed_multiplier", "mass_range_g", "source")
+MAX_EVENTS = 10
+#: Speed multipliers beyond this are not a dust release (no source; published break-up dust
+#: needs several times, not hundreds of times, the gas-drag speeds).
+MAX_SPEED_MULTIPLIER = 100.0
+
+
+def _events(value, field_name) -> tuple:
+    """Ejection events (break-ups, outbursts) of the orbit file, validated field by field."""
+    from .release import EVENT_KINDS, EjectionEvent
+
+    if not isinstance(value, list | tuple) or len(value) > MAX_EVENTS:
+        raise InvalidOrbit(field_name, f"expected a list of at most {MAX_EVENTS} event objects")
+    out = []
+    for k, ev in enumerate(value):
+        p = f"{field_name}.{k}."
+        if not isinstance(ev, Mapping):
+            raise InvalidOrbit(p[:-1], "expected an object with kind and start")
+        extra = sorted(set(ev) - set(EVENT_KEYS))
+        if extra:
+            raise InvalidOrbit(
+                p + extra[0], f"unknown key; expected some of {', '.join(EVENT_KEYS)}"
+            )
+        if ev.get("kind") not in EVENT_KINDS:
+            raise InvalidOrbit(p + "kind", f"expected one of {', '.join(EVENT_KINDS)}")
+        if "start" not in ev:
+            raise InvalidOrbit(p + "start", "missing (required): when the release began")
+        start = _time(ev, "start", p)
+        duration = _number(ev, "duration_days", p, default=5.0)
+        mult = _number(ev, "speed_multiplier", p, default=1.0)
+        if not 0.0 < duration <= 365.0:
+            raise InvalidOrbit(p + "duration_days", "must be in (0, 365] days")
+        if not 0.0 < mult <= MAX_SPEED_MULTIPLIER:
+            raise InvalidOrbit(p + "speed_multiplier", f"must be in (0, {MAX_SPEED_MULTIPLIER:g}]")
+        lo = hi = None
+        if ev.get("mass_range_g") is not None:
+            mr = ev["mass_range_g"]
+            if not isinstance(mr, list | tuple) or len(mr) != 2:
+                raise InvalidOrbit(p + "mass_range_g", "expected [min, max] in grams")
+            lo = _number({"m": mr[0]}, "m", p + "mass_range_g.")
+            hi = _number({"m": mr[1]}, "m", p + "mass_range_g.")
+            if not 0.0 < lo < hi:
+                raise InvalidOrbit(p + "mass_range_g", "expected 0 < min < max (grams)")
+        source = ev.get("source", "")
+        if not isinstance(source, str) or len(source) > 500:
+            raise InvalidOrbit(p + "source", "expected a string of at most 500 characters")
+        out.append(EjectionEvent(ev["kind"], start, duration, mult, lo, hi, source))
+    return tuple(out)
 
 
 def _number(data, key, path, default=None) -> float:

@@ -422,6 +422,11 @@ def iso_to_tdb_jd(text, default_scale=None) -> float:
     return to_tdb_jd(p.jd1, p.jd2, p.scale)
 
 
+#: First Julian date erfa's calendar routines accept (-4799-01-01 Gregorian, 0h:
+#: erfa.cal2jd(-4799, 1, 1)), with a day of margin.
+_ERFA_CALENDAR_START_JD = -31737.5
+
+
 def format_iso(t_tdb_jd, scale="UTC", decimals=0):
     """Write a TDB Julian date as ISO 8601 text in ``scale``.
 
@@ -435,10 +440,24 @@ def format_iso(t_tdb_jd, scale="UTC", decimals=0):
     '2000-01-01T12:00:00 TDB'
     >>> format_iso(2451545.0)                # TT - UTC was 64.184 s in 2000
     '2000-01-01T11:58:56Z'
+    >>> format_iso(2451545.0 - 20_000 * 365.2425, "TDB")  # TDB: any date, proleptic Gregorian
+    '-18000-01-01T12:00:00 TDB'
     """
     scale = scale.upper()
     t = np.asarray(t_tdb_jd, dtype=float)
-    jd1, jd2 = from_tdb_jd(t, scale)
+    cycles = np.zeros(t.shape, dtype=int)
+    if scale == "TDB":
+        # TDB needs no Delta T: any date can be written. erfa's calendar starts in -4799;
+        # earlier dates move by whole 400-year Gregorian cycles (146,097 days) and back.
+        cycles = np.where(
+            t < _ERFA_CALENDAR_START_JD, np.ceil((_ERFA_CALENDAR_START_JD - t) / 146097.0), 0
+        )
+        cycles = cycles.astype(int)
+        shifted = t + cycles * 146097.0
+        jd1 = np.floor(shifted - 0.5) + 0.5
+        jd2 = shifted - jd1
+    else:
+        jd1, jd2 = from_tdb_jd(t, scale)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", erfa.ErfaWarning)
         # For UTC, erfa knows leap seconds; before 1960 the UT day has 86400 s like TT's.
@@ -448,9 +467,15 @@ def format_iso(t_tdb_jd, scale="UTC", decimals=0):
         iy, im, iday, ihmsf = _d2dtf(erfa_scale, decimals, jd1, jd2)
     suffix = "Z" if scale == "UTC" else f" {scale}"
     out = []
-    for y, mo, d, hmsf in zip(
-        np.atleast_1d(iy), np.atleast_1d(im), np.atleast_1d(iday), np.atleast_1d(ihmsf), strict=True
+    for y, mo, d, hmsf, c in zip(
+        np.atleast_1d(iy),
+        np.atleast_1d(im),
+        np.atleast_1d(iday),
+        np.atleast_1d(ihmsf),
+        np.atleast_1d(cycles),
+        strict=True,
     ):
+        y = int(y) - 400 * int(c)
         h, mi, s, f = (int(v) for v in hmsf)
         sec = f"{s:02d}" + (f".{f:0{decimals}d}" if decimals > 0 else "")
         ys = f"{y:04d}" if y >= 0 else f"-{-y:04d}"

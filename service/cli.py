@@ -390,12 +390,17 @@ def forecast_options_from_args(args):
 
     from dynamics.ejection import EJECTION_SPEED_LAWS
     from dynamics.forecast import ForecastOptions
-    from dynamics.trails import EjectionModel
+    from dynamics.release import EjectionModel
 
     first, last = _parse_years(args.years)
     if args.particles < 3 or args.particles > 100_000:
         raise UsageError("--particles must be between 3 and 100000")
-    if args.workers < 1 or args.workers > 256:
+    workers = args.workers
+    if workers is None:
+        from dynamics.executors import default_workers
+
+        workers = default_workers()
+    if workers < 1 or workers > 256:
         raise UsageError("--workers must be between 1 and 256")
     if args.speed_law not in EJECTION_SPEED_LAWS:
         raise UsageError(f"--speed-law must be one of {', '.join(sorted(EJECTION_SPEED_LAWS))}")
@@ -423,11 +428,54 @@ def forecast_options_from_args(args):
         trails=_parse_trails(args.trails),
         max_trail_age_years=args.max_age,
         integrator=args.integrator,
-        workers=args.workers,
+        workers=workers,
         ejection=model,
+        events=tuple(_parse_event(t) for t in (getattr(args, "event", None) or ())),
         dust_mass_per_return_g=dust,
         calibration=_parse_calibration(getattr(args, "calibrate", None)),
     )
+
+
+def _parse_event(text):
+    """--event KIND:START[:SPEED_MULTIPLIER[:DAYS]] -> EjectionEvent (a break-up or outburst).
+
+    START is a calendar date YYYY-MM-DD (taken as 0h TDB) or a Julian date (TDB).
+    """
+    from dynamics.errors import InvalidTime, OutsideTimeSpan
+    from dynamics.release import EVENT_KINDS, EjectionEvent
+    from dynamics.timescales import parse_time_tdb_jd
+
+    fields = text.split(":")
+    usage = (
+        "--event takes KIND:START[:SPEED_MULTIPLIER[:DAYS]], KIND one of "
+        f"{', '.join(EVENT_KINDS)}, START a date YYYY-MM-DD or a JD, e.g. "
+        f"fragmentation:1995-09-10:8:5; got {text!r}"
+    )
+    if not 2 <= len(fields) <= 4 or fields[0] not in EVENT_KINDS:
+        raise UsageError(usage)
+    if not all(_is_number(f) for f in fields[2:]):
+        raise UsageError(usage)
+    start_text = fields[1].strip()
+    try:
+        if _is_number(start_text):
+            start = parse_time_tdb_jd(float(start_text))
+        else:
+            start = parse_time_tdb_jd(f"{start_text}T00:00:00 TDB")
+    except (InvalidTime, OutsideTimeSpan) as exc:
+        raise UsageError(f"--event start: {exc}") from None
+    mult = float(fields[2]) if len(fields) > 2 else 1.0
+    days = float(fields[3]) if len(fields) > 3 else 5.0
+    if not (0.0 < mult <= 100.0 and 0.0 < days <= 365.0):
+        raise UsageError("--event: speed multiplier in (0, 100], duration in (0, 365] days")
+    return EjectionEvent(fields[0], start, days, mult, source="command line")
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
 
 
 def _parse_calibration(text):
@@ -449,7 +497,8 @@ def _parse_calibration(text):
 
 
 def cmd_forecast(args) -> int:
-    from dynamics.forecast import forecast, forecast_solutions
+    from dynamics.forecast import forecast
+    from dynamics.uncertainty import forecast_solutions
 
     orbit = load_orbit_file(args.orbit)
     options = forecast_options_from_args(args)
@@ -679,9 +728,19 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument(
         "--max-age", type=float, default=500.0, help="oldest trail in years (default 500)"
     )
-    p.add_argument("--workers", type=int, default=1, help="worker processes (default 1)")
+    p.add_argument(
+        "--workers", type=int, default=None, help="worker processes (default: one per core)"
+    )
     p.add_argument(
         "--integrator", choices=("whfast", "ias15"), default="whfast", help="default whfast"
+    )
+    p.add_argument(
+        "--event",
+        action="append",
+        metavar="KIND:START[:MULT[:DAYS]]",
+        help="a break-up or outburst releasing the trail of its return: kind fragmentation or "
+        "outburst, start (ISO date or JD TDB), ejection-speed multiplier (default 1), duration "
+        "in days (default 5); repeatable; e.g. fragmentation:2031-05-02:8:5",
     )
     p.add_argument(
         "--speed-law", default="whipple1951", help="ejection speed law (default whipple1951)"

@@ -46,7 +46,7 @@ class ShuttingDown(Exception):
 
 def ejection_model(o: dict):
     """The EjectionModel a canonical request's ``options`` describe (forecasts and screenings)."""
-    from dynamics.trails import EjectionModel
+    from dynamics.release import EjectionModel
 
     return replace(
         EjectionModel(),
@@ -286,7 +286,8 @@ class JobRunner:
             self._run(job)
 
     def _run(self, job: Job) -> None:
-        from dynamics.forecast import forecast, forecast_solutions
+        from dynamics.forecast import forecast
+        from dynamics.uncertainty import forecast_solutions
 
         log.info("job %s: started (attempt %d)", job.id, job.attempts)
         with self._running_lock:

@@ -6,8 +6,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from dynamics.forecast import ForecastOptions, forecast_solutions, orbit_solutions
+from dynamics.forecast import ForecastOptions
 from dynamics.orbit_input import parse_orbit
+from dynamics.uncertainty import forecast_solutions, orbit_solutions
 from service.cli import forecast_table
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"

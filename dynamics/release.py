@@ -1,21 +1,15 @@
-"""Meteoroid release at past perihelia and targeted sampling of the ones that meet Earth.
+"""Meteoroid release at past perihelia: the candidates that targeting chooses from.
 
-A dust trail is the meteoroids one perihelion passage of the parent released. After N
-revolutions a meteoroid reaches its node at a time set mostly by its orbital period, i.e. by the
-period offset dP from the parent's that its release gave it (McNaught & Asher 1999, WGN 27, 85,
-in spirit). trailcast therefore:
+A dust trail is the meteoroids one perihelion passage of the parent released. trailcast draws
+many candidate release conditions per trail analytically (release time on the active arc
+weighted by activity r^-k, mass log-uniform with power-law weights, beta from Burns, Lamy &
+Soter 1979, speed from the chosen ejection-speed law, sunward direction) and computes the
+period offset dP and perihelion-time offset of each under the reduced solar gravity
+mu (1 - beta). :mod:`dynamics.targeting` then picks the few whose arrival meets Earth.
 
-1. draws many candidate release conditions per trail analytically (release time on the active
-   arc weighted by activity r^-k, mass log-uniform with power-law weights, beta from Burns, Lamy &
-   Soter 1979, speed from the chosen ejection-speed law, sunward direction) and computes dP and
-   the perihelion-time offset of each under the reduced solar gravity mu (1 - beta);
-2. predicts each candidate's node arrival after N revolutions as the parent's own node passage
-   N returns later plus N dP plus the perihelion-time offset;
-3. integrates a small *pilot* set spread over a wide window around Earth's passage of the node,
-   fits the real arrival time against the prediction (planetary perturbations shift and stretch
-   it), and
-4. keeps for the full integration only candidates whose corrected arrival falls within
-   +- ``window_days`` of Earth's passage.
+A parent that split or had an outburst releases dust differently on that return: an
+:class:`EjectionEvent` replaces the return's normal release by release around the event's date,
+at a multiple of the speed law's speeds, over its own size range.
 
 Every candidate keeps its importance weight (mass distribution), and the number drawn per
 return is recorded, so that the activity stage can turn the integrated few back into numbers
@@ -27,6 +21,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .constants import GM_SUN_AU3_D2
+from .crossings import elements_under_radiation
 from .ejection import (
     DEFAULT_ACTIVITY_EXPONENT,
     DEFAULT_EJECTION_SPEED_LAW,
@@ -39,9 +34,60 @@ from .ejection import (
     sample_log_uniform_masses_g,
     sunward_directions,
 )
-from .encounters import elements_under_radiation, node_of_orbit
 from .history import ParentReturn
 from .orbits import state_to_elements
+
+#: Kinds of ejection event trailcast knows.
+EVENT_KINDS = ("fragmentation", "outburst")
+
+
+@dataclass(frozen=True)
+class EjectionEvent:
+    """Dust released by a break-up or an outburst of the parent, instead of normal activity.
+
+    Attributes
+    ----------
+    kind : {"fragmentation", "outburst"}
+    t_tdb_jd : float
+        Start of the release (TDB JD); it must fall within an active arc of the parent (the
+        return it belongs to is the trail it makes).
+    duration_days : float
+        Release is spread uniformly over this many days from ``t_tdb_jd``.
+    speed_multiplier : float
+        Ejection speeds are the model's speed law times this factor. Break-ups release dust at
+        several times the gas-drag speeds of normal activity: e.g. ~10x was used to model the
+        dust of a comet that split in 1995 (Wiegert et al. 2005, MNRAS 361, 638, from memory).
+    mass_min_g, mass_max_g : float or None
+        Size range of the event's dust (None: the model's).
+    source : str
+        Where the event's numbers come from (shown in the output).
+    """
+
+    kind: str
+    t_tdb_jd: float
+    duration_days: float = 5.0
+    speed_multiplier: float = 1.0
+    mass_min_g: float | None = None
+    mass_max_g: float | None = None
+    source: str = ""
+
+    def __post_init__(self):
+        if self.kind not in EVENT_KINDS:
+            raise ValueError(f"unknown ejection event {self.kind!r}; use one of {EVENT_KINDS}")
+        if not (self.duration_days > 0 and self.speed_multiplier > 0):
+            raise ValueError("an ejection event needs duration_days > 0 and speed_multiplier > 0")
+
+    def describe(self) -> dict:
+        from .timescales import format_iso
+
+        return {
+            "kind": self.kind,
+            "start_tdb": format_iso(self.t_tdb_jd, "TDB"),
+            "duration_days": self.duration_days,
+            "speed_multiplier": self.speed_multiplier,
+            "mass_range_g": [self.mass_min_g, self.mass_max_g],
+            "source": self.source,
+        }
 
 
 @dataclass(frozen=True)
@@ -124,20 +170,50 @@ class Candidates:
         return len(self.release_t_tdb_jd)
 
 
+def event_of_return(ret: ParentReturn, events) -> "EjectionEvent | None":
+    """The ejection event whose start falls within this return's active arc, if any."""
+    if len(ret.arc_t_tdb_jd) == 0:
+        return None
+    for ev in events:
+        if ret.arc_t_tdb_jd[0] - 0.5 <= ev.t_tdb_jd <= ret.arc_t_tdb_jd[-1] + 0.5:
+            return ev
+    return None
+
+
 def draw_candidates(
-    ret: ParentReturn, model: EjectionModel, n: int, rng: np.random.Generator
+    ret: ParentReturn,
+    model: EjectionModel,
+    n: int,
+    rng: np.random.Generator,
+    event: EjectionEvent | None = None,
 ) -> Candidates:
     """Draw ``n`` release conditions over the active arc of one parent return.
 
     Release times are the parent's one-day arc samples, chosen with probability proportional to
-    the activity law. Unbound meteoroids (too large beta or speed) are dropped, so the result may
-    hold fewer than ``n``.
+    the activity law; with an ``event``, the samples within its release span, chosen uniformly,
+    with its speed multiplier and size range. Unbound meteoroids (too large beta or speed) are
+    dropped, so the result may hold fewer than ``n``.
     """
     k_arc = len(ret.arc_t_tdb_jd)
     if k_arc == 0 or n <= 0:
         return _empty()
     r_arc = np.linalg.norm(ret.arc_r_au, axis=-1)
-    w_arc = activity_weights(r_arc, model.activity_exponent)
+    if event is None:
+        w_arc = activity_weights(r_arc, model.activity_exponent)
+    else:
+        t_arc = ret.arc_t_tdb_jd
+        w_arc = (
+            (t_arc >= event.t_tdb_jd - 0.5) & (t_arc <= event.t_tdb_jd + event.duration_days)
+        ).astype(float)
+        if not w_arc.any():  # shorter than the arc's one-day grid: the nearest sample
+            w_arc[int(np.argmin(np.abs(t_arc - event.t_tdb_jd)))] = 1.0
+        model = EjectionModel(
+            **{
+                **model.__dict__,
+                "mass_min_g": event.mass_min_g or model.mass_min_g,
+                "mass_max_g": event.mass_max_g or model.mass_max_g,
+            }
+        )
     p = w_arc / w_arc.sum()
     ia = rng.choice(k_arc, size=n, p=p)
     r = ret.arc_r_au[ia]
@@ -154,6 +230,8 @@ def draw_candidates(
         nucleus_density_g_cm3=model.nucleus_density_g_cm3,
         meteoroid_density_g_cm3=model.meteoroid_density_g_cm3,
     )
+    if event is not None:
+        speed = speed * event.speed_multiplier
     if model.speed_spread == "uniform":
         speed = speed * rng.random(n)
     elif model.speed_spread != "fixed":
@@ -184,54 +262,3 @@ def draw_candidates(
 def _empty() -> Candidates:
     z = np.zeros(0)
     return Candidates(z, np.zeros((0, 3)), np.zeros((0, 3)), z, z, z, z, z, z, z)
-
-
-def parent_node_time(ret: ParentReturn, node: str) -> float:
-    """Time (TDB JD) the parent passes ``node`` on the revolution of return ``ret`` (two-body
-    from its perihelion elements; the node nearest perihelion in time)."""
-    from .encounters import _time_from_perihelion
-
-    el = ret.elements
-    nu = -float(el.peri_deg) if node == "ascending" else 180.0 - float(el.peri_deg)
-    dt, _, _ = _time_from_perihelion(
-        np.array([float(el.q_au)]),
-        np.array([float(el.e)]),
-        np.array([float(el.incl_deg)]),
-        np.array([float(el.node_deg)]),
-        np.array([float(el.peri_deg)]),
-        np.array([nu]),
-        np.array([1.0]),
-    )
-    return ret.tp_tdb_jd + float(dt[0])
-
-
-def nodes_near_earth(ret: ParentReturn, max_distance_au: float):
-    """The parent's nodes (on return ``ret``) within ``max_distance_au`` of Earth's orbit.
-
-    Earth's distance is DE423's at the time Earth passes the node's longitude nearest the
-    return (clipped into DE423's span). Returns a list of (node, r_node_au, node_longitude_deg).
-    """
-    from .encounters import earth_passage_tdb
-    from .ephemeris import EPHEMERIS_SPAN_TDB_JD, heliocentric_state
-
-    el = ret.elements
-    out = []
-    for which in ("ascending", "descending"):
-        r, lon = node_of_orbit(
-            float(el.q_au),
-            float(el.e),
-            float(el.incl_deg),
-            float(el.node_deg),
-            float(el.peri_deg),
-            which,
-        )
-        if not np.isfinite(r):
-            continue
-        t = float(
-            np.clip(ret.tp_tdb_jd, EPHEMERIS_SPAN_TDB_JD[0] + 400, EPHEMERIS_SPAN_TDB_JD[1] - 400)
-        )
-        te = earth_passage_tdb(lon, t)
-        r_e = float(np.linalg.norm(heliocentric_state("earth", te)[0]))
-        if abs(float(r) - r_e) <= max_distance_au:
-            out.append((which, float(r), float(lon)))
-    return out

@@ -1,0 +1,119 @@
+"""One way to run integration chunks: in this process, in local worker processes, or on Dask.
+
+Every stage of the dust-trail pipeline that integrates meteoroids hands its chunks to
+:func:`run_tasks`; every process pool of the engine comes from :func:`make_executor`. Chunks are
+independent (meteoroids are test particles), so results never depend on where a chunk ran.
+"""
+
+import concurrent.futures as cf
+import multiprocessing
+import os
+from collections.abc import Callable, Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass
+
+import numpy as np
+
+from .nbody import MassiveBodies, integrate_particles
+
+
+def default_workers() -> int:
+    """Worker processes used when the caller does not say: one per core this process may use."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # pragma: no cover - not Linux
+        return max(1, os.cpu_count() or 1)
+
+
+#: Linux prctl option: signal this process when its parent dies (linux/prctl.h).
+_PR_SET_PDEATHSIG = 1
+
+
+def _worker_init() -> None:
+    """Runs once in each worker process: die with the parent (no orphans after a SIGKILL).
+
+    On Linux the kernel sends SIGTERM to the worker when the process that started it dies;
+    elsewhere this does nothing.
+    """
+    import ctypes
+    import signal
+    import sys
+
+    if not sys.platform.startswith("linux"):  # pragma: no cover
+        return
+    try:
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(_PR_SET_PDEATHSIG, int(signal.SIGTERM), 0, 0, 0)
+    except (OSError, AttributeError):  # pragma: no cover - no prctl: nothing to arm
+        return
+
+
+@contextmanager
+def make_executor(workers: int):
+    """A process pool of ``workers`` processes (``spawn``: safe under a threaded web server),
+    or None for ``workers <= 1`` (run in this process). Use as a context manager."""
+    if workers <= 1:
+        yield None
+        return
+    ctx = multiprocessing.get_context("spawn")
+    with cf.ProcessPoolExecutor(
+        max_workers=workers, mp_context=ctx, initializer=_worker_init
+    ) as pool:
+        yield pool
+
+
+@dataclass(frozen=True)
+class Task:
+    """One integration chunk: meteoroids released from one parent return, output times."""
+
+    key: tuple
+    bodies: MassiveBodies
+    release_t: np.ndarray
+    r: np.ndarray
+    v: np.ndarray
+    beta: np.ndarray
+    out_t: np.ndarray
+    integrator: str
+    dt_days: float
+
+
+def run_task(task: Task):
+    """Integrate one chunk (top-level so that worker processes can run it)."""
+    return integrate_particles(
+        task.bodies,
+        task.release_t,
+        task.r,
+        task.v,
+        task.beta,
+        task.out_t,
+        integrator=task.integrator,
+        dt_days=task.dt_days,
+    )
+
+
+def run_tasks(
+    tasks: Sequence[Task], executor=None, on_done: Callable[[int, int], None] | None = None
+):
+    """Run integration chunks and return their results in submission order.
+
+    ``executor`` is anything with ``submit`` (a process pool from :func:`make_executor`, a Dask
+    client's executor) or None (this process). ``on_done(k, n)`` is called after each chunk; an
+    exception it raises (e.g. a cancelled job) stops the run and cancels chunks not yet started.
+    """
+    n = len(tasks)
+    report = on_done or (lambda k, total: None)
+    if executor is None or n <= 1:
+        out = []
+        for k, t in enumerate(tasks):
+            out.append(run_task(t))
+            report(k + 1, n)
+        return out
+    futures = [executor.submit(run_task, t) for t in tasks]
+    try:
+        for k, _ in enumerate(cf.as_completed(futures)):
+            report(k + 1, n)
+        return [f.result() for f in futures]
+    except BaseException:
+        for f in futures:
+            f.cancel()
+        raise

@@ -1,0 +1,246 @@
+"""The engine's reach: any date, every trail in scope stated, 3-D crossings, planets vs DE423.
+
+Kinds: `reference` against DE423 (Folkner 2010) read through jplephem; `invariant` for
+geometric identities and sampling properties.
+"""
+
+import numpy as np
+import pytest
+from reference_cases import PARENT_55P
+
+from dynamics.crossings import closest_approaches
+from dynamics.ephemeris import barycentric_states, heliocentric_state
+from dynamics.forecast import ForecastOptions, _seed_for, _trails_in_scope
+from dynamics.history import ParentReturn, parent_history
+from dynamics.nbody import MASSIVE_BODIES, ParentSimulation, massive_bodies_from_ephemeris
+from dynamics.orbit_input import parse_orbit
+from dynamics.orbits import Elements
+from dynamics.release import EjectionEvent, EjectionModel, draw_candidates
+from dynamics.targeting import ArrivalMap, Target, predicted_offset, select_for_window
+from dynamics.timescales import calendar_year_tdb_jd
+
+AU_KM = 149_597_870.7  # IAU 2012 B2
+
+
+@pytest.mark.invariant
+@pytest.mark.parametrize("tp", [2451545.0, 0.4, -7_300_000.0, -1e7 + 0.5])
+def test_trail_seed_works_for_any_date(tp):
+    # a perihelion 20,000 years ago has a negative Julian date; it must still seed the draws
+    rng = np.random.default_rng(_seed_for(1, tp))
+    assert 0.0 <= rng.random() < 1.0
+    assert _seed_for(1, tp).entropy == _seed_for(1, tp).entropy  # reproducible
+
+
+def _ret(tp, active=True):
+    el = Elements(1.0, 0.9, 10.0, 20.0, 30.0, tp, 0.0, tp)
+    t = np.array([tp - 1.0, tp, tp + 1.0]) if active else np.zeros(0)
+    return ParentReturn(tp, el, t, np.zeros((len(t), 3)), np.zeros((len(t), 3)), None)
+
+
+@pytest.mark.invariant
+def test_long_period_parent_keeps_its_previous_return_in_scope():
+    # A long-period parent: previous return 2,000 years ago, current one in 2026. The default
+    # trail-age limit (500 yr) must not drop the only trail that can reach Earth.
+    y0, _ = calendar_year_tdb_jd(2030)
+    _, y1 = calendar_year_tdb_jd(2040)
+    returns = (_ret(y0 - 2004 * 365.25), _ret(y0 - 4 * 365.25))
+    opts = ForecastOptions(2030, 2040, workers=1)
+    t_min = y0 - opts.max_trail_age_years * 365.25
+    ids, notes = _trails_in_scope(returns, opts, t_min, y0, y1)
+    assert ids == [0, 1]
+    # and a short-period parent's old returns beyond the limit are left out, with a word
+    many = tuple(_ret(y0 - k * 33.0 * 365.25) for k in range(30, 0, -1))
+    ids, notes = _trails_in_scope(many, opts, t_min, y0, y1)
+    kept_ages = [(y0 - many[k].tp_tdb_jd) / 365.25 for k in ids]
+    assert max(kept_ages) <= opts.max_trail_age_years
+    assert any("beyond the trail-age limit" in n for n in notes)
+
+
+@pytest.mark.invariant
+def test_crossing_point_lies_in_earths_plane_and_closest_to_earths_path():
+    # A 55P-like orbit near its descending node in 1999: the returned crossing lies in the
+    # osculating plane of Earth's path, the miss vector is perpendicular to Earth's velocity,
+    # and no point of Earth's path within +-1 day comes closer (brute force, 1-minute grid).
+    o = PARENT_55P
+    q, e, i, node, peri = (np.array([o[k]]) for k in ("q", "e", "i", "node", "peri"))
+    r_m, _, t_e, _, r_e, v_e, miss, n = closest_approaches(
+        q, e, i, node, peri, 180.0 - peri, np.ones(1), np.array([2451500.5])
+    )
+    d = r_m - r_e
+    assert abs(float(np.sum(d * n))) * AU_KM < 1.0  # in Earth's plane to a kilometre
+    cos_angle = float(np.sum(d * v_e) / (np.linalg.norm(d) * np.linalg.norm(v_e)))
+    assert abs(cos_angle) < 1e-6
+    grid = t_e[0] + np.arange(-1440, 1441) / 1440.0
+    r_path, _ = heliocentric_state("earth", grid)
+    brute = np.min(np.linalg.norm(r_path - r_m[0], axis=-1))
+    assert abs(abs(miss[0]) - brute) * AU_KM < 5.0  # grid spacing 1 min ~ 1,800 km chord: < 5 km
+
+
+@pytest.mark.reference
+@pytest.mark.slow
+def test_planets_follow_de423_over_a_century():
+    # Sun and planets integrated (IAS15 + general relativity, REBOUNDx gr) from DE423 at
+    # 1999-12-01 back to 1899: compared with DE423 itself (Folkner 2010). Measured: Mercury,
+    # Venus, Mars, Jupiter, Saturn, Uranus, Neptune 60-210 km; without relativity Mercury drifts
+    # ~47,000 km. Tolerance 1,000 km: a tenth of the narrowest trail widths (~1e-4 au), and
+    # Mercury's relativistic drift is 40 times that. The Earth-Moon barycentre as a point mass
+    # drifts ~12,000 km (the Sun's tide on the Earth-Moon pair is not modelled); trailcast takes
+    # Earth from DE423 for every crossing, so that drift only touches Earth's own perturbation.
+    t0, t1 = 2451513.5, 2451513.5 - 100 * 365.25
+    bodies = massive_bodies_from_ephemeris(t0)
+    far = np.array([30.0, 0.0, 5.0])  # a harmless test particle far out
+    sim = ParentSimulation(bodies, far, np.array([0.0, 0.003, 0.0]))
+    assert sim.relativity
+    sim.integrate(t1)
+    got = sim.massive_bodies()
+    ref = barycentric_states(MASSIVE_BODIES, t1)
+    drift_km = {
+        name: float(np.linalg.norm(got.r_au[k] - ref[name][0]) * AU_KM)
+        for k, name in enumerate(MASSIVE_BODIES)
+    }
+    for name in ("mercury", "venus", "mars", "jupiter", "saturn", "uranus", "neptune"):
+        assert drift_km[name] < 1000.0, drift_km
+
+
+@pytest.mark.invariant
+def test_fragmentation_event_releases_at_its_date_with_its_speeds():
+    orbit = parse_orbit(PARENT_55P)
+    tp = orbit.tp_tdb_jd
+    hist = parent_history(orbit, tp - 30, tp + 30)
+    ret = min(hist.returns, key=lambda r: abs(r.tp_tdb_jd - tp))
+    model = EjectionModel(speed_spread="fixed")
+    rng = np.random.default_rng(3)
+    normal = draw_candidates(ret, model, 2000, rng)
+    ev = EjectionEvent("fragmentation", tp + 10.0, duration_days=4.0, speed_multiplier=8.0)
+    split = draw_candidates(ret, model, 2000, np.random.default_rng(3), event=ev)
+    assert split.release_t_tdb_jd.min() >= ev.t_tdb_jd - 0.5
+    assert split.release_t_tdb_jd.max() <= ev.t_tdb_jd + ev.duration_days + 1e-9
+    # same law at the same heliocentric distances, eight times faster
+    assert np.median(split.speed_m_s) > 4.0 * np.median(normal.speed_m_s)
+
+
+@pytest.mark.invariant
+def test_prediction_uses_the_parents_realised_period():
+    # With no ejection (zero offsets) a meteoroid follows the parent: its predicted arrival is
+    # the parent's own node passage, whatever the osculating period at release said.
+    from dynamics.release import Candidates
+
+    z = np.zeros(3)
+    pool = Candidates(z, np.zeros((3, 3)), np.zeros((3, 3)), z + 1, z + 1, z, z, z + 1, z, z)
+    tg = Target(0, 2000, "descending", 1000.0, 1, 1010.0, 2000.0 * 365.25, 2400.0 * 365.25)
+    assert np.allclose(predicted_offset(pool, tg), 10.0)
+    # a positive period offset arrives later, and more so when the realised period is longer
+    pool2 = Candidates(
+        z, np.zeros((3, 3)), np.zeros((3, 3)), z + 1, z + 1, z, z, z + 1, z + 365.25, z
+    )
+    later = predicted_offset(pool2, tg)
+    assert np.all(later > 10.0)
+
+
+@pytest.mark.invariant
+def test_selection_is_a_random_subset_with_its_inclusion_fraction():
+    x = np.linspace(-100, 100, 201)
+    y = 2.0 * x + 10.0  # the "integrated" map: arrivals twice as spread, 10 days late
+    amap = ArrivalMap(x, y, np.zeros(201, dtype=int), 1)
+    cls = np.zeros(201, dtype=int)
+    taken = np.zeros(201, dtype=bool)
+    pick, eligible, frac = select_for_window(amap, x, cls, 20.0, taken, 5)
+    # mapped arrival within +-20 d: 2x + 10 in [-20, 20] -> x in [-15, 5]: 21 candidates
+    assert len(eligible) == 21 and len(pick) == 5 and frac == pytest.approx(5 / 21)
+    assert ArrivalMap(x, y, np.zeros(201, dtype=int), 1).brackets() == (True, 0.0)
+    late = ArrivalMap(x, y + 1000.0, np.zeros(201, dtype=int), 1)
+    assert late.brackets() == (False, -1.0)  # all late: look at earlier predictions
+
+
+@pytest.mark.invariant
+def test_orbit_file_and_cli_name_the_same_ejection_event():
+    from dynamics.errors import InvalidOrbit
+    from service.cli import UsageError, _parse_event
+
+    base = dict(PARENT_55P)
+    base["ejection_events"] = [
+        {"kind": "fragmentation", "start": 2450000.5, "duration_days": 5, "speed_multiplier": 8}
+    ]
+    orbit = parse_orbit(base)
+    (ev,) = orbit.ejection_events
+    assert ev == _parse_event("fragmentation:2450000.5:8:5").__class__(
+        "fragmentation", 2450000.5, 5.0, 8.0, source=""
+    )
+    assert parse_orbit(orbit.to_json()).ejection_events == orbit.ejection_events  # round trip
+    for bad, field in [
+        ({"kind": "explosion", "start": 2450000.5}, "kind"),
+        ({"kind": "outburst"}, "start"),
+        ({"kind": "outburst", "start": 2450000.5, "speed_multiplier": 1e4}, "speed_multiplier"),
+        ({"kind": "outburst", "start": 2450000.5, "colour": 1}, "colour"),
+    ]:
+        with pytest.raises(InvalidOrbit) as exc:
+            parse_orbit({**PARENT_55P, "ejection_events": [bad]})
+        assert exc.value.field.endswith(field)
+    with pytest.raises(UsageError):
+        _parse_event("fragmentation:1995-09-10:fast")
+
+
+@pytest.mark.invariant
+def test_parent_history_is_computed_once_and_reused(tmp_path, monkeypatch):
+    import json
+    from pathlib import Path
+
+    from dynamics import history
+
+    monkeypatch.setenv("TRAILCAST_CACHE_DIR", str(tmp_path))
+    monkeypatch.setattr(history, "_memory_cache", {})
+    demo = Path(__file__).resolve().parents[1] / "examples" / "demo-comet.json"
+    orbit = parse_orbit(json.loads(demo.read_text()))
+    t0 = orbit.tp_tdb_jd
+    first = history.cached_parent_history(orbit, t0 - 30 * 365.25, t0 + 365.0)
+    assert len(list(tmp_path.glob("*.pickle"))) == 1
+    calls = []
+    monkeypatch.setattr(history, "parent_history", lambda *a, **k: calls.append(a))
+    again = history.cached_parent_history(orbit, t0 - 31 * 365.25, t0 + 300.0)  # same quantum
+    assert again is first and not calls
+    monkeypatch.setattr(history, "_memory_cache", {})  # a new process: read from disk
+    disk = history.cached_parent_history(orbit, t0 - 30 * 365.25, t0 + 365.0)
+    assert not calls
+    assert [r.tp_tdb_jd for r in disk.returns] == [r.tp_tdb_jd for r in first.returns]
+
+
+@pytest.mark.invariant
+@pytest.mark.slow
+def test_a_forecast_that_finds_nothing_says_what_it_tried():
+    # The invented demo comet's 2026 trail cannot reach Earth in 2030 (it left four years
+    # earlier with the parent's own period of 13 years): nothing comes near, and the result
+    # must still state, for every trail passage in scope, what became of it and what was tried.
+    import json
+    from pathlib import Path
+
+    from dynamics.forecast import forecast
+
+    demo = Path(__file__).resolve().parents[1] / "examples" / "demo-comet.json"
+    orbit = parse_orbit(json.loads(demo.read_text()))
+    res = forecast(orbit, ForecastOptions(2030, 2030, trails=(2026,), particles=20, workers=1))
+    out = res.to_json()
+    assert out["encounters"] == []
+    assert out["trails"], "trails in scope but no word about them"
+    for row in out["trails"]:
+        assert row["outcome"] in {"encounter", "near miss", "distant", "not reached"}
+        assert {"pilot_rounds", "pilot_span_days", "selection", "meteoroids_integrated"} <= set(
+            row["tried"]
+        )
+        if row["outcome"] == "not reached":
+            assert row["reason"]
+    assert any(n.startswith("no encounter") for n in out["notes"]), out["notes"]
+
+
+@pytest.mark.invariant
+@pytest.mark.parametrize("years_back", [2_000, 6_000, 20_000, 24_000])  # whole 400-yr cycles
+def test_perihelia_tens_of_thousands_of_years_back_have_dates(years_back):
+    # A long-period parent's previous return 20,000 years ago has a negative Julian date and
+    # lies before erfa's calendar (-4799): it must still be written and get its year.
+    from dynamics.summaries import year_of
+    from dynamics.timescales import format_iso
+
+    t = 2451545.0 - years_back * 365.2425  # J2000.0 minus whole Gregorian years
+    y = 2000 - years_back
+    year_text = f"{y:04d}" if y >= 0 else f"-{-y:04d}"
+    assert format_iso(t, "TDB") == f"{year_text}-01-01T12:00:00 TDB"
+    assert year_of(t) == y

@@ -1,0 +1,104 @@
+"""Hindcasts of one public outburst per class of parent: the engine's reach, against history.
+
+Each case is a row of the hindcast catalogue (``validation/hindcasts.json``), whose observed
+peak, source and tolerance were written there before any run (see its ``tolerance_reason`` and
+``peak_utc_source``). The engine runs with its defaults except the particle budget (kept small
+so that ``make test`` stays quick) and, for the split comet, the break-up as an ejection event.
+
+- split comet: the 2022 tau Herculids from 73P's 1995 break-up (5 revolutions);
+- old, strongly perturbed Jupiter-family trail: the 2011 October Draconids from 21P's 1900 trail
+  (17 revolutions);
+- one-revolution dust of a long-period parent: the 2007 Aurigids from C/1911 N1's previous
+  return (about 2,000 years earlier); run by ``make validate`` (several minutes);
+- resonant trail: the 1998 Leonid fireball outburst from 55P's 1333 trail (20 revolutions, held
+  compact by a mean-motion resonance with Jupiter); run by ``make validate``.
+"""
+
+import json
+from pathlib import Path
+
+import pytest
+
+from dynamics.forecast import ForecastOptions, forecast
+from dynamics.orbit_input import parse_orbit
+from dynamics.release import EjectionEvent
+from dynamics.summaries import year_of
+from dynamics.timescales import iso_to_tdb_jd
+
+CATALOGUE = Path(__file__).resolve().parents[1] / "validation" / "hindcasts.json"
+
+# The 1995 break-up of 73P: the nucleus split around its 1995 September perihelion, with an
+# outburst seen from early September (Crovisier et al. 1996, from memory); dust from such
+# break-ups left at several times the gas-drag speeds (Wiegert et al. 2005, MNRAS 361, 638, used
+# ~10x for this comet, from memory). Modelled as 30 days of release from 1995-09-01 (JD TDB
+# 2449961.5) at 10x the Whipple speeds: set before the run, not fitted.
+BREAK_UP_1995 = EjectionEvent(
+    "fragmentation",
+    2449961.5,
+    duration_days=30.0,
+    speed_multiplier=10.0,
+    source="1995 Sep break-up of 73P (Crovisier et al. 1996; Wiegert et al. 2005; from memory)",
+)
+
+CASES = {
+    # row id: (trail perihelion year, options beyond the defaults)
+    "tah-2022-1995": (1995, {"trails": (1995,), "events": (BREAK_UP_1995,)}),
+    "dra-2011-1900": (1900, {"trails": (1900,)}),
+    "aur-2007-1rev": (None, {}),  # default scope: the previous return is always in it
+    "leo-1998-1333": (1333, {"trails": (1333,)}),
+}
+
+
+def _row_and_orbit(row_id):
+    cat = json.loads(CATALOGUE.read_text())
+    row = next(r for r in cat["rows"] if r["id"] == row_id)
+    o = cat["orbits"][row["parent"]]
+    data = {
+        "name": f"{o['designation']} (reference case)",
+        "epoch": o["epoch_tdb_jd"],
+        "q": o["q_au"],
+        "e": o["e"],
+        "i": o["incl_deg"],
+        "node": o["node_deg"],
+        "peri": o["peri_deg"],
+        "tp": o["tp_tdb_jd"],
+    }
+    if o.get("nongrav_au_d2"):
+        data["nongrav"] = o["nongrav_au_d2"]
+    return row, parse_orbit(data)
+
+
+def _hindcast(row_id, particles=150):
+    row, orbit = _row_and_orbit(row_id)
+    trail_year, extra = CASES[row_id]
+    res = forecast(orbit, ForecastOptions(row["year"], row["year"], particles=particles, **extra))
+    found = [
+        e
+        for e in res.encounters + res.near_misses
+        if trail_year is None or year_of(e.trail_perihelion_tdb_jd) == trail_year
+    ]
+    return row, res, found
+
+
+def _check(row, res, found):
+    observed = iso_to_tdb_jd(row["observed"]["peak_utc"])
+    tol_min = row["tolerance_min"]  # set in the catalogue before any run, with its reason
+    assert found, (res.to_json()["trails"], res.notes)
+    best = min(found, key=lambda e: abs(e.peak_tdb_jd - observed))
+    offset_min = (best.peak_tdb_jd - observed) * 1440.0
+    assert abs(offset_min) <= tol_min, (offset_min, best.to_json()["trail"])
+    assert abs(best.miss_distance_au) < 0.01  # it met Earth's path, not a distant crossing
+
+
+@pytest.mark.reference
+@pytest.mark.slow
+@pytest.mark.parametrize("row_id", ["tah-2022-1995", "dra-2011-1900"])
+def test_hindcast_within_the_catalogued_tolerance(row_id):
+    _check(*_hindcast(row_id))
+
+
+@pytest.mark.reference
+@pytest.mark.validation
+@pytest.mark.parametrize("row_id", ["aur-2007-1rev", "leo-1998-1333"])
+def test_long_hindcast_within_the_catalogued_tolerance(row_id):
+    _check(*_hindcast(row_id, particles=300))
