@@ -408,16 +408,17 @@ def _wait_done(server, job_id: str) -> dict:
 def test_upcoming_lists_the_latest_forecast_per_parent_and_options(server, browser):
     # Two forecasts of the same parent with the same options, the second from a revised orbit
     # (q changed in the fifth decimal): only the second is listed until older ones are asked for.
+    # A third with another seed is another option set: listed beside them, its seed named.
     base = {"years": [2040, 2040], "particles": 20, "options": {"trails": [2026], "seed": 7}}
+    revised = {**DEMO_ORBIT, "q": DEMO_ORBIT["q"] + 0.00001}
     ids = []
-    for q in (DEMO_ORBIT["q"], DEMO_ORBIT["q"] + 0.00001):
-        r = httpx.post(
-            f"{server.url}/v1/forecasts", json={**base, "orbit": {**DEMO_ORBIT, "q": q}}, timeout=30
-        )
+    for orbit, seed in ((DEMO_ORBIT, 7), (revised, 7), (revised, 8)):
+        body = {**base, "orbit": orbit, "options": {**base["options"], "seed": seed}}
+        r = httpx.post(f"{server.url}/v1/forecasts", json=body, timeout=30)
         assert r.status_code in (200, 202), r.text
         ids.append(r.json()["id"])
-        _wait_done(server, ids[-1])  # one after the other: the second finishes later
-    older, latest = ids
+        _wait_done(server, ids[-1])  # one after the other: each finishes after the one before
+    older, latest, other_seed = ids
     context = browser.new_context(viewport={"width": 1280, "height": 800})
     requests = Requests(context, server.url)
     page = context.new_page()
@@ -425,6 +426,7 @@ def test_upcoming_lists_the_latest_forecast_per_parent_and_options(server, brows
         page.goto(server.url + "/#/upcoming")
         page.wait_for_selector(f"#upcoming-table a[href='#/forecasts/{latest}']")
         assert page.locator(f"#upcoming-table a[href='#/forecasts/{older}']").count() == 0
+        assert page.locator(f"#upcoming-table a[href='#/forecasts/{other_seed}']").count() >= 1
         assert "more from older forecasts" in page.inner_text("#upcoming-status")
         page.check("#upcoming-older")
         row = page.locator(
@@ -432,7 +434,8 @@ def test_upcoming_lists_the_latest_forecast_per_parent_and_options(server, brows
         )
         assert row.count() >= 1 and "older" in row.first.inner_text()
         # The options that tell this parent's forecasts apart are named beside the links.
-        assert "seed 7" in page.inner_text("#upcoming-table")
+        table = page.inner_text("#upcoming-table")
+        assert "seed 7" in table and "seed 8" in table
         assert _tables_that_overflow(page) == []
         _shot(page, "upcoming-older-1280x800")
     finally:

@@ -12,7 +12,8 @@ const DEMO_ORBIT = {
   peri: 204.2,
   tp: "2026-10-30T06:00:00 TDB",
 };
-const ORBIT_KEYS = ["name", "epoch", "q", "e", "i", "node", "peri", "tp", "nongrav", "covariance", "solutions"];
+// dynamics.orbit_input.ORBIT_KEYS, in its order (the API's message lists them so).
+const ORBIT_KEYS = ["name", "epoch", "q", "e", "i", "node", "peri", "tp", "nongrav", "covariance", "solutions", "ejection_events"];
 const POLL_MS = 700;
 const $ = (sel, root = document) => root.querySelector(sel);
 
