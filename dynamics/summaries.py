@@ -221,6 +221,7 @@ def summarise(
             n_drawn,
             options.dust_mass(),
         )
+        * met.sample_weight
         / inclusion[keep]
         * options.zhr_scale
     )

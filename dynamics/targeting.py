@@ -74,6 +74,10 @@ class Target:
     keep_prob: np.ndarray | None = None  # per pool candidate: 1 - P(integrated), main rounds
     rounds: int = 0
     selection_mode: str = "shooting"
+    pool: Candidates | None = None  # the trail's pool, or this target's own targeted pool
+    cls: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=int))  # beta class
+    n_drawn: int = 0  # draws behind ``pool`` (the activity's weights)
+    targeted_pool: bool = False
 
 
 def parent_node_time(ret: ParentReturn, node: str) -> float:
