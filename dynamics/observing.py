@@ -492,6 +492,15 @@ def _local_text(t_utc_jd: float, offset_h: float) -> str:
     return f"{minutes // 60:02d}:{minutes % 60:02d}"
 
 
+def rate_text(x: float) -> str:
+    """A rate as people read it: whole numbers from 10 up, one decimal below.
+
+    >>> rate_text(1952.6), rate_text(57.8), rate_text(4.85)
+    ('1953', '58', '4.8')
+    """
+    return f"{x:.0f}" if x >= 10 else f"{x:.1f}"
+
+
 def _r(x, nd=2):
     return None if x is None else round(float(x), nd)
 
@@ -526,8 +535,11 @@ def site_encounter_view(
     extra = [t_peak] + profile_t
     if window:
         extra += [utc_jd(window["start_utc"]), utc_jd(window["end_utc"])]
-    t = np.unique(np.concatenate([grid, np.array(extra)]))
-    t = t[(t >= grid[0]) & (t <= grid[-1])]
+    # Profile and window times join the grid unless within a minute of a grid time.
+    extra = np.unique(np.array(extra))
+    extra = extra[(extra > grid[0]) & (extra < grid[-1])]
+    extra = extra[np.min(np.abs(extra[:, None] - grid[None, :]), axis=1) > 1.0 / 1440.0]
+    t = np.unique(np.concatenate([grid, extra]))
     sky = sky_state(ra, dec, t, site.lat_deg, site.lon_deg, site.elevation_m)
     z_t = _zhr_at(encounter, t)
     hr_t = None if z_t is None else expected_hourly_rate(
@@ -669,8 +681,9 @@ def _verdict(at_peak: dict, window: dict | None, min_alt: float, max_sun: float)
             return "observable at the peak (no rate: the forecast has no ZHR)"
         return (
             f"observable at the peak: radiant {at_peak['radiant_alt_deg']:.0f} deg high, "
-            f"{at_peak['sky']}; expect about {rate:g} meteors per hour "
-            f"(range {at_peak['hourly_rate_low']:g}-{at_peak['hourly_rate_high']:g})"
+            f"{at_peak['sky']}; expect about {rate_text(rate)} meteors per hour "
+            f"(range {rate_text(at_peak['hourly_rate_low'])}-"
+            f"{rate_text(at_peak['hourly_rate_high'])})"
         )
     reasons = []
     if at_peak["radiant_alt_deg"] < min_alt:
@@ -684,7 +697,7 @@ def _verdict(at_peak: dict, window: dict | None, min_alt: float, max_sun: float)
     text = "not observable at the peak: " + "; ".join(reasons)
     if window and window.get("best"):
         b = window["best"]
-        text += f"; best in the window at {b['time_utc']} ({b['hourly_rate']:g} per hour)"
+        text += f"; best in the window at {b['time_utc']} ({rate_text(b['hourly_rate'])} per hour)"
     return text
 
 
@@ -865,7 +878,10 @@ def best_regions(grid: WorldGrid, land=None) -> list[dict]:
             where = "all longitudes" if len(cols) == len(band) else (
                 f"{_lon_text(lon0)} to {_lon_text(lon1)}"
             )
-            text = f"{_lat_text(b0)} to {_lat_text(b1)}, {where}: up to {item['hourly_rate_max']:g} per hour"
+            text = (
+                f"{_lat_text(b0)} to {_lat_text(b1)}, {where}: up to "
+                f"{rate_text(item['hourly_rate_max'])} per hour"
+            )
             if land is not None:
                 frac = float(land[np.ix_(rows, cols)][cells].mean())
                 item["land_fraction"] = round(frac, 2)
