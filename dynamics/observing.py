@@ -115,7 +115,7 @@ OBSERVING_CAUTIONS = (
     "Expected rates are model estimates: the predicted ZHR may be wrong by a factor of several "
     "and the peak time by tens of minutes; the formula assumes a clear sky and a standard observer.",
     "The Moon is not in the rate: a bright Moon near the radiant lowers the limiting magnitude, so "
-    "set --limiting-magnitude to what you expect to see.",
+    "set the limiting magnitude to what you expect to see.",
     "Observing at night: dress for the cold (it is colder than it feels after an hour lying still), "
     "mind traffic and terrain in the dark, pick a safe legal site, tell someone where you are, and "
     "observe with company.",
@@ -165,7 +165,8 @@ class Site:
             raise InvalidSite(
                 "elevation", f"elevation must be in [-500, 9000] m, got {self.elevation_m}"
             )
-        object.__setattr__(self, "lon_deg", (float(self.lon_deg) + 180.0) % 360.0 - 180.0)
+        lon = float(self.lon_deg)
+        object.__setattr__(self, "lon_deg", lon - 360.0 if lon >= 180.0 else lon)
         object.__setattr__(self, "lat_deg", float(self.lat_deg))
         object.__setattr__(self, "elevation_m", float(self.elevation_m))
 
@@ -214,7 +215,11 @@ def _earth_equatorial(t_tdb_jd):
     """Earth's barycentric (position au, velocity au/day) and heliocentric position, ICRF axes."""
     states = barycentric_states(["earth", "sun"], t_tdb_jd)
     (r_e, v_e), (r_s, _) = states["earth"], states["sun"]
-    return ecliptic_to_equatorial(r_e), ecliptic_to_equatorial(v_e), ecliptic_to_equatorial(r_e - r_s)
+    return (
+        ecliptic_to_equatorial(r_e),
+        ecliptic_to_equatorial(v_e),
+        ecliptic_to_equatorial(r_e - r_s),
+    )
 
 
 def observer_astrometry(t_utc_jd, lat_deg, lon_deg, elevation_m=0.0):
@@ -542,8 +547,10 @@ def site_encounter_view(
     t = np.unique(np.concatenate([grid, extra]))
     sky = sky_state(ra, dec, t, site.lat_deg, site.lon_deg, site.elevation_m)
     z_t = _zhr_at(encounter, t)
-    hr_t = None if z_t is None else expected_hourly_rate(
-        z_t, sky.radiant_alt_deg, r_pop, limiting_magnitude
+    hr_t = (
+        None
+        if z_t is None
+        else expected_hourly_rate(z_t, sky.radiant_alt_deg, r_pop, limiting_magnitude)
     )
     observable_t = (sky.radiant_alt_deg >= min_radiant_alt_deg) & (
         sky.sun_alt_deg <= max_sun_alt_deg
@@ -554,7 +561,9 @@ def site_encounter_view(
     def hr_of(value):
         if value is None:
             return None
-        return _r(expected_hourly_rate(value, sky.radiant_alt_deg[k_peak], r_pop, limiting_magnitude), 1)
+        return _r(
+            expected_hourly_rate(value, sky.radiant_alt_deg[k_peak], r_pop, limiting_magnitude), 1
+        )
 
     at_peak = {
         "time_utc": encounter["peak_utc"],
@@ -693,7 +702,9 @@ def _verdict(at_peak: dict, window: dict | None, min_alt: float, max_sun: float)
             else f"radiant only {at_peak['radiant_alt_deg']:.0f} deg high (< {min_alt:g})"
         )
     if at_peak["sun_alt_deg"] > max_sun:
-        reasons.append(f"sky too bright ({at_peak['sky']}, Sun at {at_peak['sun_alt_deg']:.0f} deg)")
+        reasons.append(
+            f"sky too bright ({at_peak['sky']}, Sun at {at_peak['sun_alt_deg']:.0f} deg)"
+        )
     text = "not observable at the peak: " + "; ".join(reasons)
     if window and window.get("best"):
         b = window["best"]
@@ -875,8 +886,10 @@ def best_regions(grid: WorldGrid, land=None) -> list[dict]:
                     float(np.max(np.where(cells, grid.radiant_alt_deg[np.ix_(rows, cols)], -90))), 1
                 ),
             }
-            where = "all longitudes" if len(cols) == len(band) else (
-                f"{_lon_text(lon0)} to {_lon_text(lon1)}"
+            where = (
+                "all longitudes"
+                if len(cols) == len(band)
+                else (f"{_lon_text(lon0)} to {_lon_text(lon1)}")
             )
             text = (
                 f"{_lat_text(b0)} to {_lat_text(b1)}, {where}: up to "

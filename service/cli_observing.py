@@ -212,9 +212,7 @@ def cmd_observe(args) -> int:
                 v = {**v, "_limiting_magnitude": args.limiting_magnitude}
                 name = f"site-{s.lat_deg:g}_{s.lon_deg:g}-{v['index']}.{args.format}"
                 path = charts / name
-                path.write_bytes(
-                    observing_plots.render_site(v, s.to_json(), parent, args.format)
-                )
+                path.write_bytes(observing_plots.render_site(v, s.to_json(), parent, args.format))
                 written.append(str(path))
         out["charts"] = written
     if args.json:

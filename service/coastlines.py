@@ -102,11 +102,7 @@ def land_mask(lat_deg, lon_deg) -> np.ndarray:
         paths = _land_paths()
     for path, (x0, x1, y0, y1) in paths:
         cand = (
-            ~inside
-            & (pts[:, 0] >= x0)
-            & (pts[:, 0] <= x1)
-            & (pts[:, 1] >= y0)
-            & (pts[:, 1] <= y1)
+            ~inside & (pts[:, 0] >= x0) & (pts[:, 0] <= x1) & (pts[:, 1] >= y0) & (pts[:, 1] <= y1)
         )
         if cand.any():
             inside[cand] = path.contains_points(pts[cand])

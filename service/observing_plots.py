@@ -64,7 +64,11 @@ def _spans(times: list[datetime], labels: list) -> list[tuple[datetime, datetime
     start = 0
     for k in range(1, len(labels) + 1):
         if k == len(labels) or labels[k] != labels[start]:
-            t0 = times[start] if start == 0 else times[start - 1] + (times[start] - times[start - 1]) / 2
+            t0 = (
+                times[start]
+                if start == 0
+                else times[start - 1] + (times[start] - times[start - 1]) / 2
+            )
             t1 = times[-1] if k == len(labels) else times[k - 1] + (times[k] - times[k - 1]) / 2
             out.append((t0, t1, labels[start]))
             start = k
@@ -101,19 +105,33 @@ def site_figure(view: dict, site: dict, parent: str) -> Figure:
     for t0, t1, up in _spans(times, moon_up):
         if up:
             band = ax.axvspan(
-                t0, t1, ymin=0.94, ymax=1.0, facecolor="none", edgecolor=MOON_COLOUR,
-                hatch="xxx", linewidth=0.5,
+                t0,
+                t1,
+                ymin=0.94,
+                ymax=1.0,
+                facecolor="none",
+                edgecolor=MOON_COLOUR,
+                hatch="xxx",
+                linewidth=0.5,
                 label="Moon above the horizon" if n_moon == 0 else None,
             )
             band.set_gid(f"moon-up-{n_moon}")
             n_moon += 1
     (ra_line,) = alt_ax.plot(
-        x, [p["radiant_alt_deg"] for p in line], color=RADIANT_COLOUR, linestyle="--",
-        linewidth=1.5, label="radiant altitude (deg, right)",
+        x,
+        [p["radiant_alt_deg"] for p in line],
+        color=RADIANT_COLOUR,
+        linestyle="--",
+        linewidth=1.5,
+        label="radiant altitude (deg, right)",
     )
     ra_line.set_gid("radiant-altitude")
     (moon_line,) = alt_ax.plot(
-        x, [p["moon_alt_deg"] for p in line], color=MOON_COLOUR, linestyle=":", linewidth=1.5,
+        x,
+        [p["moon_alt_deg"] for p in line],
+        color=MOON_COLOUR,
+        linestyle=":",
+        linewidth=1.5,
         label=f"Moon altitude (deg, right; {100 * view['at_peak']['moon_illuminated_fraction']:.0f} % lit)",
     )
     moon_line.set_gid("moon-altitude")
@@ -126,12 +144,19 @@ def site_figure(view: dict, site: dict, parent: str) -> Figure:
         y = np.array([np.nan if r is None else r for r in rates], dtype=float)
         obs = np.array([p["observable"] for p in line])
         (hr_line,) = ax.plot(
-            x, np.where(obs, y, np.nan), color=RATE_COLOUR, linewidth=2.2,
+            x,
+            np.where(obs, y, np.nan),
+            color=RATE_COLOUR,
+            linewidth=2.2,
             label="expected hourly rate (observable)",
         )
         hr_line.set_gid("hourly-rate")
         (hr_dim,) = ax.plot(
-            x, y, color=RATE_COLOUR, linewidth=1.0, linestyle=(0, (2, 2)),
+            x,
+            y,
+            color=RATE_COLOUR,
+            linewidth=1.0,
+            linestyle=(0, (2, 2)),
             label="expected hourly rate (radiant low or sky bright)",
         )
         hr_dim.set_gid("hourly-rate-unobservable")
@@ -139,14 +164,26 @@ def site_figure(view: dict, site: dict, parent: str) -> Figure:
         ax.set_ylim(0, max(top * 1.15, 1.0))
     else:
         ax.set_ylim(0, 1)
-        ax.text(0.5, 0.5, "the forecast has no activity profile for this encounter",
-                transform=ax.transAxes, ha="center", color=EARTH_COLOUR)
+        ax.text(
+            0.5,
+            0.5,
+            "the forecast has no activity profile for this encounter",
+            transform=ax.transAxes,
+            ha="center",
+            color=EARTH_COLOUR,
+        )
     peak = ax.axvline(_utc(view["peak_utc"]), color="black", linewidth=1.0, label="predicted peak")
     peak.set_gid("peak")
     if view.get("window"):
         w = ax.axvspan(
-            _utc(view["window"]["start_utc"]), _utc(view["window"]["end_utc"]), facecolor="none",
-            edgecolor=RATE_COLOUR, hatch="//", linewidth=0.6, alpha=0.6, label="activity window",
+            _utc(view["window"]["start_utc"]),
+            _utc(view["window"]["end_utc"]),
+            facecolor="none",
+            edgecolor=RATE_COLOUR,
+            hatch="//",
+            linewidth=0.6,
+            alpha=0.6,
+            label="activity window",
         )
         w.set_gid("window")
     lm = view.get("_limiting_magnitude", observing.DEFAULT_LIMITING_MAGNITUDE)
@@ -158,8 +195,14 @@ def site_figure(view: dict, site: dict, parent: str) -> Figure:
     ax.set_xlim(x[0], x[-1])
     handles, labels = ax.get_legend_handles_labels()
     h2, l2 = alt_ax.get_legend_handles_labels()
-    ax.legend(handles + h2, labels + l2, loc="upper left", bbox_to_anchor=(1.1, 1.0),
-              fontsize=8.5, frameon=False)
+    ax.legend(
+        handles + h2,
+        labels + l2,
+        loc="upper left",
+        bbox_to_anchor=(1.1, 1.0),
+        fontsize=8.5,
+        frameon=False,
+    )
     return fig
 
 
@@ -194,41 +237,81 @@ def map_figure(summary: dict, grid, parent: str) -> Figure:
     ax = fig.add_subplot()
     step = summary["grid_step_deg"]
     extent = (
-        grid.lon_deg[0] - step / 2, grid.lon_deg[-1] + step / 2,
-        grid.lat_deg[0] - step / 2, grid.lat_deg[-1] + step / 2,
+        grid.lon_deg[0] - step / 2,
+        grid.lon_deg[-1] + step / 2,
+        grid.lat_deg[0] - step / 2,
+        grid.lat_deg[-1] + step / 2,
     )
     rate = np.ma.masked_invalid(grid.hourly_rate)
     ax.set_facecolor("#f2f2f2")
     vmax = max(float(np.nan_to_num(grid.hourly_rate).max()), 1.0)
     # One raster image (not one SVG path per cell): the SVG stays small.
-    mesh = ax.imshow(rate, cmap=RATE_CMAP, vmin=0.0, vmax=vmax, origin="lower", extent=extent,
-                     interpolation="nearest", aspect="auto")
+    mesh = ax.imshow(
+        rate,
+        cmap=RATE_CMAP,
+        vmin=0.0,
+        vmax=vmax,
+        origin="lower",
+        extent=extent,
+        interpolation="nearest",
+        aspect="auto",
+    )
     mesh.set_gid("observable-rate")
     bar = fig.colorbar(mesh, ax=ax, shrink=0.85, pad=0.01)
     bar.set_label(f"expected meteors per hour (lm {th['limiting_magnitude']:g})")
-    cs0 = ax.contour(grid.lon_deg, grid.lat_deg, grid.sun_alt_deg, levels=[0.0],
-                     colors=[EARTH_COLOUR], linewidths=1.2)
+    cs0 = ax.contour(
+        grid.lon_deg,
+        grid.lat_deg,
+        grid.sun_alt_deg,
+        levels=[0.0],
+        colors=[EARTH_COLOUR],
+        linewidths=1.2,
+    )
     cs0.set_gid("horizon-sun")
-    cs1 = ax.contour(grid.lon_deg, grid.lat_deg, grid.sun_alt_deg, levels=[th["max_sun_alt_deg"]],
-                     colors=[EARTH_COLOUR], linewidths=1.0, linestyles="--")
+    cs1 = ax.contour(
+        grid.lon_deg,
+        grid.lat_deg,
+        grid.sun_alt_deg,
+        levels=[th["max_sun_alt_deg"]],
+        colors=[EARTH_COLOUR],
+        linewidths=1.0,
+        linestyles="--",
+    )
     cs1.set_gid("dark-limit")
     note = ""
     if coastlines.available():
-        segs = [s for lev, xy in coastlines.polygons() if lev in coastlines.LAND_LEVELS
-                for s in _lines_wrapped(xy)]
+        segs = [
+            s
+            for lev, xy in coastlines.polygons()
+            if lev in coastlines.LAND_LEVELS
+            for s in _lines_wrapped(xy)
+        ]
         lc = LineCollection(segs, colors="black", linewidths=0.5)
         lc.set_gid("coastlines")
         ax.add_collection(lc)
     else:
         note = " (coastlines not installed)"
     k = np.unravel_index(np.argmax(grid.radiant_alt_deg), grid.radiant_alt_deg.shape)
-    (sub,) = ax.plot([grid.lon_deg[k[1]]], [grid.lat_deg[k[0]]], marker="*", markersize=13,
-                     color=RADIANT_COLOUR, markeredgecolor="black", linestyle="none",
-                     label="radiant at the zenith")
+    (sub,) = ax.plot(
+        [grid.lon_deg[k[1]]],
+        [grid.lat_deg[k[0]]],
+        marker="*",
+        markersize=13,
+        color=RADIANT_COLOUR,
+        markeredgecolor="black",
+        linestyle="none",
+        label="radiant at the zenith",
+    )
     sub.set_gid("sub-radiant")
     ax.plot([], [], color=EARTH_COLOUR, linewidth=1.2, label="Sun on the horizon")
-    ax.plot([], [], color=EARTH_COLOUR, linewidth=1.0, linestyle="--",
-            label=f"Sun at {th['max_sun_alt_deg']:g}°")
+    ax.plot(
+        [],
+        [],
+        color=EARTH_COLOUR,
+        linewidth=1.0,
+        linestyle="--",
+        label=f"Sun at {th['max_sun_alt_deg']:g}°",
+    )
     ax.set_xlim(-180, 180)
     ax.set_ylim(-90, 90)
     ax.set_xticks(np.arange(-180, 181, 60))

@@ -95,8 +95,24 @@ def _erfa_sun_altaz(t_utc_jd, lat, lon, hm):
         pvh, _pvb = erfa.epv00(tdb, 0.0)
         ra, dec = erfa.c2s(-pvh["p"])
         aob, zob, *_ = erfa.atco13(
-            ra, dec, 0, 0, 0, 0, t_utc_jd, 0.0, 0.0,
-            math.radians(lon), math.radians(lat), hm, 0, 0, 0, 0, 0, 0.55,
+            ra,
+            dec,
+            0,
+            0,
+            0,
+            0,
+            t_utc_jd,
+            0.0,
+            0.0,
+            math.radians(lon),
+            math.radians(lat),
+            hm,
+            0,
+            0,
+            0,
+            0,
+            0,
+            0.55,
         )
     return 90.0 - math.degrees(zob), math.degrees(aob) % 360.0
 
@@ -130,8 +146,12 @@ def test_twilight_and_sunrise_times_put_the_sun_at_the_limit_in_erfa():
     site = obs.Site(52.0, 5.0, 0.0)
     t0 = _jd(2039, 4, 11, 12.0)
     found = {}
-    for level in (obs.SUN_DAY_ALT_DEG, obs.CIVIL_TWILIGHT_ALT_DEG,
-                  obs.NAUTICAL_TWILIGHT_ALT_DEG, obs.ASTRONOMICAL_TWILIGHT_ALT_DEG):
+    for level in (
+        obs.SUN_DAY_ALT_DEG,
+        obs.CIVIL_TWILIGHT_ALT_DEG,
+        obs.NAUTICAL_TWILIGHT_ALT_DEG,
+        obs.ASTRONOMICAL_TWILIGHT_ALT_DEG,
+    ):
         events = obs.find_crossings(
             lambda x: obs.body_altaz("sun", x, site.lat_deg, site.lon_deg)[0], t0, t0 + 1, level
         )
@@ -209,8 +229,26 @@ def test_topocentric_moon_altitude_includes_the_parallax():
         warnings.simplefilter("ignore", erfa.ErfaWarning)
         tt1, tt2 = erfa.taitt(*erfa.utctai(t, 0.0))
         ra, dec = erfa.c2s(erfa.moon98(tt1, tt2)["p"])
-        _, zob, *_ = erfa.atco13(ra, dec, 0, 0, 0, 0, t, 0.0, 0.0, math.radians(lon),
-                                 math.radians(lat), 0.0, 0, 0, 0, 0, 0, 0.55)
+        _, zob, *_ = erfa.atco13(
+            ra,
+            dec,
+            0,
+            0,
+            0,
+            0,
+            t,
+            0.0,
+            0.0,
+            math.radians(lon),
+            math.radians(lat),
+            0.0,
+            0,
+            0,
+            0,
+            0,
+            0,
+            0.55,
+        )
     geo_alt = 90.0 - math.degrees(zob)
     r_earth_au = 6371.0 / 149_597_870.7  # mean Earth radius (km, IUGG), au
     p = math.degrees(math.asin(r_earth_au / float(dist_au) * math.cos(math.radians(geo_alt))))
@@ -309,9 +347,12 @@ def test_site_view_of_the_demo_encounter_is_consistent_with_its_parts():
     assert peak["observable"] and peak["sky"] == "night"
     # Events come in time order; sunset before dusk before dawn before sunrise.
     names = [x["event"] for x in enc["events"]]
-    assert names.index("sunset") < names.index("astronomical dusk") < names.index(
-        "astronomical dawn"
-    ) < names.index("sunrise")
+    assert (
+        names.index("sunset")
+        < names.index("astronomical dusk")
+        < names.index("astronomical dawn")
+        < names.index("sunrise")
+    )
     # The timeline's ZHR at the peak is the profile's at that time.
     row = next(r for r in enc["timeline"] if r["time_utc"] == e["peak_utc"])
     assert row["zhr"] == pytest.approx(max(p["zhr"] for p in e["profile"]), rel=0.05)
@@ -321,8 +362,13 @@ def test_site_view_of_the_demo_encounter_is_consistent_with_its_parts():
 def test_sites_are_validated_with_the_field_named():
     assert obs.parse_site("48.5,-123.4,230") == obs.Site(48.5, -123.4, 230.0)
     assert obs.Site(0.0, 350.0).lon_deg == pytest.approx(-10.0)
-    for text, field in (("91,0", "lat"), ("0,400", "lon"), ("1,2,20000", "elevation"),
-                        ("north,2", "site"), ("1", "site")):
+    for text, field in (
+        ("91,0", "lat"),
+        ("0,400", "lon"),
+        ("1,2,20000", "elevation"),
+        ("north,2", "site"),
+        ("1", "site"),
+    ):
         with pytest.raises(InvalidSite) as exc:
             obs.parse_site(text)
         assert exc.value.field == field

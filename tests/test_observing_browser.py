@@ -11,6 +11,7 @@ from pathlib import Path
 import httpx
 import pytest
 from fastapi.testclient import TestClient
+from playwright import sync_api as playwright_api
 from test_dashboard_browser import (
     ARTIFACTS,
     CHROMIUM,
@@ -23,7 +24,6 @@ from test_dashboard_browser import (
 )
 from test_jobs_http import Server
 
-from playwright import sync_api as playwright_api
 from service.jobs import canonical_request
 from service.main import create_app
 from service.settings import Settings

@@ -85,7 +85,11 @@ def test_map_regions_in_words(client):
     # The peak at 23:20 UT with the radiant at Dec +57: best where it is high in the dark,
     # i.e. in the northern band of the sub-radiant latitude.
     top = body["regions"][0]
-    assert top["lat_from_deg"] <= RESULT["encounters"][0]["radiant"]["dec_deg"] < top["lat_to_deg"] + 10
+    assert (
+        top["lat_from_deg"]
+        <= RESULT["encounters"][0]["radiant"]["dec_deg"]
+        < top["lat_to_deg"] + 10
+    )
     assert "per hour" in top["text"]
     assert 0 < body["observable_fraction_of_earth"] < 0.5
 
@@ -120,7 +124,10 @@ def test_not_done_and_unknown_jobs(client):
 
 def test_calendars_take_a_site(client):
     c, done, _ = client
-    for url in (f"/v1/forecasts/{done}/encounters.ics?lat=50&lon=10", "/v1/encounters.ics?lat=50&lon=10"):
+    for url in (
+        f"/v1/forecasts/{done}/encounters.ics?lat=50&lon=10",
+        "/v1/encounters.ics?lat=50&lon=10",
+    ):
         cal = icalendar.Calendar.from_ical(c.get(url).content)
         (event,) = [e for e in cal.walk("VEVENT")]
         text = str(event["description"])
@@ -154,8 +161,17 @@ def test_openapi_documents_the_routes_with_problems(client):
 
 def test_observe_prints_regions_sites_and_cautions(capsys, tmp_path):
     code = main(
-        ["observe", str(DEMO), "--site", "50,10,300", "--site=-33.9,18.4", "--charts",
-         str(tmp_path / "charts"), "--format", "png"]
+        [
+            "observe",
+            str(DEMO),
+            "--site",
+            "50,10,300",
+            "--site=-33.9,18.4",
+            "--charts",
+            str(tmp_path / "charts"),
+            "--format",
+            "png",
+        ]
     )
     out = capsys.readouterr().out
     assert code == 0
@@ -171,7 +187,10 @@ def test_observe_json_matches_the_api(capsys):
     assert main(["observe", str(DEMO), "--site", "50,10", "--json"]) == 0
     out = json.loads(capsys.readouterr().out)
     direct = obs.site_view(RESULT, [obs.Site(50, 10)])
-    assert out["sites"][0]["encounters"][0]["at_peak"] == direct["sites"][0]["encounters"][0]["at_peak"]
+    assert (
+        out["sites"][0]["encounters"][0]["at_peak"]
+        == direct["sites"][0]["encounters"][0]["at_peak"]
+    )
     assert out["world"][0]["regions"]
 
 
@@ -210,4 +229,6 @@ def test_coastline_land_mask_knows_land_from_sea():
 
     la, lo = np.meshgrid(np.arange(-89, 90, 2.0), np.arange(-179, 180, 2.0), indexing="ij")
     w = np.cos(np.radians(la))
-    assert float((coastlines.land_mask(la, lo) * w).sum() / w.sum()) == pytest.approx(0.29, abs=0.02)
+    assert float((coastlines.land_mask(la, lo) * w).sum() / w.sum()) == pytest.approx(
+        0.29, abs=0.02
+    )

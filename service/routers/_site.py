@@ -11,10 +11,17 @@ from dynamics import observing
 from ..problems import TYPE_BASE, ProblemError
 
 SITE_LAT = Query(
-    None, ge=-90.0, le=90.0, description="Observing site latitude, deg (with `lon`)", examples=[50.0]
+    None,
+    ge=-90.0,
+    le=90.0,
+    description="Observing site latitude, deg (with `lon`)",
+    examples=[50.0],
 )
 SITE_LON = Query(
-    None, ge=-180.0, le=360.0, description="Observing site longitude, deg east (with `lat`)",
+    None,
+    ge=-180.0,
+    le=360.0,
+    description="Observing site longitude, deg east (with `lat`)",
     examples=[10.0],
 )
 SITE_ICS_NOTE = (
@@ -30,7 +37,10 @@ def optional_site(lat: float | None, lon: float | None) -> observing.Site | None
     if lat is None or lon is None:
         missing = "lat" if lat is None else "lon"
         raise ProblemError(
-            422, "Invalid request", f"{missing}: give both lat and lon for a site, or neither",
-            TYPE_BASE + "invalid-request", field=missing,
+            422,
+            "Invalid request",
+            f"{missing}: give both lat and lon for a site, or neither",
+            TYPE_BASE + "invalid-request",
+            field=missing,
         )
     return observing.Site(lat, lon)

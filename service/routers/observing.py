@@ -24,9 +24,15 @@ router = APIRouter(prefix="/v1", tags=["observing"])
 _EXAMPLE_ID = "5d2c3f0e9a1b4c7d8e6f5a4b3c2d1e0f"
 Format = Literal["svg", "png"]
 
-_LAT = Query(..., ge=-90.0, le=90.0, description="Site latitude, deg (geodetic, north +)", examples=[50.0])
+_LAT = Query(
+    ..., ge=-90.0, le=90.0, description="Site latitude, deg (geodetic, north +)", examples=[50.0]
+)
 _LON = Query(
-    ..., ge=-180.0, le=360.0, description="Site longitude, deg east (west negative)", examples=[10.0]
+    ...,
+    ge=-180.0,
+    le=360.0,
+    description="Site longitude, deg east (west negative)",
+    examples=[10.0],
 )
 _ELEV = Query(0.0, ge=-500.0, le=9000.0, description="Site elevation, m", examples=[300.0])
 _LM = Query(
@@ -115,7 +121,8 @@ class VisibilityOut(BaseModel):
     site: dict[str, Any]
     thresholds: dict[str, float]
     encounters: list[dict[str, Any]] = Field(
-        ..., description="Per encounter: at the peak, the window, rise/set events, verdict, timeline"
+        ...,
+        description="Per encounter: at the peak, the window, rise/set events, verdict, timeline",
     )
     links: dict[str, str]
     method: dict[str, str]
@@ -378,11 +385,24 @@ def get_map(
     q = _query(**opts)
     return MapOut(
         forecast_id=job.id,
-        **{key: summary[key] for key in (
-            "index", "peak_utc", "thresholds", "observable_fraction_of_earth",
-            "hourly_rate_max", "regions", "moon", "method", "year", "trail", "radiant", "zhr",
-            "population_index",
-        )},
+        **{
+            key: summary[key]
+            for key in (
+                "index",
+                "peak_utc",
+                "thresholds",
+                "observable_fraction_of_earth",
+                "hourly_rate_max",
+                "regions",
+                "moon",
+                "method",
+                "year",
+                "trail",
+                "radiant",
+                "zhr",
+                "population_index",
+            )
+        },
         coastlines=observing_plots.coastlines_note(),
         links={
             "svg": f"/v1/forecasts/{job.id}/map/{k}.svg?{q}",
