@@ -47,8 +47,8 @@ def _jd(y, m, d, hours=0.0) -> float:
 
 @pytest.mark.reference
 def test_altitude_and_azimuth_reproduce_meeus_example_13b():
-    # Meeus (1998), Astronomical Algorithms, 2nd ed., example 13.b (from memory): Venus at the
-    # US Naval Observatory, 1987 April 10, 19h21m00s UT; apparent place alpha = 23h09m16.641s,
+    # Meeus (1998), Astronomical Algorithms, 2nd ed., example 13.b (from memory): Venus seen from
+    # Washington, 1987 April 10, 19h21m00s UT; apparent place alpha = 23h09m16.641s,
     # delta = -6d43m11.61s; latitude +38d55m17s, longitude 77d03m56s W.
     # Result: azimuth A = 68.0337 deg (from the south, westward), altitude h = 15.1249 deg.
     ra_app = 15.0 * (23 + 9 / 60 + 16.641 / 3600)
@@ -250,7 +250,9 @@ def test_topocentric_moon_altitude_includes_the_parallax():
             0.55,
         )
     geo_alt = 90.0 - math.degrees(zob)
-    r_earth_au = 6371.0 / 149_597_870.7  # mean Earth radius (km, IUGG), au
+    r_earth_au = (
+        6371.0 / 149_597_870.7
+    )  # mean Earth radius, 6371 km (common value, from memory), in au
     p = math.degrees(math.asin(r_earth_au / float(dist_au) * math.cos(math.radians(geo_alt))))
     assert float(alt) == pytest.approx(geo_alt - p, abs=MOON_PARALLAX_TOL_DEG)
     assert p > 0.5  # the Moon's parallax is about 1 deg: the check is not vacuous
