@@ -24,6 +24,7 @@ from .forecast import (
 from .geometry import quick_look
 from .history import FirstPassage, parent_history
 from .moid import moid
+from .observing import Site, expected_hourly_rate, site_view, world_view
 from .orbit_input import OrbitInput, parse_orbit
 from .solar_longitude import solar_longitude_deg, times_of_solar_longitude_tdb
 from .timescales import format_utc, iso_to_tdb_jd
@@ -39,9 +40,11 @@ __all__ = [
     "InvalidTime",
     "OrbitInput",
     "OutsideTimeSpan",
+    "Site",
     "SolutionsResult",
     "TrailEncounter",
     "TrailcastError",
+    "expected_hourly_rate",
     "forecast",
     "forecast_solutions",
     "format_utc",
@@ -50,7 +53,9 @@ __all__ = [
     "parent_history",
     "parse_orbit",
     "quick_look",
+    "site_view",
     "solar_longitude_deg",
     "times_of_solar_longitude_tdb",
+    "world_view",
     "zhr_from_flux",
 ]
