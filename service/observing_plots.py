@@ -377,5 +377,5 @@ def coastlines_note() -> str:
 
 def world_view(result: dict, k: int, **options):
     """:func:`dynamics.observing.world_view` with land shares from the installed coastlines."""
-    land = coastlines.land_mask if coastlines.available() else None
+    land = coastlines.land_names if coastlines.available() else None
     return observing.world_view(result, k, land_mask=land, **options)

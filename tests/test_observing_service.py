@@ -90,7 +90,7 @@ def test_map_regions_in_words(client):
         <= RESULT["encounters"][0]["radiant"]["dec_deg"]
         < top["lat_to_deg"] + 10
     )
-    assert "per hour" in top["text"]
+    assert "per hour" in top["text"] and "Eurasia" in top["land"]
     assert 0 < body["observable_fraction_of_earth"] < 0.5
 
 
@@ -232,3 +232,29 @@ def test_coastline_land_mask_knows_land_from_sea():
     assert float((coastlines.land_mask(la, lo) * w).sum() / w.sum()) == pytest.approx(
         0.29, abs=0.02
     )
+
+
+@pytest.mark.reference
+def test_land_masses_are_named_where_they_are():
+    # One point inside each named land mass (common geography, from memory: capitals, deserts,
+    # plains, ice sheets); the names come from the GSHHG polygon ids (service/coastlines.py).
+    places = {
+        "Eurasia": (50.0, 80.0),
+        "Africa": (0.0, 20.0),
+        "North America": (40.0, -100.0),
+        "South America": (-10.0, -60.0),
+        "Antarctica": (-80.0, 30.0),
+        "Australia": (-25.0, 135.0),
+        "Greenland": (72.0, -40.0),
+        "New Guinea": (-6.0, 143.0),
+        "Borneo": (1.0, 114.0),
+        "Madagascar": (-19.0, 47.0),
+        "Baffin Island": (70.0, -72.0),
+        "Sumatra": (0.0, 101.5),
+        "Honshu": (35.7, 139.7),
+        "Victoria Island": (71.0, -110.0),
+        "": (30.0, -40.0),  # the mid-Atlantic
+    }
+    lat, lon = zip(*places.values(), strict=True)
+    assert coastlines.land_names(lat, lon).tolist() == list(places)
+    assert set(coastlines.LAND_NAMES.values()) == set(places) - {""}
