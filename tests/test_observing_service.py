@@ -94,9 +94,33 @@ def test_map_regions_in_words(client):
     assert 0 < body["observable_fraction_of_earth"] < 0.5
 
 
+def test_visibility_takes_several_sites_at_once(client):
+    c, done, _ = client
+    r = c.get(
+        f"/v1/forecasts/{done}/visibility?lat=50&lon=10&site=-33.9,18.4&site=19.8,-155.5,4200"
+        "&timeline=false"
+    )
+    assert r.status_code == 200
+    body = r.json()
+    assert [b["site"] for b in body["more_sites"]] == [
+        {"lat_deg": -33.9, "lon_deg": 18.4, "elevation_m": 0.0},
+        {"lat_deg": 19.8, "lon_deg": -155.5, "elevation_m": 4200.0},
+    ]
+    direct = obs.site_encounter_view(
+        obs.encounters_of(RESULT)[0], obs.Site(-33.9, 18.4), timeline=False
+    )
+    assert body["more_sites"][0]["encounters"][0]["at_peak"] == direct["at_peak"]
+    assert body["more_sites"][1]["links"]["svg"].endswith(
+        "lat=19.8&lon=-155.5&elevation_m=4200&limiting_magnitude=6.5"
+    )
+
+
 @pytest.mark.parametrize(
     ("url", "status", "field"),
     [
+        ("/visibility?lat=1&lon=1&site=95,1", 422, "site"),
+        ("/visibility?lat=1&lon=1&site=north", 422, "site"),
+        ("/visibility?lat=1&lon=1" + "&site=1,1" * 10, 422, "site"),
         ("/visibility?lat=91&lon=10", 422, "lat"),
         ("/visibility?lat=10&lon=-200", 422, "lon"),
         ("/visibility?lon=10", 422, "lat"),
