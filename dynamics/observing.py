@@ -59,7 +59,12 @@ from scipy.optimize import brentq
 from .constants import AU_KM, DAY_S
 from .ephemeris import barycentric_states
 from .errors import InvalidSite
-from .frames import angular_separation_deg, ecliptic_to_equatorial, spherical_to_cartesian
+from .frames import (
+    angular_separation_deg,
+    ecliptic_to_equatorial,
+    ecliptic_to_radec,
+    spherical_to_cartesian,
+)
 from .timescales import format_utc, from_tdb_jd, parse_iso, to_tdb_jd, utc_to_tdb_jd
 
 # --- constants ----------------------------------------------------------------------------------
@@ -527,7 +532,8 @@ def site_encounter_view(
     "Observable" means the radiant at least ``min_radiant_alt_deg`` high with the Sun at most
     ``max_sun_alt_deg`` high; the rate itself is the handbook formula whatever the sky.
     """
-    r_pop = _population_index(encounter)
+    # Without an activity model (older results) the geometry still holds; rates are None.
+    r_pop = encounter.get("population_index")
     ra, dec = encounter["radiant"]["ra_deg"], encounter["radiant"]["dec_deg"]
     t_peak = utc_jd(encounter["peak_utc"])
     zhr = encounter.get("zhr") or {}
@@ -546,7 +552,7 @@ def site_encounter_view(
     extra = extra[np.min(np.abs(extra[:, None] - grid[None, :]), axis=1) > 1.0 / 1440.0]
     t = np.unique(np.concatenate([grid, extra]))
     sky = sky_state(ra, dec, t, site.lat_deg, site.lon_deg, site.elevation_m)
-    z_t = _zhr_at(encounter, t)
+    z_t = _zhr_at(encounter, t) if r_pop is not None else None
     hr_t = (
         None
         if z_t is None
@@ -559,7 +565,7 @@ def site_encounter_view(
     k_peak = int(np.argmin(np.abs(t - t_peak)))
 
     def hr_of(value):
-        if value is None:
+        if value is None or r_pop is None:
             return None
         return _r(
             expected_hourly_rate(value, sky.radiant_alt_deg[k_peak], r_pop, limiting_magnitude), 1
@@ -583,9 +589,12 @@ def site_encounter_view(
         "observable": bool(observable_t[k_peak]),
     }
     out_window = None
+    w_inside = None
     if window:
         w0, w1 = utc_jd(window["start_utc"]), utc_jd(window["end_utc"])
-        inside = (t >= w0) & (t <= w1)
+        w_inside = (t >= w0) & (t <= w1)
+    if window and w_inside.any():
+        inside = w_inside
         obs_in = inside & observable_t
         best = None
         if hr_t is not None and np.any(obs_in):
@@ -653,7 +662,7 @@ def site_encounter_view(
         "solution": encounter.get("solution"),
         "peak_utc": encounter["peak_utc"],
         "radiant": {"ra_deg": ra, "dec_deg": dec},
-        "population_index": r_pop,
+        "population_index": None if r_pop is None else float(r_pop),
         "zhr": zhr or None,
         "at_peak": at_peak,
         "window": out_window,
@@ -804,8 +813,6 @@ def world_grid(
     sun = st["sun"][0] - st["earth"][0]
     m_to_e, m_to_s = -moon, sun - moon
     cos_i = float(m_to_e @ m_to_s / (np.linalg.norm(m_to_e) * np.linalg.norm(m_to_s)))
-    from .frames import ecliptic_to_radec
-
     m_ra, m_dec = ecliptic_to_radec(moon)
     sep = float(angular_separation_deg(m_ra, m_dec, ra_deg, dec_deg))
     return WorldGrid(

@@ -172,8 +172,6 @@ def site_lines(encounter: dict, site) -> list[str]:
     from dynamics import observing
 
     where = f"{site.lat_deg:.3f}, {site.lon_deg:.3f}"
-    if encounter.get("population_index") is None:
-        return [f"At your site ({where}): no activity model in this forecast, no rate."]
     v = observing.site_encounter_view(encounter, site, timeline=False)
     p = v["at_peak"]
     lines = [f"At your site ({where}): {v['verdict']}."]

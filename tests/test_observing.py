@@ -381,3 +381,15 @@ def test_old_dates_use_universal_time_with_delta_t():
     # are finite and the Sun is below the horizon at local midnight.
     alt, _, _ = obs.body_altaz("sun", _jd(1899, 11, 15, 0.0), 0.0, 0.0)
     assert float(alt) < -60.0
+
+
+def test_results_without_an_activity_model_still_get_the_geometry():
+    # Results stored before the activity stage have no ZHR, profile or population index: the
+    # site view still says where the radiant, Sun and Moon are, and gives no rate.
+    e = {**DEMO_RESULT["encounters"][0], "profile": [], "window": None}
+    for key in ("zhr", "population_index"):
+        e.pop(key)
+    view = obs.site_encounter_view(e, obs.Site(50.0, 10.0))
+    assert view["at_peak"]["hourly_rate"] is None and view["at_peak"]["observable"]
+    assert all(row["hourly_rate"] is None for row in view["timeline"])
+    assert view["verdict"] == "observable at the peak (no rate: the forecast has no ZHR)"
