@@ -12,7 +12,8 @@
 
 SVG elements carry ids for pages and tests: ``hourly-rate``, ``radiant-altitude``,
 ``moon-altitude``, ``sky-<class>-<n>``, ``moon-up-<n>``, ``peak``, ``window`` (site chart);
-``observable-rate``, ``coastlines``, ``horizon-sun``, ``dark-limit``, ``sub-radiant`` (map).
+``observable-rate``, ``coastlines``, ``horizon-sun``, ``dark-limit``, ``moon-horizon``,
+``sub-radiant`` (map).
 Rendering shares :mod:`service.plots`' lock (matplotlib's caches are not documented as
 thread-safe).
 """
@@ -278,6 +279,16 @@ def map_figure(summary: dict, grid, parent: str) -> Figure:
         linestyles="--",
     )
     cs1.set_gid("dark-limit")
+    cs2 = ax.contour(
+        grid.lon_deg,
+        grid.lat_deg,
+        grid.moon_alt_deg,
+        levels=[0.0],
+        colors=[MOON_COLOUR],
+        linewidths=1.0,
+        linestyles=":",
+    )
+    cs2.set_gid("moon-horizon")
     note = ""
     if coastlines.available():
         segs = [
@@ -303,6 +314,18 @@ def map_figure(summary: dict, grid, parent: str) -> Figure:
         label="radiant at the zenith",
     )
     sub.set_gid("sub-radiant")
+    km = np.unravel_index(np.argmax(grid.moon_alt_deg), grid.moon_alt_deg.shape)
+    (sub_moon,) = ax.plot(
+        [grid.lon_deg[km[1]]],
+        [grid.lat_deg[km[0]]],
+        marker="o",
+        markersize=10,
+        markerfacecolor="#dddddd",
+        markeredgecolor=MOON_COLOUR,
+        linestyle="none",
+        label="Moon at the zenith (up inside the dotted line)",
+    )
+    sub_moon.set_gid("sub-lunar")
     ax.plot([], [], color=EARTH_COLOUR, linewidth=1.2, label="Sun on the horizon")
     ax.plot(
         [],
@@ -312,6 +335,7 @@ def map_figure(summary: dict, grid, parent: str) -> Figure:
         linestyle="--",
         label=f"Sun at {th['max_sun_alt_deg']:g}°",
     )
+    ax.plot([], [], color=MOON_COLOUR, linewidth=1.0, linestyle=":", label="Moon on the horizon")
     ax.set_xlim(-180, 180)
     ax.set_ylim(-90, 90)
     ax.set_xticks(np.arange(-180, 181, 60))

@@ -108,6 +108,8 @@ def test_map_and_site_chart_render_in_the_forecast_view(served, width, height):
                     timeout=WAIT_MS,
                 )
                 assert page.locator("#obs-events li").count() == len(api["encounters"][0]["events"])
+                ics = page.get_attribute("#obs-ics", "href")
+                assert ics == f"/v1/forecasts/{job_id}/encounters.ics?lat={lat}&lon={lon}"
                 _shot(page, f"observing-{name}-{width}x{height}")
                 page.locator("#observing-panel").screenshot(
                     path=str(ARTIFACTS / f"observing-panel-{name}-{width}x{height}.png")

@@ -69,7 +69,8 @@ def test_site_chart_and_world_map_are_drawn_with_their_parts(client):
     r = c.get(f"/v1/forecasts/{done}/map/0.svg")
     assert r.status_code == 200
     ids = _ids(r.content)
-    assert {"observable-rate", "horizon-sun", "dark-limit", "sub-radiant"} <= ids
+    assert {"observable-rate", "horizon-sun", "dark-limit", "moon-horizon", "sub-radiant"} <= ids
+    assert "sub-lunar" in ids
     assert ("coastlines" in ids) == coastlines.available()
     r = c.get(f"/v1/forecasts/{done}/map/0.png?download=true")
     assert r.content[:4] == b"\x89PNG" and r.headers["content-disposition"].startswith("attachment")

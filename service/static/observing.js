@@ -121,6 +121,7 @@
           node("div", { class: "obs-svg", "aria-live": "polite" }),
           node("p", { class: "obs-dl" }),
         ),
+        node("p", { class: "links" }, node("a", { id: "obs-ics", href: "#" }, "Calendar for this site (iCalendar)")),
         node("h4", {}, "Rise, set and twilight (UTC and local)"),
         node("ul", { id: "obs-events", class: "obs-events" }),
       ),
@@ -264,6 +265,7 @@
     $o("#obs-events").replaceChildren(
       ...e.events.map((x) => node("li", {}, `${x.time_utc.replace("T", " ").replace("Z", " UTC")} (local ${x.local_time}): ${x.event}`)),
     );
+    $o("#obs-ics").href = `/v1/forecasts/${id}/encounters.ics?lat=${encodeURIComponent(state.site.lat)}&lon=${encodeURIComponent(state.site.lon)}`;
     const base = `/v1/forecasts/${id}/visibility`;
     const chartQuery = `${q}&encounter=${k}`;
     const fig = $o("#obs-chart");
