@@ -283,3 +283,30 @@ def test_land_masses_are_named_where_they_are():
     lat, lon = zip(*places.values(), strict=True)
     assert coastlines.land_names(lat, lon).tolist() == list(places)
     assert set(coastlines.LAND_NAMES.values()) == set(places) - {""}
+
+
+def test_observe_reads_a_job_from_a_running_service(capsys, monkeypatch):
+    # The job-id path: the command asks GET /v1/forecasts/{id} and observes its result. The HTTP
+    # call is replaced here (tests/test_jobs_http.py covers the real client against a server).
+    import service.cli as cli
+
+    asked = []
+
+    class Answer:
+        def __init__(self, body):
+            self.body = body
+
+        def json(self):
+            return self.body
+
+    def fake_call(method, url, token=None, **kwargs):
+        asked.append((method, url))
+        state = "done" if url.endswith("a" * 32) else "running"
+        return Answer({"state": state, "result": RESULT if state == "done" else None})
+
+    monkeypatch.setattr(cli, "_service_call", fake_call)
+    assert main(["observe", "a" * 32, "--url", "http://127.0.0.1:9", "--site", "50,10"]) == 0
+    assert asked == [("GET", "http://127.0.0.1:9/v1/forecasts/" + "a" * 32)]
+    assert "observable at the peak" in capsys.readouterr().out
+    assert main(["observe", "b" * 32, "--url", "http://127.0.0.1:9"]) == 2
+    assert "is running: no result to observe yet" in capsys.readouterr().err
