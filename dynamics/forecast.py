@@ -542,8 +542,7 @@ def _pilot(targets, trails, options, executor, say) -> int:
             half = tg.span_days + 40.0
             step = max(5.0, tg.span_days * PILOT_STEP_PER_SPAN)
             out_t = _output_times(tr.ret, tg.t_earth, half, step, options.dt_days)
-            for start in range(0, len(pick), options.chunk_size):
-                sub = pick[start : start + options.chunk_size]
+            for start, sub in _chunks(pick, options):
                 tasks.append(
                     _make_task(
                         ("pilot", ti, round_, start), tr.ret, tr.pool.take(sub), out_t, options
@@ -709,8 +708,7 @@ def _main_rounds(targets, trails, options, executor, say, integrated):
             out_t = _output_times(
                 tr.ret, tg.t_earth, options.window_days + 30.0, 2.0, options.dt_days
             )
-            for start in range(0, len(pick), options.chunk_size):
-                sub = pick[start : start + options.chunk_size]
+            for start, sub in _chunks(pick, options):
                 tasks.append(
                     _make_task(
                         ("main", round_, ti, start), tr.ret, tg.pool.take(sub), out_t, options
@@ -877,6 +875,16 @@ def _calibrate(orbit, options, executor):
         "factor": round_sig(factor, 4),
     }
     return info, replace(options, zhr_scale=factor)
+
+
+def _chunks(pick: np.ndarray, options):
+    """Split one target's meteoroids into chunks of at most ``chunk_size``, and into at least
+    as many chunks as there are workers, of near-equal size (a lone pilot set would otherwise
+    run on one core). Meteoroids are test particles: how they are chunked never changes them."""
+    n = len(pick)
+    n_chunks = max(-(-n // options.chunk_size), min(options.workers, n), 1)
+    bounds = np.linspace(0, n, n_chunks + 1).round().astype(int)
+    return [(int(a), pick[a:b]) for a, b in zip(bounds[:-1], bounds[1:], strict=True) if b > a]
 
 
 def _output_times(ret: ParentReturn, t_center, half_width, step, dt_days):
