@@ -36,7 +36,14 @@ from .executors import Task, default_workers, make_executor, run_tasks
 from .history import FirstPassage, ParentHistory, ParentReturn, cached_parent_history
 from .nbody import provenance, step_grid
 from .orbit_input import OrbitInput
-from .release import Candidates, EjectionEvent, EjectionModel, draw_candidates, event_of_return
+from .release import (
+    Candidates,
+    EjectionEvent,
+    EjectionModel,
+    draw_candidates,
+    event_of_return,
+    model_for_event,
+)
 from .summaries import TrailEncounter, round_sig, summarise, year_of
 from .targeting import (
     BETA_CLASSES,
@@ -370,13 +377,7 @@ def _forecast(
         rng = np.random.default_rng(_seed_for(options.seed, ret.tp_tdb_jd))
         event = event_of_return(ret, options.events)
         pool = draw_candidates(ret, options.ejection, options.candidates, rng, event=event)
-        model = options.ejection
-        if event is not None:
-            model = replace(
-                model,
-                mass_min_g=event.mass_min_g or model.mass_min_g,
-                mass_max_g=event.mass_max_g or model.mass_max_g,
-            )
+        model = model_for_event(options.ejection, event)
         edges = beta_class_edges(pool.beta)
         trails[k] = _Trail(
             ret, pool, model, options.candidates, event, beta_classes(pool.beta, edges), edges

@@ -16,7 +16,7 @@ return is recorded, so that the activity stage can turn the integrated few back 
 of real meteoroids (:func:`dynamics.activity.meteoroids_per_particle`).
 """
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -178,6 +178,17 @@ class Candidates:
         return len(self.release_t_tdb_jd)
 
 
+def model_for_event(model: EjectionModel, event: EjectionEvent | None) -> EjectionModel:
+    """The ejection model of a trail: the event's size range where it gives one."""
+    if event is None:
+        return model
+    return replace(
+        model,
+        mass_min_g=event.mass_min_g or model.mass_min_g,
+        mass_max_g=event.mass_max_g or model.mass_max_g,
+    )
+
+
 def event_of_return(ret: ParentReturn, events) -> "EjectionEvent | None":
     """The ejection event whose start falls within this return's active arc, if any."""
     if len(ret.arc_t_tdb_jd) == 0:
@@ -225,13 +236,7 @@ def draw_candidates(
         ).astype(float)
         if not w_arc.any():  # shorter than the arc's one-day grid: the nearest sample
             w_arc[int(np.argmin(np.abs(t_arc - event.t_tdb_jd)))] = 1.0
-        model = EjectionModel(
-            **{
-                **model.__dict__,
-                "mass_min_g": event.mass_min_g or model.mass_min_g,
-                "mass_max_g": event.mass_max_g or model.mass_max_g,
-            }
-        )
+        model = model_for_event(model, event)
     p = w_arc / w_arc.sum()
     ia = rng.choice(k_arc, size=n, p=p)
     r = ret.arc_r_au[ia]
