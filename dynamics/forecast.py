@@ -82,6 +82,17 @@ TARGETED_MARGIN_DAYS = 60.0
 #: Pilot output step (days) per day of pilot half-span: arrivals far from Earth's passage are
 #: extrapolated along the osculating orbit from the nearest output (no source).
 PILOT_STEP_PER_SPAN = 1.0 / 40.0
+#: Smallest pilot output step (days), the pilot's starting half-span per revolution (days:
+#: older trails scatter more) and the margin of pilot outputs beyond its span (days). No source.
+PILOT_MIN_STEP_DAYS = 5.0
+PILOT_SPAN_PER_REVOLUTION_DAYS = 30.0
+PILOT_OUTPUT_MARGIN_DAYS = 40.0
+#: Main integrations write states every MAIN_STEP_DAYS over the window plus this margin (days):
+#: a crossing is computed from the state nearest it (no source).
+MAIN_STEP_DAYS = 2.0
+MAIN_OUTPUT_MARGIN_DAYS = 30.0
+#: A target is refined when fewer than this fraction of its meteoroids met Earth's passage.
+REFINE_BELOW_HIT_FRACTION = 0.5
 #: Crossings farther than NEAR_MISS_MAX_AU are "distant"; no meteoroid within the window of
 #: Earth's passage at all: "not reached".
 
@@ -523,7 +534,9 @@ def _pilot(targets, trails, options, executor, say) -> int:
     todo = []
     for ti, tg in enumerate(targets):
         tr = trails[tg.trail]
-        tg.span_days = max(options.pilot_window_days, 30.0 * tg.revolutions)
+        tg.span_days = max(
+            options.pilot_window_days, PILOT_SPAN_PER_REVOLUTION_DAYS * tg.revolutions
+        )
         tg.pool, tg.cls, tg.n_drawn = tr.pool, tr.cls, tr.n_drawn
         tg.keep_prob = np.ones(len(tr.pool))
         x = predicted_offset(tr.pool, tg)
@@ -540,8 +553,8 @@ def _pilot(targets, trails, options, executor, say) -> int:
             if len(pick) == 0:
                 continue
             tg.pilot_rounds += 1
-            half = tg.span_days + 40.0
-            step = max(5.0, tg.span_days * PILOT_STEP_PER_SPAN)
+            half = tg.span_days + PILOT_OUTPUT_MARGIN_DAYS
+            step = max(PILOT_MIN_STEP_DAYS, tg.span_days * PILOT_STEP_PER_SPAN)
             out_t = _output_times(tr.ret, tg.t_earth, half, step, options.dt_days)
             for start, sub in _chunks(pick, options):
                 tasks.append(
@@ -590,7 +603,7 @@ def _targeted_pools(targets, trails, options) -> None:
     the window, each candidate weighted by the natural probability of its speed range. The
     window comes from the arrival map (every predicted offset mapped within the selection
     window, widened by :data:`TARGETED_MARGIN_DAYS`), inverted through the parent's realised
-    period. Batches of ``options.candidates``, at most :data:`TARGETED_BATCHES`, each with its
+    period into a window of 1/a offsets. Batches of ``options.candidates``, at most :data:`TARGETED_BATCHES`, each with its
     own seed."""
     for tg in targets:
         tr = trails[tg.trail]
@@ -610,8 +623,8 @@ def _targeted_pools(targets, trails, options) -> None:
         if len(near) == 0:
             continue  # no branch through Earth's passage: the uniform fallback handles it
         x_lo, x_hi = near.min() - TARGETED_MARGIN_DAYS, near.max() + TARGETED_MARGIN_DAYS
-        p_lo, p_hi = (_period_for_offset(tg, x) for x in (x_lo, x_hi))
-        if not (np.isfinite(p_lo) and np.isfinite(p_hi) and 0 < p_lo < p_hi):
+        d_a, d_b = (_inverse_a_offset_for(tg, x) for x in (x_hi, x_lo))
+        if not (np.isfinite(d_a) and np.isfinite(d_b) and d_a < d_b):
             continue
         pools = []
         for batch in range(1, TARGETED_BATCHES + 1):
@@ -623,7 +636,7 @@ def _targeted_pools(targets, trails, options) -> None:
                     options.candidates,
                     rng,
                     event=tr.event,
-                    period_window_days=(p_lo, p_hi),
+                    inverse_a_window=(d_a, d_b),
                 )
             )
             pool = pools[0] if len(pools) == 1 else _concat_candidates(*pools)
@@ -638,16 +651,14 @@ def _targeted_pools(targets, trails, options) -> None:
         tg.targeted_pool = True
 
 
-def _period_for_offset(tg: Target, x: float) -> float:
+def _inverse_a_offset_for(tg: Target, x: float) -> float:
     """Inverse of :func:`dynamics.targeting.predicted_offset` at zero perihelion-time offset:
-    the period (days, under mu (1 - beta)) that arrives ``x`` days after Earth's passage."""
+    the 1/a offset from the parent's (1/au) that arrives ``x`` days after Earth's passage."""
     k = 2.0 * np.pi / np.sqrt(GM_SUN_AU3_D2)
     p_real_dust = tg.p_real_days + (x - (tg.t_parent_node - tg.t_earth)) / tg.revolutions
     if p_real_dust <= 0:
         return float("nan")
-    shift = (tg.p_real_days / k) ** (-2 / 3) - (tg.p_osc_days / k) ** (-2 / 3)
-    inv_a = (p_real_dust / k) ** (-2 / 3) - shift
-    return float(k * inv_a**-1.5) if inv_a > 0 else float("nan")
+    return float((p_real_dust / k) ** (-2 / 3) - (tg.p_real_days / k) ** (-2 / 3))
 
 
 def _concat_candidates(*parts: Candidates) -> Candidates:
@@ -707,7 +718,11 @@ def _main_rounds(targets, trails, options, executor, say, integrated):
             taken[ti][pick] = True
             tg.rounds += 1
             out_t = _output_times(
-                tr.ret, tg.t_earth, options.window_days + 30.0, 2.0, options.dt_days
+                tr.ret,
+                tg.t_earth,
+                options.window_days + MAIN_OUTPUT_MARGIN_DAYS,
+                MAIN_STEP_DAYS,
+                options.dt_days,
             )
             for start, sub in _chunks(pick, options):
                 tasks.append(
@@ -740,7 +755,7 @@ def _needs_refinement(parts, options) -> bool:
         return False
     lag = np.concatenate([p.t_cross_tdb_jd - p.t_earth_tdb_jd for p in parts])
     hit = np.isfinite(lag) & (np.abs(lag) <= options.window_days)
-    return hit.sum() < 0.5 * min(len(lag), options.particles)
+    return hit.sum() < REFINE_BELOW_HIT_FRACTION * min(len(lag), options.particles)
 
 
 def _outcome(tg: Target, tr: _Trail, enc, options) -> dict:

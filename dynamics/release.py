@@ -166,10 +166,17 @@ class Candidates:
     #: a period window (:func:`draw_candidates` with ``period_window_days``), the probability
     #: that the natural speed draw falls in that window.
     sample_weight: np.ndarray | None = None
+    #: The parent's heliocentric osculating period at each release (days): it varies along the
+    #: active arc (the Sun's reflex motion about the barycentre moves a long-period comet's
+    #: heliocentric 1/a by ~1e-3 /au), so period offsets are only meaningful against it.
+    parent_period_days: np.ndarray | None = None
 
     def __post_init__(self):
+        n = len(self.release_t_tdb_jd)
         if self.sample_weight is None:
-            object.__setattr__(self, "sample_weight", np.ones(len(self.release_t_tdb_jd)))
+            object.__setattr__(self, "sample_weight", np.ones(n))
+        if self.parent_period_days is None:
+            object.__setattr__(self, "parent_period_days", np.full(n, np.nan))
 
     def take(self, idx) -> "Candidates":
         return Candidates(*(getattr(self, f)[idx] for f in self.__dataclass_fields__))
@@ -205,7 +212,7 @@ def draw_candidates(
     n: int,
     rng: np.random.Generator,
     event: EjectionEvent | None = None,
-    period_window_days: tuple[float, float] | None = None,
+    inverse_a_window: tuple[float, float] | None = None,
 ) -> Candidates:
     """Draw ``n`` release conditions over the active arc of one parent return.
 
@@ -214,11 +221,12 @@ def draw_candidates(
     with its speed multiplier and size range. Unbound meteoroids (too large beta or speed) are
     dropped, so the result may hold fewer than ``n``.
 
-    With ``period_window_days = (lo, hi)`` the draw is *targeted*: for each release time, mass
-    and direction, the speed fraction u (natural law: uniform on [0, 1]) is drawn only where
-    the orbital period under mu (1 - beta) falls in [lo, hi] (solved exactly: the squared
-    speed after release is quadratic in u), and the candidate's ``sample_weight`` is the
-    probability of that u range under the natural law. Candidates whose window is empty are
+    With ``inverse_a_window = (lo, hi)`` (1/au) the draw is *targeted*: for each release time,
+    mass and direction, the speed fraction u (natural law: uniform on [0, 1]) is drawn only
+    where the meteoroid's 1/a offset from the parent's at the same point (as an equivalent
+    period under mu (1 - beta)) falls in [lo, hi] (solved exactly: the squared speed after
+    release is quadratic in u), and the candidate's ``sample_weight`` is the probability of
+    that u range under the natural law. Candidates whose window is empty are
     dropped. This is how one-revolution dust of long-period parents, which a natural draw
     spreads over centuries of arrival times, is sampled at Earth's passage (importance
     sampling; the estimate stays unbiased).
@@ -259,19 +267,25 @@ def draw_candidates(
         raise ValueError(f"unknown speed_spread {model.speed_spread!r}; use 'uniform' or 'fixed'")
     dirs = sunward_directions(-r / rn[:, None], rng, law=model.direction_law)
     sample_weight = np.ones(n)
-    if period_window_days is not None and model.speed_spread == "uniform":
+    t = ret.arc_t_tdb_jd[ia]
+    el_c = state_to_elements(r, v_parent, t, GM_SUN_AU3_D2)
+    if inverse_a_window is not None and model.speed_spread == "uniform":
+        kp = 2.0 * np.pi / np.sqrt(GM_SUN_AU3_D2)
+        inv_a_c = (np.asarray(el_c.period_days) / kp) ** (-2.0 / 3.0)
+        lo_inv, hi_inv = inv_a_c + inverse_a_window[0], inv_a_c + inverse_a_window[1]
+        window = (
+            kp * np.where(hi_inv > 0, hi_inv, np.nan) ** -1.5,  # larger 1/a: shorter period
+            kp * np.where(lo_inv > 0, lo_inv, np.inf) ** -1.5,
+        )
         u_lo, u_hi = _speed_fraction_window(
-            r, v_parent, ejection_velocities_au_d(speed, dirs), beta, period_window_days
+            r, v_parent, ejection_velocities_au_d(speed, dirs), beta, window
         )
         sample_weight = np.clip(u_hi - u_lo, 0.0, 1.0)
         speed = speed * (u_lo + (u_hi - u_lo) * rng.random(n))
     elif model.speed_spread == "uniform":
         speed = speed * rng.random(n)
     v = v_parent + ejection_velocities_au_d(speed, dirs)
-    t = ret.arc_t_tdb_jd[ia]
-
     el_p, tp_p, per_p = elements_under_radiation(r, v, t, beta)
-    el_c = state_to_elements(r, v_parent, t, GM_SUN_AU3_D2)
     bound = (np.asarray(el_p.e) < 1.0) & np.isfinite(per_p) & (sample_weight > 0)
     weight = mass_distribution_weights(mass, model.mass_index, model.mass_min_g)
     cand = Candidates(
@@ -286,6 +300,7 @@ def draw_candidates(
         dperiod_days=per_p - np.asarray(el_c.period_days),
         dtp_days=tp_p - np.asarray(el_c.tp_tdb_jd),
         sample_weight=sample_weight,
+        parent_period_days=np.asarray(el_c.period_days, dtype=float),
     )
     return cand.take(np.flatnonzero(bound))
 
@@ -336,4 +351,4 @@ def _speed_fraction_window(r, v_parent, dv_full, beta, period_window_days):
 
 def _empty() -> Candidates:
     z = np.zeros(0)
-    return Candidates(z, np.zeros((0, 3)), np.zeros((0, 3)), z, z, z, z, z, z, z, z)
+    return Candidates(z, np.zeros((0, 3)), np.zeros((0, 3)), z, z, z, z, z, z, z, z, z)

@@ -31,6 +31,9 @@ from .timescales import format_iso, format_utc
 ZHR_REPORT_FLOOR = 0.01
 #: Fewest meteoroids behind a trail-level estimate (fewer: the trail is "not reached").
 MIN_PARTICLES = 3
+#: Earth's closest-point times within this many days of the target's passage belong to it
+#: (Earth passes a node once a year; no source).
+SAME_PASSAGE_DAYS = 30.0
 #: Limiting magnitude of the meteoroids that set the headline peak (the ZHR's definition).
 VISUAL_LIMITING_MAGNITUDE = 6.5
 VISUAL_SIZE_SOURCE = (
@@ -204,7 +207,7 @@ def summarise(
     arrival at Earth's passage (for the dilution).
     """
     lag = cr.t_cross_tdb_jd - cr.t_earth_tdb_jd
-    same_passage = np.abs(cr.t_earth_tdb_jd - tg.t_earth) <= 30.0
+    same_passage = np.abs(cr.t_earth_tdb_jd - tg.t_earth) <= SAME_PASSAGE_DAYS
     keep = np.isfinite(lag) & (np.abs(lag) <= options.window_days) & same_passage
     n = int(keep.sum())
     if n < MIN_PARTICLES:
