@@ -270,8 +270,9 @@ class ForecastResult:
                 "solar_longitude": "geometric, equinox J2000",
                 "radiant": "RA/Dec, equinox J2000, geocentric, without zenith attraction",
                 "miss_distance": MISS_DISTANCE_CONVENTION,
-                "peak": "weighted median of Earth's closest-point times over the meteoroids that "
-                "give visual meteors (mass of a +6.5 mag meteor or more at their speed)",
+                "peak": "Earth's closest-point times of the meteoroids that give visual meteors "
+                "(mass of a +6.5 mag meteor or more at their speed): median per decade of mass, "
+                "combined weighted by the real meteoroids of each decade",
                 "time_scale_notes": list(TIME_SCALE_NOTES),
             },
             "encounters": [e.to_json() for e in self.encounters],
