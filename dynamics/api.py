@@ -23,6 +23,7 @@ from .forecast import (
 from .geometry import quick_look
 from .history import FirstPassage, parent_history
 from .moid import moid
+from .observing import Site, expected_hourly_rate, site_view, world_view
 from .orbit_input import OrbitInput, parse_orbit
 from .release import EjectionModel
 from .solar_longitude import solar_longitude_deg, times_of_solar_longitude_tdb
@@ -40,9 +41,11 @@ __all__ = [
     "InvalidTime",
     "OrbitInput",
     "OutsideTimeSpan",
+    "Site",
     "SolutionsResult",
     "TrailEncounter",
     "TrailcastError",
+    "expected_hourly_rate",
     "forecast",
     "forecast_solutions",
     "format_utc",
@@ -51,7 +54,9 @@ __all__ = [
     "parent_history",
     "parse_orbit",
     "quick_look",
+    "site_view",
     "solar_longitude_deg",
     "times_of_solar_longitude_tdb",
+    "world_view",
     "zhr_from_flux",
 ]

@@ -41,3 +41,14 @@ class OutsideTimeSpan(TrailcastError, ValueError):
     def __init__(self, message: str, span: tuple[float, float] | None = None):
         self.span = span
         super().__init__(message)
+
+
+class InvalidSite(TrailcastError, ValueError):
+    """An observing site or its options hold an impossible value (latitude outside [-90, 90] deg,
+    an unreadable ``LAT,LON[,ELEV_M]`` ...). ``field`` names the value at fault; fix it and retry.
+    """
+
+    def __init__(self, field: str, message: str):
+        self.field = field
+        self.message = message
+        super().__init__(f"{field}: {message}")

@@ -28,7 +28,7 @@ from .activity import (
     DEFAULT_EROSION_M_PER_RETURN,
     default_dust_mass_per_return_g,
 )
-from .constants import DAYS_PER_JULIAN_YEAR
+from .constants import DAYS_PER_JULIAN_YEAR, GM_SUN_AU3_D2
 from .crossings import MISS_DISTANCE_CONVENTION, Crossings, node_crossings
 from .ephemeris import ephemeris_info
 from .errors import TrailcastError
@@ -36,7 +36,14 @@ from .executors import Task, default_workers, make_executor, run_tasks
 from .history import FirstPassage, ParentHistory, ParentReturn, cached_parent_history
 from .nbody import provenance, step_grid
 from .orbit_input import OrbitInput
-from .release import Candidates, EjectionEvent, EjectionModel, draw_candidates, event_of_return
+from .release import (
+    Candidates,
+    EjectionEvent,
+    EjectionModel,
+    draw_candidates,
+    event_of_return,
+    model_for_event,
+)
 from .summaries import TrailEncounter, round_sig, summarise, year_of
 from .targeting import (
     BETA_CLASSES,
@@ -68,12 +75,24 @@ NEAR_MISS_MAX_AU = 0.05
 #: re-maps predicted to real arrivals with everything integrated so far (old, strongly perturbed
 #: trails need them). No source.
 REFINEMENT_ROUNDS = 3
-#: Most candidates drawn per trail when few map into the window (8 batches of the default
-#: 200,000; ~200 MB of release states at most). No source.
-MAX_CANDIDATES_PER_TRAIL = 1_600_000
+#: Targeted candidate batches (of ``options.candidates``) drawn for a target at most, and the
+#: margin (days of predicted arrival) added around the mapped window (no source).
+TARGETED_BATCHES = 4
+TARGETED_MARGIN_DAYS = 60.0
 #: Pilot output step (days) per day of pilot half-span: arrivals far from Earth's passage are
 #: extrapolated along the osculating orbit from the nearest output (no source).
 PILOT_STEP_PER_SPAN = 1.0 / 40.0
+#: Smallest pilot output step (days), the pilot's starting half-span per revolution (days:
+#: older trails scatter more) and the margin of pilot outputs beyond its span (days). No source.
+PILOT_MIN_STEP_DAYS = 5.0
+PILOT_SPAN_PER_REVOLUTION_DAYS = 30.0
+PILOT_OUTPUT_MARGIN_DAYS = 40.0
+#: Main integrations write states every MAIN_STEP_DAYS over the window plus this margin (days):
+#: a crossing is computed from the state nearest it (no source).
+MAIN_STEP_DAYS = 2.0
+MAIN_OUTPUT_MARGIN_DAYS = 30.0
+#: A target is refined when fewer than this fraction of its meteoroids met Earth's passage.
+REFINE_BELOW_HIT_FRACTION = 0.5
 #: Crossings farther than NEAR_MISS_MAX_AU are "distant"; no meteoroid within the window of
 #: Earth's passage at all: "not reached".
 
@@ -251,8 +270,9 @@ class ForecastResult:
                 "solar_longitude": "geometric, equinox J2000",
                 "radiant": "RA/Dec, equinox J2000, geocentric, without zenith attraction",
                 "miss_distance": MISS_DISTANCE_CONVENTION,
-                "peak": "weighted median of Earth's closest-point times over the meteoroids that "
-                "give visual meteors (mass of a +6.5 mag meteor or more at their speed)",
+                "peak": "Earth's closest-point times of the meteoroids that give visual meteors "
+                "(mass of a +6.5 mag meteor or more at their speed): median per decade of mass, "
+                "combined weighted by the real meteoroids of each decade",
                 "time_scale_notes": list(TIME_SCALE_NOTES),
             },
             "encounters": [e.to_json() for e in self.encounters],
@@ -307,7 +327,6 @@ class _Trail:
     event: EjectionEvent | None
     cls: np.ndarray = field(repr=False)
     edges: np.ndarray = field(repr=False, default_factory=lambda: np.zeros(0))
-    batches: int = 1
 
 
 def _seed_for(seed: int, tp_tdb_jd: float, batch: int = 0) -> np.random.SeedSequence:
@@ -370,13 +389,7 @@ def _forecast(
         rng = np.random.default_rng(_seed_for(options.seed, ret.tp_tdb_jd))
         event = event_of_return(ret, options.events)
         pool = draw_candidates(ret, options.ejection, options.candidates, rng, event=event)
-        model = options.ejection
-        if event is not None:
-            model = replace(
-                model,
-                mass_min_g=event.mass_min_g or model.mass_min_g,
-                mass_max_g=event.mass_max_g or model.mass_max_g,
-            )
+        model = model_for_event(options.ejection, event)
         edges = beta_class_edges(pool.beta)
         trails[k] = _Trail(
             ret, pool, model, options.candidates, event, beta_classes(pool.beta, edges), edges
@@ -389,8 +402,10 @@ def _forecast(
             )
 
     integrated = _pilot(targets, trails, options, executor, say)
-    _grow_pools(targets, trails, options)
-    drawn = sum(tr.n_drawn for tr in trails.values())
+    _targeted_pools(targets, trails, options)
+    drawn = sum(tr.n_drawn for tr in trails.values()) + sum(
+        tg.n_drawn for tg in targets if tg.targeted_pool
+    )
     per_target, picked, integrated = _main_rounds(
         targets, trails, options, executor, say, integrated
     )
@@ -406,21 +421,21 @@ def _forecast(
         if parts:
             cr = _concat_crossings(parts)
             idx = np.concatenate(picked[ti])
-            x = predicted_offset(tr.pool, tg)
+            x = tg.x_pool
             amap = ArrivalMap(tg.x_seen, tg.y_seen, tg.c_seen, BETA_CLASSES)
             lag = cr.t_cross_tdb_jd - tg.t_earth
             hit = np.isfinite(lag) & (np.abs(lag) <= options.window_days)
             if hit.any():
-                slope = float(np.nanmedian(amap.local_slope(x[idx[hit]], tr.cls[idx[hit]])))
+                slope = float(np.nanmedian(amap.local_slope(x[idx[hit]], tg.cls[idx[hit]])))
             enc = summarise(
                 tg,
                 tr.ret.tp_tdb_jd,
                 cr,
-                tr.pool.take(idx),
+                tg.pool.take(idx),
                 1.0 - tg.keep_prob[idx],
                 options,
                 tr.model,
-                tr.n_drawn,
+                tg.n_drawn,
                 slope,
                 event=None if tr.event is None else tr.event.kind,
             )
@@ -520,7 +535,10 @@ def _pilot(targets, trails, options, executor, say) -> int:
     todo = []
     for ti, tg in enumerate(targets):
         tr = trails[tg.trail]
-        tg.span_days = max(options.pilot_window_days, 30.0 * tg.revolutions)
+        tg.span_days = max(
+            options.pilot_window_days, PILOT_SPAN_PER_REVOLUTION_DAYS * tg.revolutions
+        )
+        tg.pool, tg.cls, tg.n_drawn = tr.pool, tr.cls, tr.n_drawn
         tg.keep_prob = np.ones(len(tr.pool))
         x = predicted_offset(tr.pool, tg)
         todo.append((ti, -tg.span_days, tg.span_days, per_class))
@@ -536,11 +554,10 @@ def _pilot(targets, trails, options, executor, say) -> int:
             if len(pick) == 0:
                 continue
             tg.pilot_rounds += 1
-            half = tg.span_days + 40.0
-            step = max(5.0, tg.span_days * PILOT_STEP_PER_SPAN)
+            half = tg.span_days + PILOT_OUTPUT_MARGIN_DAYS
+            step = max(PILOT_MIN_STEP_DAYS, tg.span_days * PILOT_STEP_PER_SPAN)
             out_t = _output_times(tr.ret, tg.t_earth, half, step, options.dt_days)
-            for start in range(0, len(pick), options.chunk_size):
-                sub = pick[start : start + options.chunk_size]
+            for start, sub in _chunks(pick, options):
                 tasks.append(
                     _make_task(
                         ("pilot", ti, round_, start), tr.ret, tr.pool.take(sub), out_t, options
@@ -576,47 +593,78 @@ def _pilot(targets, trails, options, executor, say) -> int:
     return integrated
 
 
-def _grow_pools(targets, trails, options) -> None:
-    """Draw more candidates for trails whose mapped arrivals leave fewer than the particle
-    budget within the window (one-revolution dust of long-period parents spreads over
-    centuries of arrival: a few in 1e4 land within weeks of Earth's passage). Doubling batches,
-    up to MAX_CANDIDATES_PER_TRAIL; every batch has its own seed, so results stay reproducible,
-    and the number drawn enters the activity's weights."""
-    for k, tr in trails.items():
-        tis = [ti for ti, tg in enumerate(targets) if tg.trail == k and len(tg.idx_seen)]
-        while tr.n_drawn < MAX_CANDIDATES_PER_TRAIL and tis:
-            short = False
-            for ti in tis:
-                tg = targets[ti]
-                amap = ArrivalMap(tg.x_seen, tg.y_seen, tg.c_seen, BETA_CLASSES)
-                seen = np.zeros(len(tr.pool), dtype=bool)
-                seen[tg.idx_seen] = True
-                _, eligible, _ = select_for_window(
-                    amap, tg.x_pool, tr.cls, options.window_days, seen, options.particles
+def _targeted_pools(targets, trails, options) -> None:
+    """Give a target its own pool of candidates drawn on the period window that reaches
+    Earth's passage, when the trail's natural pool leaves fewer eligible than the budget.
+
+    One-revolution dust of a long-period parent spreads over centuries of arrival, so only a
+    few in 10,000 natural candidates land within weeks of Earth's passage. The targeted draw
+    (:func:`dynamics.release.draw_candidates` with ``period_window_days``) keeps the release
+    times, sizes and directions of the natural law and draws only speeds that give periods in
+    the window, each candidate weighted by the natural probability of its speed range. The
+    window comes from the arrival map (every predicted offset mapped within the selection
+    window, widened by :data:`TARGETED_MARGIN_DAYS`), inverted through the parent's realised
+    period into a window of 1/a offsets. Batches of ``options.candidates``, at most :data:`TARGETED_BATCHES`, each with its
+    own seed."""
+    for tg in targets:
+        tr = trails[tg.trail]
+        if tg.revolutions == 0 or len(tg.idx_seen) == 0:
+            continue
+        amap = ArrivalMap(tg.x_seen, tg.y_seen, tg.c_seen, BETA_CLASSES)
+        seen = np.zeros(len(tg.pool), dtype=bool)
+        seen[tg.idx_seen] = True
+        _, eligible, _ = select_for_window(
+            amap, tg.x_pool, tg.cls, options.window_days, seen, options.particles
+        )
+        if len(eligible) >= options.particles:
+            continue
+        xs = np.sort(tg.x_seen[np.isfinite(tg.x_seen)])
+        ys = amap(xs, np.full(len(xs), -1))
+        near = xs[np.abs(ys) <= options.window_days]
+        if len(near) == 0:
+            continue  # no branch through Earth's passage: the uniform fallback handles it
+        x_lo, x_hi = near.min() - TARGETED_MARGIN_DAYS, near.max() + TARGETED_MARGIN_DAYS
+        d_a, d_b = (_inverse_a_offset_for(tg, x) for x in (x_hi, x_lo))
+        if not (np.isfinite(d_a) and np.isfinite(d_b) and d_a < d_b):
+            continue
+        pools = []
+        for batch in range(1, TARGETED_BATCHES + 1):
+            rng = np.random.default_rng(_seed_for(options.seed, tr.ret.tp_tdb_jd, 1000 + batch))
+            pools.append(
+                draw_candidates(
+                    tr.ret,
+                    options.ejection,
+                    options.candidates,
+                    rng,
+                    event=tr.event,
+                    inverse_a_window=(d_a, d_b),
                 )
-                short |= len(eligible) < options.particles
-            if not short:
+            )
+            pool = pools[0] if len(pools) == 1 else _concat_candidates(*pools)
+            x = predicted_offset(pool, tg)
+            cls = beta_classes(pool.beta, tr.edges)
+            y = amap(x, cls)
+            if np.sum(np.isfinite(y) & (np.abs(y) <= options.window_days)) >= options.particles:
                 break
-            n_new = min(tr.n_drawn, MAX_CANDIDATES_PER_TRAIL - tr.n_drawn)
-            rng = np.random.default_rng(_seed_for(options.seed, tr.ret.tp_tdb_jd, tr.batches))
-            new = draw_candidates(tr.ret, options.ejection, n_new, rng, event=tr.event)
-            tr.batches += 1
-            tr.n_drawn += n_new
-            tr.pool = _concat_candidates(tr.pool, new)
-            tr.cls = np.concatenate([tr.cls, beta_classes(new.beta, tr.edges)])
-            for ti in tis:
-                tg = targets[ti]
-                tg.x_pool = np.concatenate([tg.x_pool, predicted_offset(new, tg)])
-                tg.keep_prob = np.concatenate([tg.keep_prob, np.ones(len(new))])
-            for ti, tg in enumerate(targets):  # targets of this trail not piloted: keep shapes
-                if tg.trail == k and ti not in tis:
-                    tg.x_pool = np.concatenate([tg.x_pool, predicted_offset(new, tg)])
-                    tg.keep_prob = np.concatenate([tg.keep_prob, np.ones(len(new))])
+        tg.pool, tg.cls, tg.x_pool = pool, cls, x
+        tg.n_drawn = batch * options.candidates
+        tg.keep_prob = np.ones(len(pool))
+        tg.targeted_pool = True
 
 
-def _concat_candidates(a: Candidates, b: Candidates) -> Candidates:
+def _inverse_a_offset_for(tg: Target, x: float) -> float:
+    """Inverse of :func:`dynamics.targeting.predicted_offset` at zero perihelion-time offset:
+    the 1/a offset from the parent's (1/au) that arrives ``x`` days after Earth's passage."""
+    k = 2.0 * np.pi / np.sqrt(GM_SUN_AU3_D2)
+    p_real_dust = tg.p_real_days + (x - (tg.t_parent_node - tg.t_earth)) / tg.revolutions
+    if p_real_dust <= 0:
+        return float("nan")
+    return float((p_real_dust / k) ** (-2 / 3) - (tg.p_real_days / k) ** (-2 / 3))
+
+
+def _concat_candidates(*parts: Candidates) -> Candidates:
     return Candidates(
-        *(np.concatenate([getattr(a, f), getattr(b, f)]) for f in Candidates.__dataclass_fields__)
+        *(np.concatenate([getattr(p, f) for p in parts]) for f in Candidates.__dataclass_fields__)
     )
 
 
@@ -624,7 +672,7 @@ def _record(tg: Target, tr: _Trail, idx, cr: Crossings) -> None:
     """Keep what an integration taught about a target's arrival map."""
     tg.x_seen = np.concatenate([tg.x_seen, tg.x_pool[idx]])
     tg.y_seen = np.concatenate([tg.y_seen, cr.t_cross_tdb_jd - tg.t_earth])
-    tg.c_seen = np.concatenate([tg.c_seen, tr.cls[idx]])
+    tg.c_seen = np.concatenate([tg.c_seen, tg.cls[idx]])
     tg.idx_seen = np.concatenate([tg.idx_seen, idx])
     tg.miss_seen = np.concatenate([tg.miss_seen, cr.miss_distance_au])
 
@@ -637,9 +685,10 @@ def _main_rounds(targets, trails, options, executor, say, integrated):
     """
     per_target: dict[int, list] = {}
     picked: dict[int, list] = {}
-    taken = {ti: np.zeros(len(trails[tg.trail].pool), dtype=bool) for ti, tg in enumerate(targets)}
+    taken = {ti: np.zeros(len(tg.pool), dtype=bool) for ti, tg in enumerate(targets)}
     for ti, tg in enumerate(targets):
-        taken[ti][tg.idx_seen] = True  # pilot meteoroids inform the map, never the activity
+        if not tg.targeted_pool:  # pilot meteoroids inform the map, never the activity
+            taken[ti][tg.idx_seen] = True
         tg.selection_mode = "shooting"
     active = list(range(len(targets)))
     for round_ in range(1 + REFINEMENT_ROUNDS):
@@ -651,7 +700,7 @@ def _main_rounds(targets, trails, options, executor, say, integrated):
             tr = trails[tg.trail]
             amap = ArrivalMap(tg.x_seen, tg.y_seen, tg.c_seen, BETA_CLASSES)
             pick, eligible, frac = select_for_window(
-                amap, tg.x_pool, tr.cls, options.window_days, taken[ti], options.particles
+                amap, tg.x_pool, tg.cls, options.window_days, taken[ti], options.particles
             )
             if len(pick) == 0 and round_ == 0 and len(tg.idx_seen):
                 # shooting found no branch through Earth's passage: sample the whole pilot
@@ -670,13 +719,16 @@ def _main_rounds(targets, trails, options, executor, say, integrated):
             taken[ti][pick] = True
             tg.rounds += 1
             out_t = _output_times(
-                tr.ret, tg.t_earth, options.window_days + 30.0, 2.0, options.dt_days
+                tr.ret,
+                tg.t_earth,
+                options.window_days + MAIN_OUTPUT_MARGIN_DAYS,
+                MAIN_STEP_DAYS,
+                options.dt_days,
             )
-            for start in range(0, len(pick), options.chunk_size):
-                sub = pick[start : start + options.chunk_size]
+            for start, sub in _chunks(pick, options):
                 tasks.append(
                     _make_task(
-                        ("main", round_, ti, start), tr.ret, tr.pool.take(sub), out_t, options
+                        ("main", round_, ti, start), tr.ret, tg.pool.take(sub), out_t, options
                     )
                 )
                 meta.append((ti, sub))
@@ -704,7 +756,7 @@ def _needs_refinement(parts, options) -> bool:
         return False
     lag = np.concatenate([p.t_cross_tdb_jd - p.t_earth_tdb_jd for p in parts])
     hit = np.isfinite(lag) & (np.abs(lag) <= options.window_days)
-    return hit.sum() < 0.5 * min(len(lag), options.particles)
+    return hit.sum() < REFINE_BELOW_HIT_FRACTION * min(len(lag), options.particles)
 
 
 def _outcome(tg: Target, tr: _Trail, enc, options) -> dict:
@@ -840,6 +892,16 @@ def _calibrate(orbit, options, executor):
         "factor": round_sig(factor, 4),
     }
     return info, replace(options, zhr_scale=factor)
+
+
+def _chunks(pick: np.ndarray, options):
+    """Split one target's meteoroids into chunks of at most ``chunk_size``, and into at least
+    as many chunks as there are workers, of near-equal size (a lone pilot set would otherwise
+    run on one core). Meteoroids are test particles: how they are chunked never changes them."""
+    n = len(pick)
+    n_chunks = max(-(-n // options.chunk_size), min(options.workers, n), 1)
+    bounds = np.linspace(0, n, n_chunks + 1).round().astype(int)
+    return [(int(a), pick[a:b]) for a, b in zip(bounds[:-1], bounds[1:], strict=True) if b > a]
 
 
 def _output_times(ret: ParentReturn, t_center, half_width, step, dt_days):

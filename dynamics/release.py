@@ -16,7 +16,7 @@ return is recorded, so that the activity stage can turn the integrated few back 
 of real meteoroids (:func:`dynamics.activity.meteoroids_per_particle`).
 """
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -162,12 +162,38 @@ class Candidates:
     weight: np.ndarray
     dperiod_days: np.ndarray
     dtp_days: np.ndarray
+    #: Fraction of natural draws each stands for: 1 for a natural draw; for a draw targeted on
+    #: a period window (:func:`draw_candidates` with ``period_window_days``), the probability
+    #: that the natural speed draw falls in that window.
+    sample_weight: np.ndarray | None = None
+    #: The parent's heliocentric osculating period at each release (days): it varies along the
+    #: active arc (the Sun's reflex motion about the barycentre moves a long-period comet's
+    #: heliocentric 1/a by ~1e-3 /au), so period offsets are only meaningful against it.
+    parent_period_days: np.ndarray | None = None
+
+    def __post_init__(self):
+        n = len(self.release_t_tdb_jd)
+        if self.sample_weight is None:
+            object.__setattr__(self, "sample_weight", np.ones(n))
+        if self.parent_period_days is None:
+            object.__setattr__(self, "parent_period_days", np.full(n, np.nan))
 
     def take(self, idx) -> "Candidates":
         return Candidates(*(getattr(self, f)[idx] for f in self.__dataclass_fields__))
 
     def __len__(self) -> int:
         return len(self.release_t_tdb_jd)
+
+
+def model_for_event(model: EjectionModel, event: EjectionEvent | None) -> EjectionModel:
+    """The ejection model of a trail: the event's size range where it gives one."""
+    if event is None:
+        return model
+    return replace(
+        model,
+        mass_min_g=event.mass_min_g or model.mass_min_g,
+        mass_max_g=event.mass_max_g or model.mass_max_g,
+    )
 
 
 def event_of_return(ret: ParentReturn, events) -> "EjectionEvent | None":
@@ -186,6 +212,7 @@ def draw_candidates(
     n: int,
     rng: np.random.Generator,
     event: EjectionEvent | None = None,
+    inverse_a_window: tuple[float, float] | None = None,
 ) -> Candidates:
     """Draw ``n`` release conditions over the active arc of one parent return.
 
@@ -193,6 +220,16 @@ def draw_candidates(
     the activity law; with an ``event``, the samples within its release span, chosen uniformly,
     with its speed multiplier and size range. Unbound meteoroids (too large beta or speed) are
     dropped, so the result may hold fewer than ``n``.
+
+    With ``inverse_a_window = (lo, hi)`` (1/au) the draw is *targeted*: for each release time,
+    mass and direction, the speed fraction u (natural law: uniform on [0, 1]) is drawn only
+    where the meteoroid's 1/a offset from the parent's at the same point (as an equivalent
+    period under mu (1 - beta)) falls in [lo, hi] (solved exactly: the squared speed after
+    release is quadratic in u), and the candidate's ``sample_weight`` is the probability of
+    that u range under the natural law. Candidates whose window is empty are
+    dropped. This is how one-revolution dust of long-period parents, which a natural draw
+    spreads over centuries of arrival times, is sampled at Earth's passage (importance
+    sampling; the estimate stays unbiased).
     """
     k_arc = len(ret.arc_t_tdb_jd)
     if k_arc == 0 or n <= 0:
@@ -207,13 +244,7 @@ def draw_candidates(
         ).astype(float)
         if not w_arc.any():  # shorter than the arc's one-day grid: the nearest sample
             w_arc[int(np.argmin(np.abs(t_arc - event.t_tdb_jd)))] = 1.0
-        model = EjectionModel(
-            **{
-                **model.__dict__,
-                "mass_min_g": event.mass_min_g or model.mass_min_g,
-                "mass_max_g": event.mass_max_g or model.mass_max_g,
-            }
-        )
+        model = model_for_event(model, event)
     p = w_arc / w_arc.sum()
     ia = rng.choice(k_arc, size=n, p=p)
     r = ret.arc_r_au[ia]
@@ -232,17 +263,30 @@ def draw_candidates(
     )
     if event is not None:
         speed = speed * event.speed_multiplier
-    if model.speed_spread == "uniform":
-        speed = speed * rng.random(n)
-    elif model.speed_spread != "fixed":
+    if model.speed_spread not in ("uniform", "fixed"):
         raise ValueError(f"unknown speed_spread {model.speed_spread!r}; use 'uniform' or 'fixed'")
     dirs = sunward_directions(-r / rn[:, None], rng, law=model.direction_law)
-    v = v_parent + ejection_velocities_au_d(speed, dirs)
+    sample_weight = np.ones(n)
     t = ret.arc_t_tdb_jd[ia]
-
-    el_p, tp_p, per_p = elements_under_radiation(r, v, t, beta)
     el_c = state_to_elements(r, v_parent, t, GM_SUN_AU3_D2)
-    bound = (np.asarray(el_p.e) < 1.0) & np.isfinite(per_p)
+    if inverse_a_window is not None and model.speed_spread == "uniform":
+        kp = 2.0 * np.pi / np.sqrt(GM_SUN_AU3_D2)
+        inv_a_c = (np.asarray(el_c.period_days) / kp) ** (-2.0 / 3.0)
+        lo_inv, hi_inv = inv_a_c + inverse_a_window[0], inv_a_c + inverse_a_window[1]
+        window = (
+            kp * np.where(hi_inv > 0, hi_inv, np.nan) ** -1.5,  # larger 1/a: shorter period
+            kp * np.where(lo_inv > 0, lo_inv, np.inf) ** -1.5,
+        )
+        u_lo, u_hi = _speed_fraction_window(
+            r, v_parent, ejection_velocities_au_d(speed, dirs), beta, window
+        )
+        sample_weight = np.clip(u_hi - u_lo, 0.0, 1.0)
+        speed = speed * (u_lo + (u_hi - u_lo) * rng.random(n))
+    elif model.speed_spread == "uniform":
+        speed = speed * rng.random(n)
+    v = v_parent + ejection_velocities_au_d(speed, dirs)
+    el_p, tp_p, per_p = elements_under_radiation(r, v, t, beta)
+    bound = (np.asarray(el_p.e) < 1.0) & np.isfinite(per_p) & (sample_weight > 0)
     weight = mass_distribution_weights(mass, model.mass_index, model.mass_min_g)
     cand = Candidates(
         release_t_tdb_jd=t,
@@ -255,10 +299,56 @@ def draw_candidates(
         weight=weight,
         dperiod_days=per_p - np.asarray(el_c.period_days),
         dtp_days=tp_p - np.asarray(el_c.tp_tdb_jd),
+        sample_weight=sample_weight,
+        parent_period_days=np.asarray(el_c.period_days, dtype=float),
     )
     return cand.take(np.flatnonzero(bound))
 
 
+def _speed_fraction_window(r, v_parent, dv_full, beta, period_window_days):
+    """Range [u_lo, u_hi] within [0, 1] of speed fractions u for which the period of a
+    meteoroid released at r with velocity v_parent + u dv_full, under mu (1 - beta), lies in
+    the window. Where two disjoint ranges exist (u on both sides of the period's extremum),
+    the wider is kept (its weight is its own width: still unbiased for what it covers).
+    Empty ranges come back with u_lo = u_hi."""
+    lo_p, hi_p = period_window_days
+    mu = GM_SUN_AU3_D2 * (1.0 - beta)
+    rn = np.linalg.norm(r, axis=-1)
+
+    def v2_for_period(p_days):  # |v|^2 that gives period p under mu (1 - beta)
+        a = (p_days * np.sqrt(mu) / (2.0 * np.pi)) ** (2.0 / 3.0)
+        return mu * (2.0 / rn - 1.0 / a)
+
+    # |v_p + u dv|^2 = A u^2 + 2 B u + C; the period grows with |v|
+    A = np.sum(dv_full * dv_full, axis=-1)
+    B = np.sum(v_parent * dv_full, axis=-1)
+    C = np.sum(v_parent * v_parent, axis=-1)
+    w_lo, w_hi = v2_for_period(lo_p), v2_for_period(hi_p)  # |v|^2 window (w_lo < w_hi)
+
+    def roots(w):  # u with A u^2 + 2 B u + C = w (NaN where none)
+        disc = B * B - A * (C - w)
+        sq = np.sqrt(np.where(disc >= 0, disc, np.nan))
+        safe_a = np.where(A > 0, A, np.nan)
+        return (-B - sq) / safe_a, (-B + sq) / safe_a
+
+    lo1, hi1 = roots(w_lo)  # |v|^2 <= w_lo between these
+    lo2, hi2 = roots(w_hi)  # |v|^2 <= w_hi between these
+    # the set {w_lo <= |v|^2 <= w_hi} is [lo2, lo1] U [hi1, hi2] (or [lo2, hi2] if no lo roots)
+    no_inner = np.isnan(lo1)
+    left = (np.where(no_inner, lo2, lo2), np.where(no_inner, hi2, lo1))
+    right = (np.where(no_inner, hi2, hi1), np.where(no_inner, hi2, hi2))
+
+    def clip(seg):
+        a, b = np.clip(seg[0], 0.0, 1.0), np.clip(seg[1], 0.0, 1.0)
+        a = np.where(np.isnan(a), 0.0, a)
+        b = np.where(np.isnan(b), 0.0, b)
+        return a, np.maximum(a, b)
+
+    (la, lb), (ra, rb) = clip(left), clip(right)
+    take_left = (lb - la) >= (rb - ra)
+    return np.where(take_left, la, ra), np.where(take_left, lb, rb)
+
+
 def _empty() -> Candidates:
     z = np.zeros(0)
-    return Candidates(z, np.zeros((0, 3)), np.zeros((0, 3)), z, z, z, z, z, z, z)
+    return Candidates(z, np.zeros((0, 3)), np.zeros((0, 3)), z, z, z, z, z, z, z, z, z)

@@ -2,7 +2,8 @@
 
 The headline peak of an encounter is taken from the meteoroids that make *visual* meteors:
 those above the mass that gives a +6.5 mag meteor at their speed (the definition of the ZHR;
-:func:`dynamics.activity.limiting_mass_g`), weighted by the real meteoroids each stands for.
+:func:`dynamics.activity.limiting_mass_g`): the median of each decade of mass, combined with
+the number of real meteoroids in each decade as weights (:func:`_stratified_centre`).
 Small, high-beta grains reach their node later (radiation pressure changes their orbits) and far
 outnumber the visual ones in a log-uniform draw; an unweighted median over all sizes is dragged
 by them. Per mass class (decades of mass) the peak, miss distance and width are reported too,
@@ -31,6 +32,9 @@ from .timescales import format_iso, format_utc
 ZHR_REPORT_FLOOR = 0.01
 #: Fewest meteoroids behind a trail-level estimate (fewer: the trail is "not reached").
 MIN_PARTICLES = 3
+#: Earth's closest-point times within this many days of the target's passage belong to it
+#: (Earth passes a node once a year; no source).
+SAME_PASSAGE_DAYS = 30.0
 #: Limiting magnitude of the meteoroids that set the headline peak (the ZHR's definition).
 VISUAL_LIMITING_MAGNITUDE = 6.5
 VISUAL_SIZE_SOURCE = (
@@ -175,6 +179,23 @@ def _mass_classes(te, miss, mass, w, visual) -> list[dict]:
     return out
 
 
+def _stratified_centre(te, miss, mass, counts) -> tuple[float, float]:
+    """Peak time and miss distance of the visual meteoroids: the median of each decade of
+    mass, combined by a median weighted with the number of real meteoroids in each decade.
+
+    Stratified so that a few heavily weighted small grains (weights go as m^(1 - s)) cannot
+    set the answer alone: within a decade the weights differ by at most 10^(s - 1), across
+    decades they say how many meteors each size gives."""
+    lm = np.floor(np.log10(mass)).astype(int)
+    t_c, m_c, w_c = [], [], []
+    for dec in np.unique(lm):
+        sel = lm == dec
+        t_c.append(float(np.median(te[sel])))
+        m_c.append(float(np.median(miss[sel])))
+        w_c.append(float(counts[sel].sum()))
+    return weighted_median(t_c, w_c), weighted_median(m_c, w_c)
+
+
 def _beta_slope_min_per_milli(te, beta, w) -> float:
     """Weighted least-squares slope of Earth-passage time against beta (min per 0.001)."""
     if len(te) < 5 or np.ptp(beta) <= 0:
@@ -204,7 +225,7 @@ def summarise(
     arrival at Earth's passage (for the dilution).
     """
     lag = cr.t_cross_tdb_jd - cr.t_earth_tdb_jd
-    same_passage = np.abs(cr.t_earth_tdb_jd - tg.t_earth) <= 30.0
+    same_passage = np.abs(cr.t_earth_tdb_jd - tg.t_earth) <= SAME_PASSAGE_DAYS
     keep = np.isfinite(lag) & (np.abs(lag) <= options.window_days) & same_passage
     n = int(keep.sum())
     if n < MIN_PARTICLES:
@@ -221,6 +242,7 @@ def summarise(
             n_drawn,
             options.dust_mass(),
         )
+        * met.sample_weight
         / inclusion[keep]
         * options.zhr_scale
     )
@@ -228,8 +250,9 @@ def summarise(
     te, miss = sub.t_earth_tdb_jd, sub.miss_distance_au
     if visual.sum() >= MIN_PARTICLES:
         basis = "visual"
-        peak = weighted_median(te[visual], counts[visual])
-        miss_c = weighted_median(miss[visual], counts[visual])
+        peak, miss_c = _stratified_centre(
+            te[visual], miss[visual], met.mass_g[visual], counts[visual]
+        )
         pick = visual
     else:  # too few visual-size meteoroids behind the estimate: every size, said so
         basis = "all sizes (too few visual-size meteoroids)"

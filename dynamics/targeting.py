@@ -37,6 +37,12 @@ from .timescales import calendar_year_tdb_jd
 #: A parent node farther than this from Earth's orbit is not followed (au). Generous on
 #: purpose: trails drift from the parent's node by ~0.1 au over centuries (no source).
 NODE_MAX_DISTANCE_AU = 0.25
+#: Revolution counts are tried while the parent's node passage is no later than Earth's by
+#: this fraction of its period (dust can arrive earlier than the parent), and node passages
+#: more than this many days before the trail's own perihelion are not its revolutions (no
+#: source).
+LATEST_NODE_FRACTION_OF_PERIOD = 0.75
+NODE_BEFORE_PERIHELION_DAYS = 200.0
 #: Classes of beta (equal-count bins of log beta) with their own arrival maps.
 BETA_CLASSES = 3
 #: Points of the running median that smooths each class's arrival map (no source: enough to
@@ -74,6 +80,10 @@ class Target:
     keep_prob: np.ndarray | None = None  # per pool candidate: 1 - P(integrated), main rounds
     rounds: int = 0
     selection_mode: str = "shooting"
+    pool: Candidates | None = None  # the trail's pool, or this target's own targeted pool
+    cls: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=int))  # beta class
+    n_drawn: int = 0  # draws behind ``pool`` (the activity's weights)
+    targeted_pool: bool = False
 
 
 def parent_node_time(ret: ParentReturn, node: str) -> float:
@@ -142,9 +152,9 @@ def find_targets(returns, trail_ids, first_year: int, last_year: int) -> list[Ta
                 for k in trail_ids:
                     for j in range(k, len(returns)):
                         t_node = parent_node_time(returns[j], node)
-                        if t_node > t_e + 0.75 * returns[j].period_days:
+                        if t_node > t_e + LATEST_NODE_FRACTION_OF_PERIOD * returns[j].period_days:
                             break
-                        if t_node < returns[k].tp_tdb_jd - 200.0:
+                        if t_node < returns[k].tp_tdb_jd - NODE_BEFORE_PERIHELION_DAYS:
                             continue
                         n_rev = j - k
                         p_real = (
@@ -170,24 +180,24 @@ def find_targets(returns, trail_ids, first_year: int, last_year: int) -> list[Ta
 def predicted_offset(pool: Candidates, tg: Target) -> np.ndarray:
     """Predicted node arrival minus Earth's passage (days) of each candidate.
 
-    The candidate's inverse semi-major axis under mu (1 - beta) differs from the parent's
-    osculating one at release by its ejection; the planets then shift both alike. Its period
-    over the trail's revolutions is taken from the parent's realised mean period with that same
-    offset in 1/a (exact in the offset, not linearised: one-revolution dust of long-period
-    parents has offsets of decades). Unbound-after-perturbation candidates get +inf.
+    A candidate's inverse semi-major axis (under mu (1 - beta), as an equivalent period)
+    differs from the parent's osculating one *at the same release point* by its ejection;
+    the planets then shift both alike. Its period over the trail's revolutions is the
+    parent's realised mean period with that same offset in 1/a (exact in the offset, not
+    linearised: one-revolution dust of long-period parents has offsets of decades).
+    Candidates unbound after that shift get +inf.
     """
     base = tg.t_parent_node + pool.dtp_days - tg.t_earth
     if tg.revolutions == 0:
         return base
     k = 2.0 * np.pi / np.sqrt(GM_SUN_AU3_D2)  # P = k a^1.5 (days, au)
-    p_osc = tg.p_osc_days
-    p_dust = p_osc + pool.dperiod_days
-    # the candidates' own scale sqrt(1 - beta) cancels between p_dust and its 1/a: use the
-    # parent's mu for both, consistently with how dperiod was computed
-    inv_a_parent = (p_osc / k) ** (-2.0 / 3.0)
+    p_parent = np.where(
+        np.isfinite(pool.parent_period_days), pool.parent_period_days, tg.p_osc_days
+    )
+    p_dust = p_parent + pool.dperiod_days
+    inv_a_parent = np.abs(p_parent / k) ** (-2.0 / 3.0)
     inv_a_dust = np.where(p_dust > 0, (np.abs(p_dust) / k) ** (-2.0 / 3.0), np.nan)
-    inv_a_parent_real = (tg.p_real_days / k) ** (-2.0 / 3.0)
-    inv_a_dust_real = inv_a_dust + (inv_a_parent_real - inv_a_parent)
+    inv_a_dust_real = (tg.p_real_days / k) ** (-2.0 / 3.0) + (inv_a_dust - inv_a_parent)
     p_dust_real = np.where(inv_a_dust_real > 0, k * np.abs(inv_a_dust_real) ** -1.5, np.inf)
     return base + tg.revolutions * (p_dust_real - tg.p_real_days)
 

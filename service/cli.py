@@ -840,6 +840,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("id", metavar="ID", help="job id printed by `trailcast submit`")
     add_service_options(p, "wait until the job is done, failed or cancelled")
     p.set_defaults(func=cmd_status)
+
+    from . import cli_observing  # `trailcast observe`: sites, Sun, Moon, world maps
+
+    cli_observing.add_parser(sub)
     return parser
 
 

@@ -242,8 +242,13 @@ def encounters_ics(
     items: list[tuple[str, int, str, dict, str | None]],
     calendar_name: str,
     cautions: list[str],
+    site=None,
 ) -> bytes:
-    """An iCalendar of ``(forecast_id, index, parent, encounter, finished_utc)`` items."""
+    """An iCalendar of ``(forecast_id, index, parent, encounter, finished_utc)`` items.
+
+    With a ``site`` (:class:`dynamics.observing.Site`) each description ends with
+    :func:`site_lines`.
+    """
     cal = Calendar()
     cal.add("prodid", f"-//trailcast//trailcast {__version__}//EN")
     cal.add("version", "2.0")
@@ -262,8 +267,49 @@ def encounters_ics(
         ev.add("dtstart", start)
         ev.add("dtend", end)
         ev.add("summary", event_summary(parent, e))
-        ev.add("description", event_description(parent, e, note, cautions))
+        description = event_description(parent, e, note, cautions)
+        if site is not None:
+            description += "\n" + "\n".join(site_lines(e, site))
+        ev.add("description", description)
         ev.add("categories", ["Meteor forecast"])
         ev.add("transp", "TRANSPARENT")
         cal.add_component(ev)
     return cal.to_ical()
+
+
+# --- per-site lines (issue 15): appended to each event, never rewriting the text above ---------
+
+
+def site_lines(encounter: dict, site) -> list[str]:
+    """What an observer at ``site`` needs in a calendar event: observable or not at the peak, the
+    expected hourly rate (lm 6.5, radiant >= 20 deg and Sun <= -12 deg for "observable") and
+    when the radiant rises, from :func:`dynamics.observing.site_encounter_view`."""
+    from dynamics import observing
+
+    where = f"{site.lat_deg:.3f}, {site.lon_deg:.3f}"
+    v = observing.site_encounter_view(encounter, site, timeline=False)
+    p = v["at_peak"]
+    lines = [f"At your site ({where}): {v['verdict']}."]
+    if p["hourly_rate"] is not None:
+        lines.append(
+            f"Expected hourly rate at the peak: {observing.rate_text(p['hourly_rate'])} "
+            f"(lm {observing.DEFAULT_LIMITING_MAGNITUDE:g}; radiant {p['radiant_alt_deg']:.0f} deg "
+            f"high, Sun {p['sun_alt_deg']:.0f} deg, {p['sky']})."
+        )
+    radiant = [x for x in v["events"] if x["event"].startswith("radiant")]
+    if v.get("radiant_in_span"):
+        lines.append(f"Radiant: {v['radiant_in_span']} within 9 h of the peak.")
+    if radiant:
+        lines.append(
+            "Radiant (UTC, within 9 h of the peak): "
+            + "; ".join(f"{x['event'].removeprefix('radiant ')} {x['time_utc']}" for x in radiant)
+            + "."
+        )
+    lines.append(
+        f"Moon at the peak: {p['moon_alt_deg']:.0f} deg high, "
+        f"{100 * p['moon_illuminated_fraction']:.0f} % lit, "
+        f"{p['moon_radiant_separation_deg']:.0f} deg from the radiant (not in the rate)."
+    )
+    lines.append("Caution: " + observing.OBSERVING_CAUTIONS[0])
+    lines.append("Caution: " + observing.OBSERVING_CAUTIONS[2])
+    return lines

@@ -12,7 +12,16 @@ from dynamics import __version__
 from .jobs import JobStore
 from .metrics import RequestLatencies
 from .problems import TYPE_BASE, install_problem_handlers, problem
-from .routers import dashboard, encounters, forecasts, geometry, plots, screenings, system
+from .routers import (
+    dashboard,
+    encounters,
+    forecasts,
+    geometry,
+    observing,
+    plots,
+    screenings,
+    system,
+)
 from .runner import JobRunner
 from .screening import ScreeningJobStore, ScreeningRunner
 from .security import require_token
@@ -175,6 +184,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(encounters.router)
     app.include_router(screenings.router)
     app.include_router(plots.router)
+    app.include_router(observing.router)
     app.include_router(dashboard.router)
     app.mount("/static", StaticFiles(directory=dashboard.STATIC_DIR), name="static")
     _declare_problem_schema(app)

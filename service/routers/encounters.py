@@ -23,6 +23,7 @@ from ..exports import encounters_ics
 from ..jobs import ZHR_KEYS, JobStore, format_utc
 from ..problems import TYPE_BASE, ProblemError, problem_responses
 from ..schemas import EXAMPLE_ENCOUNTER, EncounterOut
+from ._site import SITE_ICS_NOTE, SITE_LAT, SITE_LON, optional_site
 
 router = APIRouter(prefix="/v1", tags=["encounters"])
 
@@ -234,7 +235,7 @@ def list_encounters(
         "The selection of `GET /v1/encounters` (same filters; the first `limit` by peak time) as "
         "RFC 5545 events: one per encounter, spanning its activity window when the forecast "
         "gives one, until then peak +/- FWHM/2, as each description says, with the radiant, "
-        "speed and the cautions. " + ZHR_NOTE
+        "speed and the cautions. " + ZHR_NOTE + SITE_ICS_NOTE
     ),
     responses={
         200: {
@@ -255,7 +256,10 @@ def list_encounters_ics(
     min_zhr: float | None = _MIN_ZHR,
     parent: str | None = _PARENT,
     limit: int = Query(1000, ge=1, le=5000, description="Most events in the calendar"),
+    lat: float | None = SITE_LAT,
+    lon: float | None = SITE_LON,
 ) -> Response:
+    site = optional_site(lat, lon)
     f = _filters(from_, to, min_zhr, parent)
     rows = jobs.encounters(f["from"], f["to"], parent, min_zhr, None, limit)
     items = [
@@ -268,7 +272,9 @@ def list_encounters_ics(
         )
         for r in rows
     ]
-    body = encounters_ics(items, "trailcast: predicted meteor encounters", list(CAUTIONS))
+    body = encounters_ics(
+        items, "trailcast: predicted meteor encounters", list(CAUTIONS), site=site
+    )
     return Response(
         body,
         media_type="text/calendar; charset=utf-8",

@@ -29,6 +29,7 @@ from ..schemas import ForecastOut
 from ..security import require_token
 from ..settings import Settings, get_settings
 from ._jobs import cancel_job, finished_job
+from ._site import SITE_ICS_NOTE, SITE_LAT, SITE_LON, optional_site
 from .geometry import _DEMO_ORBIT
 
 router = APIRouter(prefix="/v1", tags=["forecasts"])
@@ -518,7 +519,8 @@ _ICS_EXAMPLE = (
         "then the peak +/- FWHM/2 (at least 5 minutes either side), which the description "
         "says; the description gives the peak, solar longitude, radiant, speed, miss distance "
         "and the cautions."
-    ),
+    )
+    + SITE_ICS_NOTE,
     responses={
         200: {
             "content": {"text/calendar": {"schema": {"type": "string"}, "example": _ICS_EXAMPLE}}
@@ -526,13 +528,18 @@ _ICS_EXAMPLE = (
         **problem_responses(404, 409, 422),
     },
 )
-def get_forecast_ics(job_id: JobId, jobs: Jobs) -> Response:
+def get_forecast_ics(
+    job_id: JobId, jobs: Jobs, lat: float | None = SITE_LAT, lon: float | None = SITE_LON
+) -> Response:
+    site = optional_site(lat, lon)
     job = _done_job(jobs, job_id)
     parent = job.result["parent"].get("name", job.parent_name)
     items = [
         (job.id, k, parent, e, job.finished_utc) for k, e in enumerate(job.result["encounters"])
     ]
-    body = encounters_ics(items, f"trailcast: {parent}", job.result.get("cautions", list(CAUTIONS)))
+    body = encounters_ics(
+        items, f"trailcast: {parent}", job.result.get("cautions", list(CAUTIONS)), site=site
+    )
     return Response(
         body,
         media_type="text/calendar; charset=utf-8",
