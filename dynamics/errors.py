@@ -41,3 +41,11 @@ class OutsideTimeSpan(TrailcastError, ValueError):
     def __init__(self, message: str, span: tuple[float, float] | None = None):
         self.span = span
         super().__init__(message)
+
+
+class ComputationStopped(TrailcastError):
+    """The caller's ``should_stop()`` answered True: the computation stopped where it was.
+
+    Nothing went wrong with the input; whoever passed ``should_stop`` knows why it stopped (a
+    cancelled job, a time limit, a shutdown) and decides what comes next.
+    """

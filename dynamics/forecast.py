@@ -414,6 +414,7 @@ def forecast(
     *,
     progress: Callable[[float, str], None] | None = None,
     executor=None,
+    should_stop: Callable[[], bool] | None = None,
 ) -> ForecastResult:
     """Forecast the parent's dust-trail encounters with Earth in the requested years.
 
@@ -427,6 +428,10 @@ def forecast(
     executor : concurrent.futures.Executor, optional
         Runs the integration chunks (a Dask client's executor works too); default: a local
         process pool with ``options.workers`` processes.
+    should_stop : callable, optional
+        Asked between the parent-history integration steps; True stops the forecast with
+        :class:`~dynamics.errors.ComputationStopped` (``progress`` may raise for the same end
+        between the later stages).
 
     Returns
     -------
@@ -441,8 +446,10 @@ def forecast(
         # one pool for the pilot and the main stage: worker start-up is paid once
         ctx = multiprocessing.get_context("spawn")  # safe under a threaded web server
         with cf.ProcessPoolExecutor(max_workers=options.workers, mp_context=ctx) as pool:
-            return _forecast(orbit, options, progress=progress, executor=pool)
-    return _forecast(orbit, options, progress=progress, executor=executor)
+            return _forecast(
+                orbit, options, progress=progress, executor=pool, should_stop=should_stop
+            )
+    return _forecast(orbit, options, progress=progress, executor=executor, should_stop=should_stop)
 
 
 def _forecast(
@@ -451,6 +458,7 @@ def _forecast(
     *,
     progress: Callable[[float, str], None] | None = None,
     executor=None,
+    should_stop: Callable[[], bool] | None = None,
 ) -> ForecastResult:
     """See :func:`forecast`."""
     report = progress or (lambda f, s: None)
@@ -475,7 +483,11 @@ def _forecast(
     t_max = y_end + min(1.3 * period, 300 * DAYS_PER_JULIAN_YEAR) + 60.0
     try:
         history = parent_history(
-            orbit, t_min, t_max, active_r_max_au=options.ejection.active_r_max_au
+            orbit,
+            t_min,
+            t_max,
+            active_r_max_au=options.ejection.active_r_max_au,
+            should_stop=should_stop,
         )
     except FirstPassage as exc:  # a result, not an error: no earlier returns, no trails
         history = ParentHistory((), orbit.epoch_tdb_jd, None, (str(exc),))
@@ -1034,6 +1046,7 @@ def forecast_solutions(
     clones: int = DEFAULT_CLONES,
     progress: Callable[[float, str], None] | None = None,
     executor=None,
+    should_stop: Callable[[], bool] | None = None,
 ) -> SolutionsResult:
     """Run :func:`forecast` for every solution of ``orbit`` with the same seed, so that the
     differences between their encounters come from the orbits, not from sampling noise."""
@@ -1047,6 +1060,7 @@ def forecast_solutions(
                 options,
                 executor=executor,
                 progress=lambda f, s, k=k, label=label: say((k + f) / len(orbits), f"{label}: {s}"),
+                should_stop=should_stop,
             )
         )
     return SolutionsResult(labels, orbits, tuple(results))

@@ -22,7 +22,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .constants import GM_SUN_AU3_D2
-from .errors import TrailcastError
+from .errors import ComputationStopped, TrailcastError
 from .nbody import MassiveBodies, _new_simulation, massive_bodies_from_ephemeris
 from .orbit_input import OrbitInput
 from .orbits import Elements, elements_to_state, state_to_elements
@@ -181,13 +181,21 @@ def _massive_bodies(sim) -> MassiveBodies:
     )
 
 
-def _march(sim, t_stop: float, direction: int, active_r_max_au: float, stop_after_perihelia=None):
+def _march(
+    sim,
+    t_stop: float,
+    direction: int,
+    active_r_max_au: float,
+    stop_after_perihelia=None,
+    should_stop=None,
+):
     """Step the parent simulation towards ``t_stop``; return samples and perihelion passages.
 
     Samples are taken every day inside the active arc and every few percent of the local
     orbital time scale outside it. Returns (samples, perihelia) where samples are tuples
     (t, r, v, bodies or None) and perihelia are (t_before, r, v) at the sample preceding a
-    sign change of r.v.
+    sign change of r.v. ``should_stop()``, when given, is asked before every step; True raises
+    :class:`~dynamics.errors.ComputationStopped`.
     """
     samples = []
     perihelia = []
@@ -199,6 +207,8 @@ def _march(sim, t_stop: float, direction: int, active_r_max_au: float, stop_afte
     t = sim.t
     epoch = sim.t
     while (t_stop - t) * direction > 0:
+        if should_stop is not None and should_stop():
+            raise ComputationStopped("parent history stopped on request")
         rn = float(np.linalg.norm(prev[1]))
         if rn < active_r_max_au + 0.5:
             step = ARC_STEP_DAYS
@@ -249,6 +259,7 @@ def parent_history(
     *,
     active_r_max_au: float = DEFAULT_ACTIVE_R_MAX_AU,
     min_previous_returns: int = 1,
+    should_stop=None,
 ) -> ParentHistory:
     """Integrate the parent from its epoch back to ``t_min`` and forward to ``t_max``.
 
@@ -262,6 +273,9 @@ def parent_history(
         they are found, up to :data:`MAX_LOOKBACK_YEARS`.
     active_r_max_au : float
         The active arc is where the parent is closer to the Sun than this (au).
+    should_stop : callable, optional
+        Asked (no arguments) before every integration step; True stops the integration with
+        :class:`~dynamics.errors.ComputationStopped` (a cancelled job, a time limit).
 
     Returns
     -------
@@ -275,7 +289,7 @@ def parent_history(
     """
     notes = []
     sim, _, keep_force = _parent_simulation(orbit)
-    back, peri_back = _march(sim, t_min_tdb_jd, -1, active_r_max_au)
+    back, peri_back = _march(sim, t_min_tdb_jd, -1, active_r_max_au, should_stop=should_stop)
     # The epoch's own passage and any before it within the span are in peri_back. Long-period
     # parents need the previous return even beyond t_min.
     n_before = sum(1 for (t, _, _) in peri_back if t < orbit.tp_tdb_jd - 1.0)
@@ -290,6 +304,7 @@ def parent_history(
             -1,
             active_r_max_au,
             stop_after_perihelia=min_previous_returns - n_before,
+            should_stop=should_stop,
         )
         back += more
         peri_back += peri_more
@@ -307,7 +322,7 @@ def parent_history(
     del keep_force
 
     sim, _, keep_force = _parent_simulation(orbit)
-    fwd, peri_fwd = _march(sim, t_max_tdb_jd, +1, active_r_max_au)
+    fwd, peri_fwd = _march(sim, t_max_tdb_jd, +1, active_r_max_au, should_stop=should_stop)
     del keep_force
 
     samples = sorted(back + fwd, key=lambda s: s[0])

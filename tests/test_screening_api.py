@@ -62,7 +62,11 @@ def test_submit_progress_results_and_reuse(client):
     deadline = time.monotonic() + WAIT_S
     while True:
         job = c.get(accepted["links"]["self"]).json()
-        assert 0 <= job["progress"]["orbits_done"] <= job["progress"]["orbits_total"] == 6
+        progress = job["progress"]
+        assert 0 <= progress["items_done"] <= progress["items_total"] == 6
+        # state and progress never contradict: 1 and "done" only once the job is done
+        assert (progress["fraction"] == 1.0) == (job["state"] == "done"), job
+        assert (progress["stage"] == "done") == (job["state"] == "done"), job
         if job["state"] == "done":
             break
         assert job["state"] in ("queued", "running") and time.monotonic() < deadline, job
