@@ -48,11 +48,17 @@ def row_from_mapping(line: int, data) -> BatchRow:
     from dynamics.orbit_input import parse_orbit
 
     name = data.get("name") if isinstance(data, dict) else None
-    name = name if isinstance(name, str) else None
+    name = _printable(name) if isinstance(name, str) else None
     try:
         return BatchRow(line, parse_orbit(data), name, None)
     except InvalidOrbit as exc:
         return BatchRow(line, None, name, {"field": exc.field, "message": str(exc)})
+
+
+def _printable(name: str) -> str:
+    """A row's name as it may be shown and written: lone surrogates become U+FFFD (they cannot
+    be written as UTF-8; the orbit itself is refused by ``parse_orbit``)."""
+    return name.encode("utf-8", "replace").decode("utf-8")
 
 
 def _csv_value(key: str, text: str):
@@ -118,7 +124,10 @@ def read_batch(path: Path) -> list[BatchRow]:
                 continue
             rows.append(row_from_mapping(line, data))
         return rows
-    for line, raw in enumerate(text.splitlines(), start=1):
+    # Lines end at "\n" only: str.splitlines() would also split at U+2028, form feeds and the
+    # like, which JSON allows raw inside strings, and shift every later line number.
+    for line, raw in enumerate(text.split("\n"), start=1):
+        raw = raw.removesuffix("\r")
         if not raw.strip() or raw.lstrip().startswith("#"):
             continue
         try:
@@ -128,6 +137,11 @@ def read_batch(path: Path) -> list[BatchRow]:
                 BatchRow(
                     line, None, None, {"field": "line", "message": f"not valid JSON ({exc.msg})"}
                 )
+            )
+            continue
+        except RecursionError:
+            rows.append(
+                BatchRow(line, None, None, {"field": "line", "message": "nested too deeply"})
             )
             continue
         rows.append(row_from_mapping(line, data))

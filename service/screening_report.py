@@ -9,6 +9,7 @@ import time
 from pathlib import Path
 
 from .batch import BatchRow
+from .exports import csv_cell
 from .files import write_atomic
 
 
@@ -32,11 +33,16 @@ def assemble(rows: list[BatchRow], run, rule, options, source: str) -> dict:
 
     records = []
     it = iter(run.records if run is not None else [])
+    first_line_of: dict[str, int] = {}
     for row in rows:
         if row.orbit is None:
             records.append(invalid_record(row))
         else:
             records.append({"line": row.line, **next(it)})
+        if row.name is not None:
+            # a name given twice is flagged (a batch built twice from the same list, or a typo)
+            earlier = first_line_of.setdefault(row.name.strip(), row.line)
+            records[-1]["duplicate_name_of"] = earlier if earlier != row.line else None
     summary = screening_summary(records, rule, options)
     summary["source"] = source
     summary["reused"] = run.reused if run is not None else 0
@@ -98,7 +104,7 @@ def table_csv(result: dict) -> str:
     w = csv.DictWriter(buf, fieldnames=TABLE_COLUMNS, lineterminator="\r\n")
     w.writeheader()
     for r in result["orbits"]:
-        w.writerow({k: ("" if v is None else v) for k, v in _table_row(r).items()})
+        w.writerow({k: csv_cell(v) for k, v in _table_row(r).items()})
     return buf.getvalue()
 
 
