@@ -6,218 +6,104 @@ and the model version: the same request gives the same id, and a finished result
 rather than recomputed.
 """
 
-from typing import Any
-
-from fastapi import APIRouter, Depends, Request, Response
-from pydantic import BaseModel, ConfigDict, Field
+from fastapi import APIRouter, Response
+from pydantic import ConfigDict, Field
 
 from dynamics.forecast import CAUTIONS
 
 from ..exports import encounters_csv, encounters_ics
 from ..jobs import Job
 from ..models import ForecastIn
-from ..problems import Problem, problem_responses
 from ..schemas import ForecastOut
-from ..security import require_token
-from ._jobs import (
-    JobId,
-    JobRoutes,
-    Jobs,
-    JobState,
-    ProgressOut,
-    SettingsDep,
-    TimingsOut,
-    progress_out,
-    timings_out,
-)
+from ..settings import Settings
+from ._jobs import JobId, JobRoutes, Jobs, JobStatusBase, product_responses
 from .geometry import DEMO_ORBIT
 
 router = APIRouter(prefix="/v1", tags=["forecasts"])
 ROUTES = JobRoutes("forecast", "/v1/forecasts", "forecast job")
 _EXAMPLE_ID = "5d2c3f0e9a1b4c7d8e6f5a4b3c2d1e0f"
+_LINKS = ROUTES.links_for(
+    "LinksOut",
+    _EXAMPLE_ID,
+    {"encounters_csv": "encounters.csv", "encounters_ics": "encounters.ics"},
+)
+LinksOut = _LINKS.model
 
 
-class LinksOut(BaseModel):
-    self: str = Field(..., examples=[f"/v1/forecasts/{_EXAMPLE_ID}"])
-    encounters_csv: str = Field(..., examples=[f"/v1/forecasts/{_EXAMPLE_ID}/encounters.csv"])
-    encounters_ics: str = Field(..., examples=[f"/v1/forecasts/{_EXAMPLE_ID}/encounters.ics"])
-
-
-class JobAcceptedOut(BaseModel):
-    model_config = ConfigDict(
-        json_schema_extra={
-            "examples": [
-                {
-                    "id": _EXAMPLE_ID,
-                    "state": "queued",
-                    "reused": False,
-                    "links": {
-                        "self": f"/v1/forecasts/{_EXAMPLE_ID}",
-                        "encounters_csv": f"/v1/forecasts/{_EXAMPLE_ID}/encounters.csv",
-                        "encounters_ics": f"/v1/forecasts/{_EXAMPLE_ID}/encounters.ics",
-                    },
-                }
-            ]
-        }
-    )
-
-    id: str
-    state: JobState
-    reused: bool = Field(
-        ..., description="True when an existing job with the same inputs answered the request"
-    )
-    links: LinksOut
-
-
-class JobOut(BaseModel):
-    """A job's state, progress, timings; the result when done, the error when failed."""
+class JobOut(JobStatusBase):
+    """A forecast job's state, progress, timings; the result when done, the error when failed."""
 
     model_config = ConfigDict(
         json_schema_extra={
             "examples": [
-                {
-                    "id": _EXAMPLE_ID,
-                    "state": "running",
-                    "parent_name": DEMO_ORBIT["name"],
-                    "years": [2040, 2040],
-                    "options": {"particles": 30, "seed": 1, "trails": [2026]},
-                    "model_version": "0.1.0",
-                    "progress": {"fraction": 0.42, "stage": "integration"},
-                    "timings": {
-                        "created_utc": "2026-12-01T10:00:00.000Z",
-                        "queued_utc": "2026-12-01T10:00:00.000Z",
-                        "started_utc": "2026-12-01T10:00:01.000Z",
-                        "finished_utc": None,
-                        "queued_seconds": 1.0,
-                        "run_seconds": 12.5,
-                    },
-                    "attempts": 1,
-                    "cancel_requested": False,
-                    "error": None,
-                    "result": None,
-                    "links": {
-                        "self": f"/v1/forecasts/{_EXAMPLE_ID}",
-                        "encounters_csv": f"/v1/forecasts/{_EXAMPLE_ID}/encounters.csv",
-                        "encounters_ics": f"/v1/forecasts/{_EXAMPLE_ID}/encounters.ics",
-                    },
-                    "cautions": list(CAUTIONS),
-                }
+                _LINKS.status_example(
+                    CAUTIONS,
+                    {"fraction": 0.42, "stage": "integration"},
+                    parent_name=DEMO_ORBIT["name"],
+                    years=[2040, 2040],
+                    options={"particles": 30, "seed": 1, "trails": [2026]},
+                    result=None,
+                )
             ]
         }
     )
 
-    id: str
-    state: JobState
     parent_name: str
-    years: list[int]
-    options: dict[str, Any] = Field(..., description="Every model option, defaults filled in")
-    model_version: str
-    progress: ProgressOut
-    timings: TimingsOut
-    attempts: int = Field(..., description="Times a runner started this job")
-    cancel_requested: bool
-    error: Problem | None = Field(None, description="Why the job failed (problem details)")
     result: ForecastOut | None = Field(None, description="The forecast, once done")
     links: LinksOut
-    cautions: list[str]
-
-
-def _links(job_id: str) -> LinksOut:
-    base = f"/v1/forecasts/{job_id}"
-    return LinksOut(
-        self=base,
-        encounters_csv=f"{base}/encounters.csv",
-        encounters_ics=f"{base}/encounters.ics",
-    )
 
 
 def job_out(job: Job) -> JobOut:
+    done = job.state == "done"
     return JobOut(
-        id=job.id,
-        state=job.state,
-        parent_name=job.parent_name,
-        years=[job.first_year, job.last_year],
-        options=job.request["options"],
-        model_version=job.model_version,
-        progress=progress_out(job),
-        timings=timings_out(job),
-        attempts=job.attempts,
-        cancel_requested=job.cancel_requested,
-        error=job.error,
-        result=job.result if job.state == "done" else None,
-        links=_links(job.id),
-        cautions=list(CAUTIONS),
+        **JobStatusBase.fields_of(job, CAUTIONS),
+        parent_name=job.label,
+        result=job.result if done else None,
+        links=_LINKS(job.id),
     )
 
 
-@router.post(
-    "/forecasts",
-    response_model=JobAcceptedOut,
-    status_code=202,
-    summary="Submit a dust-trail forecast job",
-    description=(
-        "Validates the orbit and options and queues a forecast job, answering at once with its "
-        "id, state and links (202). The id is a hash of the canonical inputs and the model "
-        "version: the same request gives the same id; if that job is already done, the answer "
-        "is 200 with `reused: true` and nothing is recomputed; a queued or running one is "
-        "returned as is (202, `reused: true`); a failed or cancelled one is queued again. "
-        "Requires the bearer token when the server sets one. Predictions are model estimates; "
-        "spacecraft operators defer to the responsible agencies."
-    ),
-    responses={
-        200: {"description": "Already done: served from the store", "model": JobAcceptedOut},
-        **problem_responses(401, 413, 422, 429),
-    },
-    dependencies=[Depends(require_token)],
-)
-def submit_forecast(
-    body: ForecastIn,
-    request: Request,
-    response: Response,
-    jobs: Jobs,
-    settings: SettingsDep,
-) -> JobAcceptedOut:
+def _to_domain(body: ForecastIn, settings: Settings):
     canonical, name = body.to_domain(settings.max_years_per_job, settings.max_particles_per_job)
-    job, queued = ROUTES.submit(jobs, request, response, settings, canonical, name)
-    return JobAcceptedOut(id=job.id, state=job.state, reused=not queued, links=_links(job.id))
+    return canonical, name, None
 
 
-@router.get(
-    "/forecasts/{job_id}",
-    response_model=JobOut,
-    summary="State, progress and timings of a forecast job; the result when done",
-    description=(
-        "`state` is one of queued, running, done, failed, cancelled. While running, `progress` "
-        "gives the fraction done and the stage (updated after every integration chunk). When "
-        "done, `result` holds the forecast (units in the names; times UTC; solar longitude "
-        "geometric J2000); when failed, `error` holds problem details. Predictions are model "
-        "estimates with real uncertainty; spacecraft operators defer to the responsible "
-        "agencies; observers mind the usual night-time safety."
-    ),
-    responses=problem_responses(404, 422),
-)
-def get_forecast(job_id: JobId, jobs: Jobs) -> JobOut:
-    return job_out(ROUTES.get(jobs, job_id))
-
-
-@router.delete(
-    "/forecasts/{job_id}",
-    response_model=JobOut,
-    summary="Cancel a queued or running forecast job",
-    description=(
-        "A queued job is cancelled at once (200, state `cancelled`). A running job is asked to "
-        "stop (202, `cancel_requested: true`); it becomes `cancelled` after its current "
-        "integration chunk. A done, failed or cancelled job gives 409. Requires the bearer "
-        "token when the server sets one."
-    ),
-    responses={
-        202: {"description": "Running job asked to stop", "model": JobOut},
-        **problem_responses(401, 404, 409, 422),
+ROUTES.install(
+    router,
+    ForecastIn,
+    _to_domain,
+    _LINKS,
+    JobOut,
+    job_out,
+    {
+        "submit": (
+            "Submit a dust-trail forecast job",
+            "Validates the orbit and options and queues a forecast job, answering at once with "
+            "its id, state and links (202). The id is a hash of the canonical inputs and the "
+            "model version: the same request gives the same id; if that job is already done, "
+            "the answer is 200 with `reused: true` and nothing is recomputed; a queued or "
+            "running one is returned as is (202, `reused: true`); a failed or cancelled one is "
+            "queued again. Requires the bearer token when the server sets one. Predictions are "
+            "model estimates; spacecraft operators defer to the responsible agencies.",
+        ),
+        "get": (
+            "State, progress and timings of a forecast job; the result when done",
+            "`state` is one of queued, running, done, failed, cancelled. While running, "
+            "`progress` gives the fraction done (below 1) and the stage; only a done job shows "
+            "1 and `done`. When done, `result` holds the forecast (units in the names; times "
+            "UTC; solar longitude geometric J2000); when failed, `error` holds problem details. "
+            "Predictions are model estimates with real uncertainty; spacecraft operators defer "
+            "to the responsible agencies; observers mind the usual night-time safety.",
+        ),
+        "cancel": (
+            "Cancel a queued or running forecast job",
+            "A queued job is cancelled at once (200, state `cancelled`). A running job is asked "
+            "to stop (202, `cancel_requested: true`); its computation stops within seconds and "
+            "it becomes `cancelled`. A done, failed or cancelled job gives 409. Requires the "
+            "bearer token when the server sets one.",
+        ),
     },
-    dependencies=[Depends(require_token)],
 )
-def cancel_forecast(response: Response, job_id: JobId, jobs: Jobs) -> JobOut:
-    return job_out(ROUTES.cancel(jobs, job_id, response))
 
 
 def _done_job(jobs, job_id: str) -> Job:
@@ -239,19 +125,14 @@ _CSV_EXAMPLE = (
     "/forecasts/{job_id}/encounters.csv",
     response_class=Response,
     summary="A done forecast's encounters and near misses as CSV",
-    description=(
-        "One row per trail crossing (`kind` = encounter or near_miss); nested keys flattened "
-        "with dots (`radiant.ra_deg`); every key the forecast has becomes a column (later "
-        "fields such as `zhr` included). Times UTC; solar longitude geometric J2000. The "
-        "cautions travel in the `Trailcast-Cautions` header: predictions are model estimates; "
-        "spacecraft operators defer to the responsible agencies."
-    ),
-    responses={
-        200: {"content": {"text/csv": {"schema": {"type": "string"}, "example": _CSV_EXAMPLE}}},
-        **problem_responses(404, 409, 422),
-    },
+    responses=product_responses("text/csv", _CSV_EXAMPLE),
 )
 def get_forecast_csv(job_id: JobId, jobs: Jobs) -> Response:
+    """One row per trail crossing (`kind` = encounter or near_miss); nested keys flattened
+    with dots (`radiant.ra_deg`); every key the forecast has becomes a column (later fields
+    such as `zhr` included). Times UTC; solar longitude geometric J2000. The cautions travel
+    in the `Trailcast-Cautions` header: predictions are model estimates; spacecraft
+    operators defer to the responsible agencies."""
     job = _done_job(jobs, job_id)
     parent = job.result["parent"].get("name", job.parent_name)
     rows = [
@@ -281,21 +162,14 @@ _ICS_EXAMPLE = (
     "/forecasts/{job_id}/encounters.ics",
     response_class=Response,
     summary="A done forecast's encounters as an iCalendar (RFC 5545)",
-    description=(
-        "One event per predicted encounter (near misses are left out: no outburst is expected "
-        "from them). The event spans the forecast's activity window when it gives one, until "
-        "then the peak +/- FWHM/2 (at least 5 minutes either side), which the description "
-        "says; the description gives the peak, solar longitude, radiant, speed, miss distance "
-        "and the cautions."
-    ),
-    responses={
-        200: {
-            "content": {"text/calendar": {"schema": {"type": "string"}, "example": _ICS_EXAMPLE}}
-        },
-        **problem_responses(404, 409, 422),
-    },
+    responses=product_responses("text/calendar", _ICS_EXAMPLE),
 )
 def get_forecast_ics(job_id: JobId, jobs: Jobs) -> Response:
+    """One event per predicted encounter (near misses are left out: no outburst is expected
+    from them). The event spans the forecast's activity window when it gives one, until then
+    the peak +/- FWHM/2 (at least 5 minutes either side), which the description says; the
+    description gives the peak, solar longitude, radiant, speed, miss distance and the
+    cautions."""
     job = _done_job(jobs, job_id)
     parent = job.result["parent"].get("name", job.parent_name)
     items = [

@@ -8,7 +8,7 @@ its index and skipped; the rest of the batch completes.
 
 from typing import Any
 
-from fastapi import APIRouter, Depends, Request, Response
+from fastapi import APIRouter, Response
 from pydantic import BaseModel, ConfigDict, Field
 
 from dynamics.screening import VERDICTS
@@ -16,113 +16,50 @@ from dynamics.screening import VERDICTS
 from ..jobs import Job
 from ..models import ScreeningIn
 from ..models.orbit import DEMO_ORBIT
-from ..problems import Problem, problem_responses
+from ..problems import problem_responses
 from ..screening import SCREENING_CAUTIONS, table_csv
-from ..security import require_token
-from ._jobs import (
-    JobId,
-    JobRoutes,
-    Jobs,
-    JobState,
-    ProgressOut,
-    SettingsDep,
-    TimingsOut,
-    progress_out,
-    timings_out,
-)
+from ..settings import Settings
+from ._jobs import JobId, JobRoutes, Jobs, JobStatusBase, product_responses
 
 router = APIRouter(prefix="/v1", tags=["screenings"])
 ROUTES = JobRoutes("screening", "/v1/screenings", "screening")
-_EXAMPLE_ID = "7a1e0c4b2d9f8e6a5b3c1d0e9f8a7b6c"
 _CAUTIONS = list(SCREENING_CAUTIONS)
+_LINKS = ROUTES.links_for(
+    "ScreeningLinksOut",
+    "7a1e0c4b2d9f8e6a5b3c1d0e9f8a7b6c",
+    {"results_json": "results.json", "results_csv": "results.csv"},
+)
 
 
-class ScreeningLinksOut(BaseModel):
-    self: str = Field(..., examples=[f"/v1/screenings/{_EXAMPLE_ID}"])
-    results_json: str = Field(..., examples=[f"/v1/screenings/{_EXAMPLE_ID}/results.json"])
-    results_csv: str = Field(..., examples=[f"/v1/screenings/{_EXAMPLE_ID}/results.csv"])
-
-
-class ScreeningAcceptedOut(BaseModel):
-    model_config = ConfigDict(
-        json_schema_extra={
-            "examples": [
-                {
-                    "id": _EXAMPLE_ID,
-                    "state": "queued",
-                    "reused": False,
-                    "links": {
-                        "self": f"/v1/screenings/{_EXAMPLE_ID}",
-                        "results_json": f"/v1/screenings/{_EXAMPLE_ID}/results.json",
-                        "results_csv": f"/v1/screenings/{_EXAMPLE_ID}/results.csv",
-                    },
-                }
-            ]
-        }
-    )
-
-    id: str
-    state: JobState
-    reused: bool = Field(..., description="True when a job with the same inputs answered")
-    links: ScreeningLinksOut
-
-
-class ScreeningJobOut(BaseModel):
-    """A screening's state, per-orbit progress and timings; the summary counts when done."""
+class ScreeningJobOut(JobStatusBase):
+    """A screening's state, per-orbit progress and timings; the summary counts when done.
+    `progress.items_done` and `items_total` count the batch's orbits."""
 
     model_config = ConfigDict(
         json_schema_extra={
             "examples": [
-                {
-                    "id": _EXAMPLE_ID,
-                    "state": "running",
-                    "years": [2039, 2039],
-                    "rule": {"moid_max_au": 0.05, "node_max_au": 0.25},
-                    "options": {"particles": 30, "seed": 1},
-                    "model_version": "0.1.0",
-                    "progress": {
+                _LINKS.status_example(
+                    _CAUTIONS,
+                    {
                         "fraction": 0.6,
                         "stage": "trail forecasts",
                         "items_done": 120,
                         "items_total": 200,
                     },
-                    "timings": {
-                        "created_utc": "2026-12-01T10:00:00.000Z",
-                        "queued_utc": "2026-12-01T10:00:00.000Z",
-                        "started_utc": "2026-12-01T10:00:01.000Z",
-                        "finished_utc": None,
-                        "queued_seconds": 1.0,
-                        "run_seconds": 12.5,
-                    },
-                    "attempts": 1,
-                    "error": None,
-                    "summary": None,
-                    "links": {
-                        "self": f"/v1/screenings/{_EXAMPLE_ID}",
-                        "results_json": f"/v1/screenings/{_EXAMPLE_ID}/results.json",
-                        "results_csv": f"/v1/screenings/{_EXAMPLE_ID}/results.csv",
-                    },
-                    "cautions": _CAUTIONS,
-                }
+                    years=[2039, 2039],
+                    rule={"moid_max_au": 0.05, "node_max_au": 0.25},
+                    options={"particles": 30, "seed": 1},
+                    summary=None,
+                )
             ]
         }
     )
 
-    id: str
-    state: JobState
-    years: list[int]
     rule: dict[str, Any]
-    options: dict[str, Any] = Field(..., description="Forecast options, defaults filled in")
-    model_version: str
-    progress: ProgressOut = Field(..., description="`items_*` count the batch's orbits")
-    timings: TimingsOut
-    attempts: int
-    error: Problem | None = None
     summary: dict[str, Any] | None = Field(
         None, description="When done: counts per verdict, rule, options (results in links)"
     )
-    links: ScreeningLinksOut
-    cautions: list[str]
+    links: _LINKS.model  # type: ignore[valid-type]
 
 
 class ScreeningResultsOut(BaseModel):
@@ -156,101 +93,59 @@ class ScreeningResultsOut(BaseModel):
     )
 
 
-def _links(job_id: str) -> ScreeningLinksOut:
-    base = f"/v1/screenings/{job_id}"
-    return ScreeningLinksOut(
-        self=base, results_json=f"{base}/results.json", results_csv=f"{base}/results.csv"
-    )
-
-
 def _job_out(job: Job) -> ScreeningJobOut:
+    summary = job.result["screening"] if job.state == "done" and job.result else None
     return ScreeningJobOut(
-        id=job.id,
-        state=job.state,
-        years=[job.first_year, job.last_year],
+        **JobStatusBase.fields_of(job, _CAUTIONS),
         rule=job.request["rule"],
-        options=job.request["options"],
-        model_version=job.model_version,
-        progress=progress_out(job),
-        timings=timings_out(job),
-        attempts=job.attempts,
-        error=job.error,
-        summary=job.result["screening"] if job.state == "done" and job.result else None,
-        links=_links(job.id),
-        cautions=_CAUTIONS,
+        summary=summary,
+        links=_LINKS(job.id),
     )
 
 
-@router.post(
-    "/screenings",
-    response_model=ScreeningAcceptedOut,
-    status_code=202,
-    summary="Submit a batch of orbits for screening",
-    description=(
-        "Queues a screening job: the quick-look geometry (Earth MOID, node distances) for every "
-        "orbit, and a small trail forecast for each orbit that passes the rule (default: MOID "
-        "< 0.05 au and the nearer node within 0.25 au of Earth's orbit). Answers at once (202) "
-        "with the job's id; the id is a hash of the canonical inputs, so the same batch gives "
-        "the same job (200 with `reused: true` when it is already done). An orbit that cannot "
-        "be read does not refuse the batch: it is reported in the results with its index. "
-        "Predictions are model estimates; spacecraft operators defer to the responsible "
-        "agencies."
-    ),
-    responses={
-        200: {"description": "Already done: served from the store", "model": ScreeningAcceptedOut},
-        **problem_responses(401, 413, 422, 429),
-    },
-    dependencies=[Depends(require_token)],
-)
-def submit_screening(
-    body: ScreeningIn,
-    request: Request,
-    response: Response,
-    jobs: Jobs,
-    settings: SettingsDep,
-) -> ScreeningAcceptedOut:
+def _to_domain(body: ScreeningIn, settings: Settings):
     canonical = body.to_domain(
         settings.max_years_per_job,
         settings.max_particles_per_job,
         settings.max_orbits_per_screening,
     )
-    label = f"batch of {len(body.orbits)} orbits"
-    job, queued = ROUTES.submit(
-        jobs, request, response, settings, canonical, label, items_total=len(body.orbits)
-    )
-    return ScreeningAcceptedOut(id=job.id, state=job.state, reused=not queued, links=_links(job.id))
+    return canonical, f"batch of {len(body.orbits)} orbits", len(body.orbits)
 
 
-@router.get(
-    "/screenings/{job_id}",
-    response_model=ScreeningJobOut,
-    summary="State and per-orbit progress of a screening; its summary when done",
-    description=(
-        "`progress` counts finished orbits (orbits found in the store count at once). When "
-        "done, `summary` gives the counts per verdict, the rule and the forecast options; every "
-        "orbit's result is at `links.results_json` and `links.results_csv`. Predictions are "
-        "model estimates; spacecraft operators defer to the responsible agencies; observers "
-        "mind the usual night-time safety."
-    ),
-    responses=problem_responses(404, 422),
+ROUTES.install(
+    router,
+    ScreeningIn,
+    _to_domain,
+    _LINKS,
+    ScreeningJobOut,
+    _job_out,
+    {
+        "submit": (
+            "Submit a batch of orbits for screening",
+            "Queues a screening job: the quick-look geometry (Earth MOID, node distances) for "
+            "every orbit, and a small trail forecast for each orbit that passes the rule "
+            "(default: MOID < 0.05 au and the nearer node within 0.25 au of Earth's orbit). "
+            "Answers at once (202) with the job's id; the id is a hash of the canonical inputs, "
+            "so the same batch gives the same job (200 with `reused: true` when it is already "
+            "done). An orbit that cannot be read does not refuse the batch: it is reported in "
+            "the results with its index. Predictions are model estimates; spacecraft operators "
+            "defer to the responsible agencies.",
+        ),
+        "get": (
+            "State and per-orbit progress of a screening; its summary when done",
+            "`progress.items_done` counts finished orbits (orbits found in the store count at "
+            "once). When done, `summary` gives the counts per verdict, the rule and the "
+            "forecast options; every orbit's result is at `links.results_json` and "
+            "`links.results_csv`. Predictions are model estimates; spacecraft operators defer "
+            "to the responsible agencies; observers mind the usual night-time safety.",
+        ),
+        "cancel": (
+            "Cancel a queued or running screening",
+            "A queued screening is cancelled at once (200); a running one stops within seconds "
+            "(202; results of finished orbits stay stored). A finished one gives 409.",
+        ),
+    },
 )
-def get_screening(job_id: JobId, jobs: Jobs) -> ScreeningJobOut:
-    return _job_out(ROUTES.get(jobs, job_id))
-
-
-@router.delete(
-    "/screenings/{job_id}",
-    response_model=ScreeningJobOut,
-    summary="Cancel a queued or running screening",
-    description=(
-        "A queued screening is cancelled at once (200); a running one stops within seconds "
-        "(after its current orbit (202, results of finished orbits stay stored). A finished one gives 409."
-    ),
-    responses={202: {"description": "Cancellation requested"}, **problem_responses(404, 409, 422)},
-    dependencies=[Depends(require_token)],
-)
-def cancel_screening(job_id: JobId, jobs: Jobs, response: Response) -> ScreeningJobOut:
-    return _job_out(ROUTES.cancel(jobs, job_id, response))
 
 
 def _done(jobs, job_id: str) -> Job:
@@ -261,15 +156,13 @@ def _done(jobs, job_id: str) -> Job:
     "/screenings/{job_id}/results.json",
     response_model=ScreeningResultsOut,
     summary="Every orbit of a done screening with its verdict and, for candidates, encounters",
-    description=(
-        "Orbits in input order (`index`), each with its geometry (MOID, node miss distances), "
-        "rank (1 = smallest MOID), whether it passed the rule and why, its verdict and, for "
-        "candidates, the forecast's encounters and near misses (times UTC, solar longitude "
-        "geometric J2000). Unreadable orbits carry verdict `invalid` and the error."
-    ),
     responses=problem_responses(404, 409, 422),
 )
 def get_screening_results(job_id: JobId, jobs: Jobs) -> ScreeningResultsOut:
+    """Orbits in input order (`index`), each with its geometry (MOID, node miss distances),
+    rank (1 = smallest MOID), whether it passed the rule and why, its verdict and, for
+    candidates, the forecast's encounters and near misses (times UTC, solar longitude
+    geometric J2000). Unreadable orbits carry verdict `invalid` and the error."""
     return ScreeningResultsOut(**_done(jobs, job_id).result)
 
 
@@ -286,19 +179,14 @@ _CSV_EXAMPLE = (
     "/screenings/{job_id}/results.csv",
     response_class=Response,
     summary="A done screening as CSV: one row per orbit",
-    description=(
-        "Columns: line (the orbit's index in the request), rank, name, verdict, candidate, "
-        "MOID and node distances (au), numbers of encounters and near misses, the first "
-        "encounter's peak (UTC), the closest encounter's miss distance (au), the largest ZHR "
-        "estimate, the error of an unreadable or failed orbit and its content key. Cautions in "
-        "the `Trailcast-Cautions` header."
-    ),
-    responses={
-        200: {"content": {"text/csv": {"schema": {"type": "string"}, "example": _CSV_EXAMPLE}}},
-        **problem_responses(404, 409, 422),
-    },
+    responses=product_responses("text/csv", _CSV_EXAMPLE),
 )
 def get_screening_csv(job_id: JobId, jobs: Jobs) -> Response:
+    """Columns: line (the orbit's index in the request), rank, name, verdict, candidate,
+    MOID and node distances (au), numbers of encounters and near misses, the first
+    encounter's peak (UTC), the closest encounter's miss distance (au), the largest ZHR
+    estimate, the error of an unreadable or failed orbit and its content key. Cautions in
+    the `Trailcast-Cautions` header."""
     job = _done(jobs, job_id)
     rows = [{**r, "line": r.get("index", r.get("line"))} for r in job.result["orbits"]]
     return Response(
