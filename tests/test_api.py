@@ -476,3 +476,19 @@ def test_openapi_property_based_no_5xx_and_schema_conformant(case, fuzz_app_runn
             response_schema_conformance,
         ]
     )
+
+
+def test_geometry_runs_bounded_in_a_worker(tmp_path):
+    """Issue 13, finding 1: a geometry request is bounded in time (its worker is killed past
+    the limit) and an elliptic orbit's note no longer speaks of an open orbit."""
+    slow = Settings(data_dir=tmp_path / "a", job_runners=0, request_max_seconds=0.001)
+    with TestClient(create_app(slow)) as client:
+        body = _problem(client.post("/v1/geometry", json={"orbit": DEMO_ORBIT}), 422)
+        assert body["type"].endswith("time-limit")
+    with TestClient(create_app(Settings(data_dir=tmp_path / "b", job_runners=0))) as client:
+        r = client.post("/v1/geometry", json={"orbit": DEMO_ORBIT, "year": 2031})
+        assert r.status_code == 200, r.text
+        assert "open orbit" not in r.json()["verdict"]
+        far = {**DEMO_ORBIT, "q": 999.0, "e": 0.5}  # elliptic, far away: formerly "open orbit"
+        r = client.post("/v1/geometry", json={"orbit": far})
+        assert r.status_code == 200 and "open orbit" not in r.json()["verdict"]
