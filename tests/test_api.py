@@ -119,21 +119,27 @@ def test_hostile_json_literals_are_422_never_500(idle):
     orbit = json.dumps(DEMO_ORBIT)
     surrogate = orbit.replace('"P/2026', '"\\ud800P/2026')  # a lone surrogate, JSON-escaped
     assert "\\ud800" in surrogate
-    body = '{"orbit": %s, "years": [2040]}'
-    _problem(_raw(client, "/v1/forecasts", body % surrogate), 422, "orbit.name")
-    _problem(_raw(client, "/v1/geometry", '{"orbit": %s}' % surrogate), 422, "orbit.name")
+
+    def body(orbit_text: str) -> str:
+        return '{"orbit": ' + orbit_text + ', "years": [2040]}'
+
+    def geometry(orbit_text: str) -> str:
+        return '{"orbit": ' + orbit_text + "}"
+
+    _problem(_raw(client, "/v1/forecasts", body(surrogate)), 422, "orbit.name")
+    _problem(_raw(client, "/v1/geometry", geometry(surrogate)), 422, "orbit.name")
     nan = orbit.replace('"q": 0.953', '"q": NaN')
     assert "NaN" in nan
-    _problem(_raw(client, "/v1/forecasts", body % nan), 422, "orbit.q")
+    _problem(_raw(client, "/v1/forecasts", body(nan)), 422, "orbit.q")
     _problem(
-        _raw(client, "/v1/screenings", '{"orbits": [%s], "years": [2040]}' % nan),
+        _raw(client, "/v1/screenings", '{"orbits": [' + nan + '], "years": [2040]}'),
         422,
         "orbits.0.q",
     )
     inf = orbit.replace('"q": 0.953', '"q": Infinity')
-    _problem(_raw(client, "/v1/geometry", '{"orbit": %s}' % inf), 422, "orbit.q")
+    _problem(_raw(client, "/v1/geometry", geometry(inf)), 422, "orbit.q")
     huge = orbit.replace('"q": 0.953', '"q": ' + "9" * 400)
-    _problem(_raw(client, "/v1/geometry", '{"orbit": %s}' % huge), 422, "orbit.q")
+    _problem(_raw(client, "/v1/geometry", geometry(huge)), 422, "orbit.q")
     deep = '{"orbits": [{"name": ' + "[" * 50 + "]" * 50 + '}], "years": [2040]}'
     assert _problem(_raw(client, "/v1/screenings", deep), 422)["field"].startswith("orbits.0.")
     assert _store_dump(db) == before
