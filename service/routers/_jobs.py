@@ -6,6 +6,7 @@ and fetching a finished job's products turn the store's exceptions into the docu
 here, once, instead of once per router.
 """
 
+import inspect
 from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Annotated, Any, Literal
@@ -117,6 +118,34 @@ class JobRoutes:
             status_model=status_model,
             status_out=status_out,
             texts=texts,
+        )
+
+    def add_file(self, router, name: str, media_type: str, example: str, make, products: str):
+        """Add ``GET {prefix}/{id}/{name}``: a done job's file (CSV, iCalendar ...).
+
+        ``make(job)`` returns ``(body, filename, headers)``; its docstring's first line is the
+        route's summary and the rest its description. 404 / 409 (not done: ``products`` do not
+        exist yet) as for every job.
+        """
+        summary, _, description = inspect.getdoc(make).partition("\n\n")
+
+        def get_file(job_id: JobId, jobs: Jobs) -> Response:
+            body, filename, headers = make(self.finished(jobs, job_id, products))
+            return Response(
+                body,
+                media_type=f"{media_type}; charset=utf-8",
+                headers={"Content-Disposition": f'attachment; filename="{filename}"', **headers},
+            )
+
+        get_file.__name__ = f"get_{self.kind}_{name.replace('.', '_')}"
+        router.add_api_route(
+            self.prefix.removeprefix(router.prefix) + "/{job_id}/" + name,
+            get_file,
+            methods=["GET"],
+            response_class=Response,
+            summary=summary.replace("\n", " "),
+            description=description.replace("\n", " "),
+            responses=product_responses(media_type, example),
         )
 
     def cancel(self, jobs: JobStore, job_id: str, response: Response) -> Job:

@@ -6,7 +6,7 @@ and the model version: the same request gives the same id, and a finished result
 rather than recomputed.
 """
 
-from fastapi import APIRouter, Response
+from fastapi import APIRouter
 from pydantic import ConfigDict, Field
 
 from dynamics.forecast import CAUTIONS
@@ -16,7 +16,7 @@ from ..jobs import Job
 from ..models import ForecastIn
 from ..schemas import ForecastOut
 from ..settings import Settings
-from ._jobs import JobId, JobRoutes, Jobs, JobStatusBase, product_responses
+from ._jobs import JobRoutes, JobStatusBase
 from .geometry import DEMO_ORBIT
 
 router = APIRouter(prefix="/v1", tags=["forecasts"])
@@ -106,10 +106,6 @@ ROUTES.install(
 )
 
 
-def _done_job(jobs, job_id: str) -> Job:
-    return ROUTES.finished(jobs, job_id, "exports")
-
-
 _CSV_EXAMPLE = (
     "forecast_id,parent,kind,year,trail.perihelion_year,trail.revolutions,"
     "trail.perihelion_tdb,node,peak_utc,solar_longitude_deg,miss_distance_au,"
@@ -121,33 +117,27 @@ _CSV_EXAMPLE = (
 )
 
 
-@router.get(
-    "/forecasts/{job_id}/encounters.csv",
-    response_class=Response,
-    summary="A done forecast's encounters and near misses as CSV",
-    responses=product_responses("text/csv", _CSV_EXAMPLE),
-)
-def get_forecast_csv(job_id: JobId, jobs: Jobs) -> Response:
-    """One row per trail crossing (`kind` = encounter or near_miss); nested keys flattened
-    with dots (`radiant.ra_deg`); every key the forecast has becomes a column (later fields
-    such as `zhr` included). Times UTC; solar longitude geometric J2000. The cautions travel
-    in the `Trailcast-Cautions` header: predictions are model estimates; spacecraft
-    operators defer to the responsible agencies."""
-    job = _done_job(jobs, job_id)
-    parent = job.result["parent"].get("name", job.parent_name)
+def _encounters_csv(job: Job):
+    """A done forecast's encounters and near misses as CSV
+
+    One row per trail crossing (`kind` = encounter or near_miss); nested keys flattened
+    with dots (`radiant.ra_deg`); every key the forecast has becomes a column (`zhr`,
+    `window` ... included). Times UTC; solar longitude geometric J2000. Text cells that a
+    spreadsheet would run as formulas start with an apostrophe. The cautions travel in the
+    `Trailcast-Cautions` header: predictions are model estimates; spacecraft operators defer
+    to the responsible agencies.
+    """
+    parent = job.result["parent"].get("name", job.label)
     rows = [
         {"forecast_id": job.id, "parent": parent, "kind": kind, **e}
         for kind, key in (("encounter", "encounters"), ("near_miss", "near_misses"))
         for e in job.result.get(key, [])
     ]
-    return Response(
-        encounters_csv(rows),
-        media_type="text/csv; charset=utf-8",
-        headers={
-            "Content-Disposition": f'attachment; filename="trailcast-{job.id}-encounters.csv"',
-            "Trailcast-Cautions": " ".join(CAUTIONS),
-        },
-    )
+    headers = {"Trailcast-Cautions": " ".join(CAUTIONS)}
+    return encounters_csv(rows), f"trailcast-{job.id}-encounters.csv", headers
+
+
+ROUTES.add_file(router, "encounters.csv", "text/csv", _CSV_EXAMPLE, _encounters_csv, "exports")
 
 
 _ICS_EXAMPLE = (
@@ -158,28 +148,21 @@ _ICS_EXAMPLE = (
 )
 
 
-@router.get(
-    "/forecasts/{job_id}/encounters.ics",
-    response_class=Response,
-    summary="A done forecast's encounters as an iCalendar (RFC 5545)",
-    responses=product_responses("text/calendar", _ICS_EXAMPLE),
-)
-def get_forecast_ics(job_id: JobId, jobs: Jobs) -> Response:
-    """One event per predicted encounter (near misses are left out: no outburst is expected
+def _encounters_ics(job: Job):
+    """A done forecast's encounters as an iCalendar (RFC 5545)
+
+    One event per predicted encounter (near misses are left out: no outburst is expected
     from them). The event spans the forecast's activity window when it gives one, until then
     the peak +/- FWHM/2 (at least 5 minutes either side), which the description says; the
     description gives the peak, solar longitude, radiant, speed, miss distance and the
-    cautions."""
-    job = _done_job(jobs, job_id)
+    cautions.
+    """
     parent = job.result["parent"].get("name", job.parent_name)
     items = [
         (job.id, k, parent, e, job.finished_utc) for k, e in enumerate(job.result["encounters"])
     ]
     body = encounters_ics(items, f"trailcast: {parent}", job.result.get("cautions", list(CAUTIONS)))
-    return Response(
-        body,
-        media_type="text/calendar; charset=utf-8",
-        headers={
-            "Content-Disposition": f'attachment; filename="trailcast-{job.id}-encounters.ics"'
-        },
-    )
+    return body, f"trailcast-{job.id}-encounters.ics", {}
+
+
+ROUTES.add_file(router, "encounters.ics", "text/calendar", _ICS_EXAMPLE, _encounters_ics, "exports")

@@ -8,7 +8,7 @@ its index and skipped; the rest of the batch completes.
 
 from typing import Any
 
-from fastapi import APIRouter, Response
+from fastapi import APIRouter
 from pydantic import BaseModel, ConfigDict, Field
 
 from dynamics.screening import VERDICTS
@@ -19,7 +19,7 @@ from ..models.orbit import DEMO_ORBIT
 from ..problems import problem_responses
 from ..screening import SCREENING_CAUTIONS, table_csv
 from ..settings import Settings
-from ._jobs import JobId, JobRoutes, Jobs, JobStatusBase, product_responses
+from ._jobs import JobId, JobRoutes, Jobs, JobStatusBase
 
 router = APIRouter(prefix="/v1", tags=["screenings"])
 ROUTES = JobRoutes("screening", "/v1/screenings", "screening")
@@ -175,25 +175,19 @@ _CSV_EXAMPLE = (
 )
 
 
-@router.get(
-    "/screenings/{job_id}/results.csv",
-    response_class=Response,
-    summary="A done screening as CSV: one row per orbit",
-    responses=product_responses("text/csv", _CSV_EXAMPLE),
-)
-def get_screening_csv(job_id: JobId, jobs: Jobs) -> Response:
-    """Columns: line (the orbit's index in the request), rank, name, verdict, candidate,
+def _results_csv(job: Job):
+    """A done screening as CSV: one row per orbit
+
+    Columns: line (the orbit's index in the request), rank, name, verdict, candidate,
     MOID and node distances (au), numbers of encounters and near misses, the first
     encounter's peak (UTC), the closest encounter's miss distance (au), the largest ZHR
-    estimate, the error of an unreadable or failed orbit and its content key. Cautions in
-    the `Trailcast-Cautions` header."""
-    job = _done(jobs, job_id)
+    estimate (meteors per hour), the error of an unreadable or failed orbit and its content
+    key. Text cells that a spreadsheet would run as formulas start with an apostrophe.
+    Cautions in the `Trailcast-Cautions` header.
+    """
     rows = [{**r, "line": r.get("index", r.get("line"))} for r in job.result["orbits"]]
-    return Response(
-        table_csv({"orbits": rows}),
-        media_type="text/csv; charset=utf-8",
-        headers={
-            "Content-Disposition": f'attachment; filename="trailcast-screening-{job.id}.csv"',
-            "Trailcast-Cautions": " ".join(_CAUTIONS),
-        },
-    )
+    headers = {"Trailcast-Cautions": " ".join(_CAUTIONS)}
+    return table_csv({"orbits": rows}), f"trailcast-screening-{job.id}.csv", headers
+
+
+ROUTES.add_file(router, "results.csv", "text/csv", _CSV_EXAMPLE, _results_csv, "results")
