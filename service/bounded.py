@@ -13,7 +13,7 @@ import logging
 import threading
 import time
 
-from .runner import make_local_pool
+from .runner import kill_pool, make_local_pool
 
 log = logging.getLogger("trailcast.bounded")
 
@@ -49,13 +49,7 @@ class BoundedWorkers:
         with self._lock:
             if self._pool is pool:
                 self._pool = None
-        # ProcessPoolExecutor offers no public way to stop a running call: kill its workers.
-        for proc in list((getattr(pool, "_processes", None) or {}).values()):
-            try:
-                proc.kill()
-            except (OSError, AttributeError):
-                pass
-        pool.shutdown(wait=False, cancel_futures=True)
+        kill_pool(pool)
 
     async def run(self, request, limit_s: float, fn, *args):
         """``fn(*args)`` in a worker; raises TimeLimitExceeded or ClientGone after killing it."""

@@ -67,6 +67,20 @@ def make_local_pool(workers: int) -> cf.ProcessPoolExecutor:
     )
 
 
+def kill_pool(pool: cf.ProcessPoolExecutor) -> None:
+    """Stop a local pool now, running tasks included (their results are no longer wanted).
+
+    ``ProcessPoolExecutor`` has no public way to stop a task that already runs, so its worker
+    processes are killed; the pool is then broken and must not be used again.
+    """
+    for proc in list((getattr(pool, "_processes", None) or {}).values()):
+        try:
+            proc.kill()
+        except (OSError, AttributeError):
+            pass
+    pool.shutdown(wait=False, cancel_futures=True)
+
+
 class Executors:
     """Where forecast chunks run: a shared local process pool, or a Dask cluster's executor."""
 
@@ -91,11 +105,15 @@ class Executors:
                 self._pool = make_local_pool(self.settings.forecast_workers)
             return self._pool
 
-    def discard_pool(self) -> None:
-        """Forget a broken local pool (a worker process died); the next job makes a new one."""
+    def discard_pool(self, kill: bool = False) -> None:
+        """Forget the local pool (broken: a worker died; or ``kill``: its running tasks belong
+        to a cancelled or timed-out job and are stopped); the next job makes a new one."""
         with self._lock:
             if self._pool is not None:
-                self._pool.shutdown(wait=False, cancel_futures=True)
+                if kill:
+                    kill_pool(self._pool)
+                else:
+                    self._pool.shutdown(wait=False, cancel_futures=True)
                 self._pool = None
 
     def _dask_client(self):
@@ -291,12 +309,14 @@ class JobRunner:
             else:
                 log.warning("job %s: finished but no longer held by this runner", job.id)
         except JobCancelled:
+            self._stop_local_work(executor)
             self.jobs.finish(job.id, self.name, "cancelled")
             log.info("job %s: cancelled", job.id)
         except ShuttingDown:
             self.jobs.release(job.id, self.name, "queued (re-queued at shutdown)")
             log.info("job %s: re-queued at shutdown", job.id)
         except JobTimedOut:
+            self._stop_local_work(executor)
             self._fail(
                 job,
                 422,
@@ -325,6 +345,17 @@ class JobRunner:
         finally:
             beat_stop.set()
             beat.join(5.0)
+
+    def _stop_local_work(self, executor) -> None:
+        """Chunks of a stopped job still running in the local pool: kill them (CPU for the next
+        job). With one runner thread the pool serves only this job; with several it is shared,
+        and the others' chunks would die too, so it is left alone then."""
+        if (
+            executor is not None
+            and executor is self.executors._pool
+            and self.settings.job_runners == 1
+        ):
+            self.executors.discard_pool(kill=True)
 
     def _fail(
         self, job: Job, status: int, title: str, detail: str, kind_: str | None = None

@@ -86,6 +86,7 @@ def run(job: Job, ctx) -> dict:
         lookup=results.lookup,
         save=results.save,
         progress=progress,
+        should_stop=ctx.should_stop,
     )
     ctx.check()
     result = assemble(rows, run_, rule, options, source=f"POST /v1/screenings ({job.id})")
