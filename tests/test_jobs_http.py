@@ -454,3 +454,36 @@ def test_screening_survives_sigkill_and_its_workers_do_not_outlive_the_server(tm
         assert stored == len(keys)  # one stored result per distinct orbit
     finally:
         conn.close()
+
+
+@pytest.mark.slow
+def test_sigterm_puts_the_running_job_back_in_the_queue(tmp_path):
+    """Issue 13, finding 1: SIGTERM left a job 'running'. Now the computation stops between
+    steps, the job is re-queued and the server exits; its workers end with it."""
+    data = tmp_path / "var"
+    server = Server(data, TRAILCAST_WORKERS="2")
+    try:
+        r = httpx.post(f"{server.url}/v1/forecasts", json=LONGER, timeout=30.0)
+        job_id = r.json()["id"]
+        _wait_for(
+            f"{server.url}/v1/forecasts/{job_id}",
+            lambda j: j["state"] == "running" and j["progress"]["fraction"] > 0.0,
+            "the job to be under way",
+        )
+        workers = _children(server.proc.pid)
+        os.kill(server.proc.pid, signal.SIGTERM)
+        server.proc.wait(timeout=WAIT_S)
+        deadline = time.monotonic() + 30.0
+        while any(_alive(p) for p in workers) and time.monotonic() < deadline:
+            time.sleep(0.2)
+        assert [p for p in workers if _alive(p)] == []
+    finally:
+        server.kill()
+    conn = sqlite3.connect(data / "trailcast.sqlite3")
+    try:
+        state, stage = conn.execute(
+            "SELECT state, progress_stage FROM jobs WHERE id = ?", (job_id,)
+        ).fetchone()
+    finally:
+        conn.close()
+    assert state == "queued" and "shutdown" in stage
