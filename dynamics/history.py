@@ -316,9 +316,18 @@ def parent_history(
                     f"{orbit.name}: the original barycentric orbit is hyperbolic (1/a = {inv_a:.3g} /au): "
                     "first passage, no earlier returns and no dust trails"
                 )
-            notes.append(f"no earlier perihelion found within {MAX_LOOKBACK_YEARS:.0f} years")
+            notes.append(
+                "no perihelion before the epoch's own found in the "
+                f"{MAX_LOOKBACK_YEARS:.0f} years before the epoch (any returns listed come "
+                "after it)"
+            )
         else:
-            notes.append("long-period parent: integrated back to its previous return")
+            earlier = max(t for (t, _, _) in peri_back if t < orbit.tp_tdb_jd - 1.0)
+            years_back = (orbit.tp_tdb_jd - earlier) / 365.25
+            notes.append(
+                "long-period parent: integrated back to its previous perihelion, "
+                f"{years_back:.0f} years before the epoch's own"
+            )
     del keep_force
 
     sim, _, keep_force = _parent_simulation(orbit)
