@@ -303,7 +303,7 @@ class JobRunner:
             except ComputationStopped:
                 ctx.check()  # says why: shutdown, cancellation or the time limit
                 raise
-            ctx.check()
+            # computed: stored even if a stop came in the last instant (storing takes little)
             if self.jobs.finish_done(job.id, self.name, result):
                 log.info("job %s: done", job.id)
             else:
