@@ -171,6 +171,11 @@ def test_retention_by_age_and_count_keeps_unfinished_jobs(tmp_path):
         left = {r[0] for r in store.query("SELECT id FROM jobs")}
         assert queued.id in left and len(left) == 3
         assert store.query("SELECT COUNT(*) FROM job_results")[0][0] == 2  # cascaded
+        # the runner's sweep reads both limits from the settings
+        settings = Settings(data_dir=tmp_path, job_retention_days=None, job_retention_count=1)
+        assert JobRunner(jobs, settings).apply_retention() == 1
+        left = {r[0] for r in store.query("SELECT id FROM jobs")}
+        assert left == {queued.id, ids[-1]}  # the newest finished job and the queued one
     finally:
         store.close()
 
@@ -329,3 +334,18 @@ def test_die_with_parent_initializer_runs_in_a_pool():
         1, mp_context=ctx, initializer=die_with_parent, initargs=(os.getpid(),)
     ) as pool:
         assert pool.submit(os.getppid).result() == os.getpid()
+
+
+def test_settings_come_typed_from_the_environment(monkeypatch):
+    from pydantic import ValidationError
+
+    from service.settings import get_settings
+
+    monkeypatch.setenv("TRAILCAST_JOB_MAX_SECONDS", "90")
+    monkeypatch.setenv("TRAILCAST_JOB_RETENTION_COUNT", "7")
+    s = Settings()
+    assert s.job_max_seconds == 90.0 and s.job_retention_count == 7
+    monkeypatch.setenv("TRAILCAST_JOB_RUNNERS", "-1")  # below its range: refused, not used
+    with pytest.raises(ValidationError):
+        Settings()
+    get_settings.cache_clear()  # the cached dependency must not keep this test's values
