@@ -325,8 +325,8 @@ def parent_history(
             earlier = max(t for (t, _, _) in peri_back if t < orbit.tp_tdb_jd - 1.0)
             years_back = (orbit.tp_tdb_jd - earlier) / 365.25
             notes.append(
-                "long-period parent: integrated back to its previous perihelion, "
-                f"{years_back:.0f} years before the epoch's own"
+                "long-period parent: integrated back to its previous return, "
+                f"{years_back:.0f} years before the epoch's own perihelion"
             )
     del keep_force
 

@@ -59,8 +59,8 @@ MIN_PERIHELION_AU = SOLAR_RADIUS_AU
 #: 80 au, and dust from a parent that stays beyond 1000 au cannot reach Earth's orbit; the bound
 #: keeps the numerical searches (MOID, node distances) finite.
 MAX_PERIHELION_AU = 1000.0
-#: Epochs accepted (TDB JD): the span of the DE423 ephemeris (Folkner 2010; its header values),
-#: inside which the parent is integrated from its epoch. Same values as
+#: Epochs a forecast accepts (TDB JD): the span of the DE423 ephemeris (Folkner 2010; its header
+#: values), inside which the parent is integrated from its epoch. Same values as
 #: :data:`dynamics.ephemeris.EPHEMERIS_SPAN_TDB_JD` (not imported: this module stays light).
 EPOCH_SPAN_TDB_JD = (2_378_480.5, 2_524_624.5)
 #: Longest name accepted.
@@ -236,13 +236,6 @@ def parse_orbit(data, *, path: str = "", allow_solutions: bool = True) -> OrbitI
 
     epoch = _time(data, "epoch", path)
     tp = _time(data, "tp", path)
-    if not EPOCH_SPAN_TDB_JD[0] <= epoch <= EPOCH_SPAN_TDB_JD[1]:
-        raise InvalidOrbit(
-            path + "epoch",
-            f"epoch JD {epoch!r} (TDB) lies outside the DE423 ephemeris span "
-            f"({EPOCH_SPAN_TDB_JD[0]}-{EPOCH_SPAN_TDB_JD[1]}, 1799-12-16 to 2200-02-01): "
-            "give the elements at an epoch inside it",
-        )
 
     nongrav = None
     if data.get("nongrav") is not None:
@@ -295,6 +288,30 @@ def parse_orbit(data, *, path: str = "", allow_solutions: bool = True) -> OrbitI
         covariance=covariance,
         solutions=solutions,
     )
+
+
+def require_epoch_in_ephemeris(orbit: OrbitInput, path: str = "") -> None:
+    """Refuse an orbit (and alternative solutions) whose epoch lies outside DE423's span.
+
+    A forecast integrates the parent from its epoch with DE423 planets, so it needs the epoch
+    inside the span; the quick-look geometry does not (it falls back to mean elements), which
+    is why :func:`parse_orbit` itself accepts such epochs.
+
+    Raises
+    ------
+    InvalidOrbit
+        Naming ``epoch`` (with ``path`` in front).
+    """
+    for k, o in enumerate((orbit, *orbit.solutions)):
+        where = path if k == 0 else f"{path}solutions.{k - 1}."
+        if not EPOCH_SPAN_TDB_JD[0] <= o.epoch_tdb_jd <= EPOCH_SPAN_TDB_JD[1]:
+            raise InvalidOrbit(
+                where + "epoch",
+                f"epoch JD {o.epoch_tdb_jd!r} (TDB) lies outside the DE423 ephemeris span "
+                f"({EPOCH_SPAN_TDB_JD[0]}-{EPOCH_SPAN_TDB_JD[1]}, 1799-12-16 to 2200-02-01): a "
+                "forecast integrates the parent from its epoch; give the elements at an epoch "
+                "inside it",
+            )
 
 
 def _number(data, key, path, default=None) -> float:

@@ -130,7 +130,12 @@ def test_submit_follow_and_export_over_http(server):
     result = job["result"]
     assert result["parent"]["name"] == DEMO_ORBIT["name"]
     assert result["model"]["options"]["trails"] == [2026]
-    assert job["progress"] == {"fraction": 1.0, "stage": "done"}
+    assert job["progress"] == {
+        "fraction": 1.0,
+        "stage": "done",
+        "items_done": None,  # a forecast counts no items (a screening counts its orbits)
+        "items_total": None,
+    }
     assert job["timings"]["run_seconds"] > 0 and job["timings"]["finished_utc"]
     assert any("Spacecraft operators" in c for c in job["cautions"])
 

@@ -159,7 +159,10 @@ def test_retention_by_age_and_count_keeps_unfinished_jobs(tmp_path):
     store = Store(tmp_path / "db.sqlite3")
     try:
         jobs = JobStore(store)
-        ids = [_done_forecast(jobs, f"p{k}", (2040, 2040), {"seed": k}, []) for k in range(5)]
+        ids = []
+        for k in range(5):
+            ids.append(_done_forecast(jobs, f"p{k}", (2040, 2040), {"seed": k}, []))
+            time.sleep(0.01)  # finished_utc has millisecond resolution: keep the order clear
         queued, _ = jobs.submit(canonical_request({"name": "q"}, 2040, 2040, {}), "q", 100)
         with store.transaction() as conn:  # the two oldest finished 200 days ago
             conn.execute(

@@ -35,9 +35,7 @@ from service.screening import read_batch
 ROOT = Path(__file__).resolve().parents[1]
 BATCH = ROOT / "examples" / "screening-batch.jsonl"
 #: Lines of the invented batch that are bad on purpose (examples/make_screening_batch.py).
-#: Rows refused when the batch is read; the epoch outside DE423 (line 182) is refused there too
-#: since issue 13 (it used to fail only when its trail forecast ran).
-BAD_LINES = {104: "not valid JSON", 170: "eccentricity", 178: "tp: missing", 182: "DE423"}
+BAD_LINES = {104: "not valid JSON", 170: "eccentricity", 178: "tp: missing"}
 #: Agreement between the vectorised and the scalar MOID search (au): both refine the same minima
 #: to double precision; 1e-9 au leaves room for different Newton paths.
 MOID_AGREEMENT_AU = 1e-9
@@ -201,7 +199,7 @@ def test_invented_batch_end_to_end_interrupted_and_resumed(tmp_path):
         deadline = time.monotonic() + WAIT_S
         while True:
             n = len(list(results.glob("*.json"))) if results.exists() else 0
-            if n >= 193:  # 191 non-candidates + 2 candidates (of 196 valid orbits)
+            if n >= 193:  # 191 non-candidates + 2 candidates (of 197 valid orbits)
                 break
             assert proc.poll() is None, "finished before it could be interrupted"
             assert time.monotonic() < deadline
@@ -211,7 +209,7 @@ def test_invented_batch_end_to_end_interrupted_and_resumed(tmp_path):
             os.killpg(proc.pid, signal.SIGKILL)
         proc.wait(timeout=30)
     finished = {p.name: p.stat().st_mtime_ns for p in results.glob("*.json")}
-    assert 193 <= len(finished) < 196, len(finished)
+    assert 193 <= len(finished) < 197, len(finished)
     assert not (out / "screening.json").exists()
 
     # 2. The same command again completes the batch, recomputing only what was missing.
@@ -221,10 +219,10 @@ def test_invented_batch_end_to_end_interrupted_and_resumed(tmp_path):
     assert r.returncode == 0, r.stderr
     counts = json.loads(r.stdout)
     assert counts["reused"] == len(finished)
-    assert counts["computed"] == 196 - len(finished)
+    assert counts["computed"] == 197 - len(finished)
     for name, mtime in finished.items():  # finished orbits were not rewritten
         assert (results / name).stat().st_mtime_ns == mtime
-    assert len(list(results.glob("*.json"))) == 196
+    assert len(list(results.glob("*.json"))) == 197
 
     result = json.loads((out / "screening.json").read_text())
     records = {o["line"]: o for o in result["orbits"]}
@@ -256,9 +254,13 @@ def test_invented_batch_end_to_end_interrupted_and_resumed(tmp_path):
     assert all(records[line]["verdict"] == "not a candidate" for line in set(lines) - expected)
     assert all(records[line]["forecast"] is None for line in set(lines) - expected)
 
-    # 5. Candidates' verdicts: forecasts ran; the hyperbolic one has no trails.
+    # 5. Candidates' verdicts: forecasts ran; the hyperbolic one has no trails; the epoch
+    #    outside DE423 gives a clear per-row error.
     by_name = {records[line]["name"]: records[line] for line in expected}
     assert by_name["C/2027 C5 (hyperbolic) [invented]"]["verdict"] == "no trails"
+    late = by_name["P/2250 C6 (late epoch) [invented]"]
+    assert late["verdict"] == "error" and "DE423" in late["error"]["message"]
+    assert any("mean J2000" in n for n in late["geometry"]["notes"])
     periodic = [r for n, r in by_name.items() if "(candidate)" in n]
     assert periodic and all(r["forecast"] is not None for r in periodic)
     assert all(r["forecast"]["parent_returns_tdb"] for r in periodic)

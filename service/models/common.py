@@ -2,17 +2,24 @@
 
 from typing import Annotated
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import AfterValidator, BaseModel, ConfigDict, Field
 
 #: Calendar years the planets are known for: the DE423 ephemeris (Folkner 2010) spans
 #: 1799-12-16 to 2200-02-01, so whole years 1800-2199.
 FIRST_YEAR, LAST_YEAR = 1800, 2199
 
+
+def _in_de423_years(year: int) -> int:
+    if not FIRST_YEAR <= year <= LAST_YEAR:
+        raise ValueError(f"{year} lies outside {FIRST_YEAR}-{LAST_YEAR} (the DE423 ephemeris span)")
+    return year
+
+
 Year = Annotated[
     int,
+    AfterValidator(_in_de423_years),
     Field(
-        ge=FIRST_YEAR,
-        le=LAST_YEAR,
+        json_schema_extra={"minimum": FIRST_YEAR, "maximum": LAST_YEAR},
         description="Calendar year (UTC); 1800-2199, the whole years inside the DE423 "
         "ephemeris span (Folkner 2010)",
     ),

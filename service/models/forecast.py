@@ -5,6 +5,7 @@ from typing import Annotated, Literal
 from pydantic import Field, model_validator
 
 from dynamics.ejection import EJECTION_SPEED_LAWS
+from dynamics.orbit_input import require_epoch_in_ephemeris
 
 from ..jobs import canonical_request
 from .common import FIRST_YEAR, LAST_YEAR, LimitExceeded, RequestModel, Year, check_years
@@ -51,7 +52,7 @@ class CalibrationIn(RequestModel):
     def _trail_before_outburst(self):
         if self.trail_year >= self.year:
             raise ValueError(
-                "trail_year must precede year (a trail is released before it meets Earth)"
+                "trail_year: must precede year (a trail is released before it meets Earth)"
             )
         return self
 
@@ -166,6 +167,7 @@ class ForecastIn(RequestModel):
             More years or meteoroids than this server takes.
         """
         orbit = self.orbit.to_domain()
+        require_epoch_in_ephemeris(orbit, "orbit.")
         first, last = check_years(self.years, max_years)
         opts = self.options or ForecastOptionsIn()
         particles = self.particles or opts.particles or DEFAULT_PARTICLES

@@ -10,8 +10,9 @@ import json
 from pathlib import Path
 from typing import Annotated
 
-from pydantic import Field
+from pydantic import Field, model_validator
 
+from dynamics.errors import InvalidOrbit
 from dynamics.orbit_input import (
     EPOCH_SPAN_TDB_JD,
     MAX_ECCENTRICITY,
@@ -65,88 +66,92 @@ class NonGravIn(RequestModel):
 
     a1: float = Field(
         0.0,
-        ge=-MAX_NONGRAV_AU_D2,
-        le=MAX_NONGRAV_AU_D2,
+        json_schema_extra={"minimum": -MAX_NONGRAV_AU_D2, "maximum": MAX_NONGRAV_AU_D2},
         description="Radial A1 (au/day^2); |A1| <= 1e-5: above that the force would be a few "
         "percent of solar gravity, no comet fit",
         examples=[1e-9],
     )
     a2: float = Field(
         0.0,
-        ge=-MAX_NONGRAV_AU_D2,
-        le=MAX_NONGRAV_AU_D2,
+        json_schema_extra={"minimum": -MAX_NONGRAV_AU_D2, "maximum": MAX_NONGRAV_AU_D2},
         description="Transverse A2 (au/day^2); same bound",
         examples=[1e-10],
     )
     a3: float = Field(
         0.0,
-        ge=-MAX_NONGRAV_AU_D2,
-        le=MAX_NONGRAV_AU_D2,
+        json_schema_extra={"minimum": -MAX_NONGRAV_AU_D2, "maximum": MAX_NONGRAV_AU_D2},
         description="Normal A3 (au/day^2); same bound",
         examples=[0.0],
     )
 
 
 class _OrbitFields(RequestModel):
+    """The orbit's keys. The ranges are stated in the schema and checked by
+    :func:`dynamics.orbit_input.parse_orbit` first, so that the API, the command line and the
+    dashboard word every refusal the same way (``orbit.q: perihelion distance must be ...``)."""
+
+    @model_validator(mode="before")
+    @classmethod
+    def _checked_like_every_command(cls, data):
+        try:
+            parse_orbit(data, allow_solutions=cls is OrbitIn)
+        except InvalidOrbit as exc:
+            raise ValueError(str(exc)) from None
+        return data
+
     name: str = Field(
         ...,
-        min_length=1,
-        max_length=MAX_NAME_LENGTH,
-        pattern=_NAME_PATTERN,
+        json_schema_extra={"minLength": 1, "maxLength": MAX_NAME_LENGTH, "pattern": _NAME_PATTERN},
         description=f"Designation and name, at most {MAX_NAME_LENGTH} characters, no control "
         "characters or line breaks (the name travels into CSV and iCalendar files)",
-        examples=["P/2026 W3 (Hollow Pine) [invented demo comet]"],
+        examples=[DEMO_ORBIT["name"]],
     )
     epoch: TimeIn = Field(
         ...,
-        description="Osculation epoch: Julian date (TDB) within the DE423 span "
-        f"{EPOCH_SPAN_TDB_JD[0]}-{EPOCH_SPAN_TDB_JD[1]} (1799-12-16 to 2200-02-01; the parent "
-        "is integrated from it with DE423 planets), or ISO 8601 text with its scale",
-        examples=["2026-11-20T00:00:00 TDB"],
+        description="Osculation epoch: Julian date (TDB) or ISO 8601 text with its scale. A "
+        f"forecast needs it within the DE423 span {EPOCH_SPAN_TDB_JD[0]}-{EPOCH_SPAN_TDB_JD[1]} "
+        "(1799-12-16 to 2200-02-01: the parent is integrated from it with DE423 planets); the "
+        "quick-look geometry takes any epoch",
+        examples=[DEMO_ORBIT["epoch"]],
     )
     q: float = Field(
         ...,
-        gt=MIN_PERIHELION_AU,
-        le=MAX_PERIHELION_AU,
+        json_schema_extra={"exclusiveMinimum": MIN_PERIHELION_AU, "maximum": MAX_PERIHELION_AU},
         description=f"Perihelion distance (au), above the Sun's radius ({MIN_PERIHELION_AU:.5f} "
         "au, IAU 2015 Resolution B3: at or below it the parent plunges into the Sun) and at "
         f"most {MAX_PERIHELION_AU:g} au (no known small body has q above about 80 au; dust "
         "from farther out cannot reach Earth's orbit)",
-        examples=[0.962],
+        examples=[DEMO_ORBIT["q"]],
     )
     e: float = Field(
         ...,
-        ge=0.0,
-        le=MAX_ECCENTRICITY,
+        json_schema_extra={"minimum": 0.0, "maximum": MAX_ECCENTRICITY},
         description=f"Eccentricity (1): 0 circle, < 1 ellipse, 1 parabola, > 1 hyperbola; at "
         f"most {MAX_ECCENTRICITY:g} (interstellar objects so far have e < 7)",
-        examples=[0.828],
+        examples=[DEMO_ORBIT["e"]],
     )
     i: float = Field(
         ...,
-        ge=0.0,
-        le=180.0,
+        json_schema_extra={"minimum": 0.0, "maximum": 180.0},
         description="Inclination (deg), ecliptic and equinox J2000, 0-180",
-        examples=[38.5],
+        examples=[DEMO_ORBIT["i"]],
     )
     node: float = Field(
         ...,
-        ge=0.0,
-        lt=360.0,
+        json_schema_extra={"minimum": 0.0, "exclusiveMaximum": 360.0},
         description="Longitude of the ascending node (deg), ecliptic and equinox J2000, [0, 360)",
-        examples=[21.6],
+        examples=[DEMO_ORBIT["node"]],
     )
     peri: float = Field(
         ...,
-        ge=0.0,
-        lt=360.0,
+        json_schema_extra={"minimum": 0.0, "exclusiveMaximum": 360.0},
         description="Argument of perihelion (deg), ecliptic and equinox J2000, [0, 360)",
-        examples=[204.2],
+        examples=[DEMO_ORBIT["peri"]],
     )
     tp: TimeIn = Field(
         ...,
         description="Perihelion time: Julian date (TDB) or ISO 8601 text with its scale",
-        examples=["2026-10-30T06:00:00 TDB"],
+        examples=[DEMO_ORBIT["tp"]],
     )
     nongrav: NonGravIn | None = Field(
         None, description="Optional non-gravitational parameters (au/day^2)"
