@@ -14,24 +14,14 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from dynamics.errors import InvalidOrbit
+from dynamics.orbit_input import ORBIT_KEYS
 
 #: Columns of a CSV batch: the orbit JSON's keys (README, "The orbit input"); ``nongrav.a1`` etc.
 #: for the optional non-gravitational parameters. Covariances and alternative solutions need the
 #: JSON-lines form.
-CSV_COLUMNS = (
-    "name",
-    "epoch",
-    "q",
-    "e",
-    "i",
-    "node",
-    "peri",
-    "tp",
-    "nongrav.a1",
-    "nongrav.a2",
-    "nongrav.a3",
-)
-_CSV_NUMBERS = ("q", "e", "i", "node", "peri", "nongrav.a1", "nongrav.a2", "nongrav.a3")
+_NONGRAV_COLUMNS = ("nongrav.a1", "nongrav.a2", "nongrav.a3")
+CSV_COLUMNS = (*ORBIT_KEYS[: ORBIT_KEYS.index("nongrav")], *_NONGRAV_COLUMNS)
+_CSV_NUMBERS = ("q", "e", "i", "node", "peri", *_NONGRAV_COLUMNS)
 
 
 @dataclass(frozen=True)

@@ -22,6 +22,7 @@ from pathlib import Path
 import httpx
 import icalendar
 import pytest
+from processes import alive, children
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 DEMO_ORBIT = json.loads((EXAMPLES / "demo-comet.json").read_text(encoding="utf-8"))
@@ -351,28 +352,6 @@ def test_calibration_trail_must_precede_its_year(server):
     assert r.json()["field"] == "options.calibration.trail_year"
 
 
-def _children(pid: int) -> list[int]:
-    """Pids whose parent is ``pid`` (Linux /proc)."""
-    out = []
-    for entry in Path("/proc").iterdir():
-        if entry.name.isdigit():
-            try:
-                stat = (entry / "stat").read_text()
-            except OSError:
-                continue
-            if int(stat.rsplit(")", 1)[1].split()[1]) == pid:
-                out.append(int(entry.name))
-    return out
-
-
-def _alive(pid: int) -> bool:
-    try:
-        stat = Path(f"/proc/{pid}/stat").read_text()
-    except OSError:
-        return False
-    return stat.rsplit(")", 1)[1].split()[0] != "Z"
-
-
 #: The invented example batch (examples/screening-batch.jsonl): 200 orbits with a few
 #: candidates whose trail forecasts keep a screening busy long enough to be killed mid-way.
 def _readable_rows(path: Path) -> list:
@@ -413,14 +392,14 @@ def test_screening_survives_sigkill_and_its_workers_do_not_outlive_the_server(tm
             lambda j: j["state"] == "running" and j["progress"]["items_done"] >= 1,
             "the screening to be under way",
         )
-        workers = _children(first.proc.pid)
+        workers = children(first.proc.pid)
         assert workers, "the server has started no worker processes"
         os.kill(first.proc.pid, signal.SIGKILL)  # the server only: its workers must follow
         first.proc.wait(timeout=30)
         deadline = time.monotonic() + 30.0  # generous against the workers' 0.5 s watch
-        while any(_alive(p) for p in workers) and time.monotonic() < deadline:
+        while any(alive(p) for p in workers) and time.monotonic() < deadline:
             time.sleep(0.2)
-        orphans = [p for p in workers if _alive(p)]
+        orphans = [p for p in workers if alive(p)]
     finally:
         first.kill()  # the rest of the process group, if anything is left
     assert orphans == []
@@ -475,13 +454,13 @@ def test_sigterm_puts_the_running_job_back_in_the_queue(tmp_path):
             lambda j: j["state"] == "running" and j["progress"]["fraction"] > 0.0,
             "the job to be under way",
         )
-        workers = _children(server.proc.pid)
+        workers = children(server.proc.pid)
         os.kill(server.proc.pid, signal.SIGTERM)
         server.proc.wait(timeout=WAIT_S)
         deadline = time.monotonic() + 30.0
-        while any(_alive(p) for p in workers) and time.monotonic() < deadline:
+        while any(alive(p) for p in workers) and time.monotonic() < deadline:
             time.sleep(0.2)
-        assert [p for p in workers if _alive(p)] == []
+        assert [p for p in workers if alive(p)] == []
     finally:
         server.kill()
     conn = sqlite3.connect(data / "trailcast.sqlite3")

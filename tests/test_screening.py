@@ -23,6 +23,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from processes import alive, children
 
 from dynamics.ephemeris import EPHEMERIS_SPAN_TDB_JD, gm_au3_d2, heliocentric_state
 from dynamics.geometry import EARTH_MEAN_J2000
@@ -302,27 +303,6 @@ def test_dask_cluster_gives_the_same_screening(tmp_path):
     assert sum(r["candidate"] for r in local.records) >= 1
 
 
-def _children(pid: int) -> list[int]:
-    """Pids whose parent is ``pid`` (Linux /proc)."""
-    out = []
-    for entry in Path("/proc").iterdir():
-        if entry.name.isdigit():
-            try:
-                stat = (entry / "stat").read_text()
-            except OSError:
-                continue
-            if int(stat.rsplit(")", 1)[1].split()[1]) == pid:
-                out.append(int(entry.name))
-    return out
-
-
-def _alive(pid: int) -> bool:
-    try:
-        return Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0] != "Z"
-    except OSError:
-        return False
-
-
 @pytest.mark.slow
 def test_screen_workers_end_when_the_command_is_killed(tmp_path):
     """Issue 13, finding 5: after SIGKILL of `trailcast screen --workers 2`, its worker
@@ -337,17 +317,17 @@ def test_screen_workers_end_when_the_command_is_killed(tmp_path):
     )
     try:
         deadline = time.monotonic() + WAIT_S
-        while len(_children(proc.pid)) < 2:  # the pool's workers (and the resource tracker)
+        while len(children(proc.pid)) < 2:  # the pool's workers (and the resource tracker)
             assert proc.poll() is None and time.monotonic() < deadline
             time.sleep(0.05)
         time.sleep(1.0)  # let the workers finish starting up
-        workers = _children(proc.pid)
+        workers = children(proc.pid)
         os.kill(proc.pid, signal.SIGKILL)
         proc.wait(timeout=30)
         deadline = time.monotonic() + 30.0  # generous against the workers' 0.5 s watch
-        while any(_alive(p) for p in workers) and time.monotonic() < deadline:
+        while any(alive(p) for p in workers) and time.monotonic() < deadline:
             time.sleep(0.2)
-        assert [p for p in workers if _alive(p)] == []
+        assert [p for p in workers if alive(p)] == []
     finally:
         try:
             os.killpg(proc.pid, signal.SIGKILL)
