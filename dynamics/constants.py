@@ -10,6 +10,8 @@ import math
 # --- Lengths and times ----------------------------------------------------------------------
 AU_M = 149_597_870_700.0  # m; IAU 2012 Resolution B2 (exact by definition)
 AU_KM = AU_M / 1000.0  # km
+SOLAR_RADIUS_KM = 695_700.0  # km; nominal solar radius, IAU 2015 Resolution B3
+SOLAR_RADIUS_AU = SOLAR_RADIUS_KM / AU_KM  # au (about 0.00465)
 DAY_S = 86_400.0  # s; SI day used by TDB/TT Julian dates
 JD_J2000 = 2_451_545.0  # JD of the epoch J2000.0 (2000 Jan 1.5 TT); IAU 1976 / Lieske (1979)
 JD_MJD_OFFSET = 2_400_000.5  # MJD = JD - 2400000.5; IAU 1973 resolution

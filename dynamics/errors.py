@@ -52,3 +52,11 @@ class InvalidSite(TrailcastError, ValueError):
         self.field = field
         self.message = message
         super().__init__(f"{field}: {message}")
+
+
+class ComputationStopped(TrailcastError):
+    """The caller's ``should_stop()`` answered True: the computation stopped where it was.
+
+    Nothing went wrong with the input; whoever passed ``should_stop`` knows why it stopped (a
+    cancelled job, a time limit, a shutdown) and decides what comes next.
+    """

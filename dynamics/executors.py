@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .nbody import MassiveBodies, integrate_particles
+from .workers import die_with_parent
 
 
 def default_workers() -> int:
@@ -23,29 +24,6 @@ def default_workers() -> int:
         return max(1, len(os.sched_getaffinity(0)))
     except AttributeError:  # pragma: no cover - not Linux
         return max(1, os.cpu_count() or 1)
-
-
-#: Linux prctl option: signal this process when its parent dies (linux/prctl.h).
-_PR_SET_PDEATHSIG = 1
-
-
-def _worker_init() -> None:
-    """Runs once in each worker process: die with the parent (no orphans after a SIGKILL).
-
-    On Linux the kernel sends SIGTERM to the worker when the process that started it dies;
-    elsewhere this does nothing.
-    """
-    import ctypes
-    import signal
-    import sys
-
-    if not sys.platform.startswith("linux"):  # pragma: no cover
-        return
-    try:
-        libc = ctypes.CDLL(None, use_errno=True)
-        libc.prctl(_PR_SET_PDEATHSIG, int(signal.SIGTERM), 0, 0, 0)
-    except (OSError, AttributeError):  # pragma: no cover - no prctl: nothing to arm
-        return
 
 
 @contextmanager
@@ -57,7 +35,10 @@ def make_executor(workers: int):
         return
     ctx = multiprocessing.get_context("spawn")
     with cf.ProcessPoolExecutor(
-        max_workers=workers, mp_context=ctx, initializer=_worker_init
+        max_workers=workers,
+        mp_context=ctx,
+        initializer=die_with_parent,  # no orphans after a SIGKILL of this process
+        initargs=(os.getpid(),),
     ) as pool:
         yield pool
 

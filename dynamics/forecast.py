@@ -292,6 +292,7 @@ def forecast(
     *,
     progress: Callable[[float, str], None] | None = None,
     executor=None,
+    should_stop: Callable[[], bool] | None = None,
 ) -> ForecastResult:
     """Forecast the parent's dust-trail encounters with Earth in the requested years.
 
@@ -305,6 +306,10 @@ def forecast(
     executor : concurrent.futures.Executor, optional
         Runs the integration chunks (a Dask client's executor works too); default: a local
         process pool with ``options.workers`` processes (:func:`dynamics.executors.make_executor`).
+    should_stop : callable, optional
+        Asked between the parent-history integration steps; True stops the forecast with
+        :class:`~dynamics.errors.ComputationStopped` (``progress`` may raise for the same end
+        between the later stages).
 
     Returns
     -------
@@ -312,8 +317,10 @@ def forecast(
     """
     if executor is None and options.workers > 1:
         with make_executor(options.workers) as pool:  # one pool for every stage
-            return _forecast(orbit, options, progress=progress, executor=pool)
-    return _forecast(orbit, options, progress=progress, executor=executor)
+            return _forecast(
+                orbit, options, progress=progress, executor=pool, should_stop=should_stop
+            )
+    return _forecast(orbit, options, progress=progress, executor=executor, should_stop=should_stop)
 
 
 @dataclass
@@ -342,6 +349,7 @@ def _forecast(
     *,
     progress: Callable[[float, str], None] | None = None,
     executor=None,
+    should_stop: Callable[[], bool] | None = None,
 ) -> ForecastResult:
     """See :func:`forecast`."""
     report = progress or (lambda f, s: None)
@@ -369,7 +377,11 @@ def _forecast(
     t_max = y_end + min(1.3 * period, 300 * DAYS_PER_JULIAN_YEAR) + 60.0
     try:
         history = cached_parent_history(
-            orbit, t_min, t_max, active_r_max_au=options.ejection.active_r_max_au
+            orbit,
+            t_min,
+            t_max,
+            active_r_max_au=options.ejection.active_r_max_au,
+            should_stop=should_stop,
         )
     except FirstPassage as exc:  # a result, not an error: no earlier returns, no trails
         history = ParentHistory((), orbit.epoch_tdb_jd, None, (str(exc),))

@@ -592,10 +592,11 @@ def _year_window(year: int | None):
     return start, end
 
 
-def _verdict(moid_au: float | None) -> str:
+def _verdict(moid_au: float | None, open_orbit: bool = True) -> str:
     if moid_au is None:
+        where = "the searched part of this open orbit" if open_orbit else "this orbit"
         return (
-            "No closest approach to Earth's orbit within the searched part of this open orbit: "
+            f"No closest approach to Earth's orbit found within {where}: "
             "no Earth encounter; no trail simulation needed."
         )
     rule = "(rule of thumb: common practice, no source)"
@@ -729,7 +730,7 @@ def quick_look(orbit: OrbitInput, year: int | None = None) -> GeometryResult:
         radiant=branches[0].radiant if branches else None,
         similar_showers=shower_rows,
         d_sh_max=D_SH_MAX_DEFAULT,
-        verdict=_verdict(moid_au),
+        verdict=_verdict(moid_au, open_orbit=orbit.e >= 1.0),
         notes=notes,
     )
 

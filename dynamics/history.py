@@ -23,7 +23,7 @@ import numpy as np
 
 from .constants import GM_SUN_AU3_D2
 from .ephemeris import EPHEMERIS_SPAN_TDB_ISO, EPHEMERIS_SPAN_TDB_JD
-from .errors import OutsideTimeSpan, TrailcastError
+from .errors import ComputationStopped, OutsideTimeSpan, TrailcastError
 from .nbody import MassiveBodies, ParentSimulation, massive_bodies_from_ephemeris
 from .orbit_input import OrbitInput
 from .orbits import Elements, elements_to_state, state_to_elements
@@ -153,13 +153,15 @@ def _march(
     active_r_max_au: float,
     stop_after_perihelia=None,
     counting_before_tdb_jd=math.inf,
+    should_stop=None,
 ):
     """Step the parent simulation towards ``t_stop``; return samples and perihelion passages.
 
     Samples are taken every day inside the active arc and every few percent of the local
     orbital time scale outside it. Returns (samples, perihelia) where samples are tuples
     (t, r, v, bodies or None) and perihelia are (t_before, r, v) at the sample preceding a
-    sign change of r.v.
+    sign change of r.v. ``should_stop()``, when given, is asked before every step; True raises
+    :class:`~dynamics.errors.ComputationStopped`.
     """
     samples = []
     perihelia = []
@@ -171,6 +173,8 @@ def _march(
     t = sim.t_tdb_jd
     epoch = sim.t_tdb_jd
     while (t_stop - t) * direction > 0:
+        if should_stop is not None and should_stop():
+            raise ComputationStopped("parent history stopped on request")
         rn = float(np.linalg.norm(prev[1]))
         if rn < active_r_max_au + 0.5:
             step = ARC_STEP_DAYS
@@ -243,6 +247,7 @@ def cached_parent_history(
     t_max_tdb_jd: float,
     *,
     active_r_max_au: float = DEFAULT_ACTIVE_R_MAX_AU,
+    should_stop=None,
 ) -> "ParentHistory":
     """:func:`parent_history` over a span widened to :data:`CACHE_SPAN_QUANTUM_DAYS`, computed
     once per parent and span and reused: keyed by a hash of the orbit's JSON, the span, the
@@ -274,7 +279,9 @@ def cached_parent_history(
         except (OSError, pickle.UnpicklingError, EOFError, AttributeError):
             hist = None  # unreadable: compute again and overwrite
     if hist is None:
-        hist = parent_history(orbit, lo, hi, active_r_max_au=active_r_max_au)
+        hist = parent_history(
+            orbit, lo, hi, active_r_max_au=active_r_max_au, should_stop=should_stop
+        )
         if path is not None:
             tmp = path.with_suffix(f".{os.getpid()}.tmp")
             try:
@@ -296,6 +303,7 @@ def parent_history(
     *,
     active_r_max_au: float = DEFAULT_ACTIVE_R_MAX_AU,
     min_previous_returns: int = 1,
+    should_stop=None,
 ) -> ParentHistory:
     """Integrate the parent from its epoch back to ``t_min`` and forward to ``t_max``.
 
@@ -309,6 +317,9 @@ def parent_history(
         they are found, up to :data:`MAX_LOOKBACK_YEARS`.
     active_r_max_au : float
         The active arc is where the parent is closer to the Sun than this (au).
+    should_stop : callable, optional
+        Asked (no arguments) before every integration step; True stops the integration with
+        :class:`~dynamics.errors.ComputationStopped` (a cancelled job, a time limit).
 
     Returns
     -------
@@ -322,7 +333,7 @@ def parent_history(
     """
     notes = []
     sim = _parent_simulation(orbit)
-    back, peri_back = _march(sim, t_min_tdb_jd, -1, active_r_max_au)
+    back, peri_back = _march(sim, t_min_tdb_jd, -1, active_r_max_au, should_stop=should_stop)
     # The epoch's own passage and any before it within the span are in peri_back. Long-period
     # parents need the previous return even beyond t_min.
     n_before = sum(1 for (t, _, _) in peri_back if t < orbit.tp_tdb_jd - 1.0)
@@ -338,6 +349,7 @@ def parent_history(
             active_r_max_au,
             stop_after_perihelia=min_previous_returns - n_before,
             counting_before_tdb_jd=orbit.tp_tdb_jd - 1.0,
+            should_stop=should_stop,
         )
         back += more
         peri_back += peri_more
@@ -349,7 +361,11 @@ def parent_history(
                     f"{orbit.name}: the original barycentric orbit is hyperbolic (1/a = {inv_a:.3g} /au): "
                     "first passage, no earlier returns and no dust trails"
                 )
-            notes.append(f"no earlier perihelion found within {MAX_LOOKBACK_YEARS:.0f} years")
+            notes.append(
+                "no perihelion before the epoch's own found in the "
+                f"{MAX_LOOKBACK_YEARS:.0f} years before the epoch (any returns listed come "
+                "after it)"
+            )
         else:
             prev = max(t for (t, _, _) in peri_back if t < orbit.tp_tdb_jd - 1.0)
             years = (orbit.tp_tdb_jd - prev) / 365.25
@@ -366,7 +382,7 @@ def parent_history(
                 )
 
     sim = _parent_simulation(orbit)
-    fwd, peri_fwd = _march(sim, t_max_tdb_jd, +1, active_r_max_au)
+    fwd, peri_fwd = _march(sim, t_max_tdb_jd, +1, active_r_max_au, should_stop=should_stop)
 
     samples = sorted(back + fwd, key=lambda s: s[0])
     peri = sorted(peri_back + peri_fwd, key=lambda p: p[0])

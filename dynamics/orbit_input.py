@@ -23,7 +23,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .constants import GM_SUN_AU3_D2
+from .constants import GM_SUN_AU3_D2, SOLAR_RADIUS_AU
 from .errors import InvalidOrbit, InvalidTime, OutsideTimeSpan
 from .timescales import parse_time_tdb_jd
 
@@ -53,6 +53,17 @@ COVARIANCE_ORDER = (
 )
 #: Upper limit on eccentricity accepted (interstellar objects so far have e < 7).
 MAX_ECCENTRICITY = 100.0
+#: Smallest perihelion distance accepted (au): the Sun's radius (IAU 2015 Resolution B3). An
+#: orbit with q at or below it plunges into the Sun: no return, no trail.
+MIN_PERIHELION_AU = SOLAR_RADIUS_AU
+#: Largest perihelion distance accepted (au). No source: no known small body has q above about
+#: 80 au, and dust from a parent that stays beyond 1000 au cannot reach Earth's orbit; the bound
+#: keeps the numerical searches (MOID, node distances) finite.
+MAX_PERIHELION_AU = 1000.0
+#: Epochs a forecast accepts (TDB JD): the span of the DE423 ephemeris (Folkner 2010; its header
+#: values), inside which the parent is integrated from its epoch. Same values as
+#: :data:`dynamics.ephemeris.EPHEMERIS_SPAN_TDB_JD` (not imported: this module stays light).
+EPOCH_SPAN_TDB_JD = (2_378_480.5, 2_524_624.5)
 #: Longest name accepted.
 MAX_NAME_LENGTH = 200
 #: Most alternative solutions accepted in one input.
@@ -200,6 +211,10 @@ def parse_orbit(data, *, path: str = "", allow_solutions: bool = True) -> OrbitI
         raise InvalidOrbit(path + "name", "must be a non-empty string")
     if len(name) > MAX_NAME_LENGTH:
         raise InvalidOrbit(path + "name", f"longer than {MAX_NAME_LENGTH} characters")
+    if any(0xD800 <= ord(c) <= 0xDFFF for c in name):
+        raise InvalidOrbit(path + "name", "holds a lone surrogate (not a Unicode character)")
+    if any(ord(c) < 0x20 or 0x7F <= ord(c) < 0xA0 or c in "\u2028\u2029" for c in name):
+        raise InvalidOrbit(path + "name", "holds a control character or line break")
 
     q = _number(data, "q", path)
     e = _number(data, "e", path)
@@ -208,6 +223,18 @@ def parse_orbit(data, *, path: str = "", allow_solutions: bool = True) -> OrbitI
     peri = _number(data, "peri", path)
     if q <= 0.0:
         raise InvalidOrbit(path + "q", f"perihelion distance must be > 0 au, got {q!r}")
+    if q <= MIN_PERIHELION_AU:
+        raise InvalidOrbit(
+            path + "q",
+            f"perihelion distance {q!r} au lies inside the Sun (radius {MIN_PERIHELION_AU:.5f} "
+            "au): the parent would not survive its perihelion",
+        )
+    if q > MAX_PERIHELION_AU:
+        raise InvalidOrbit(
+            path + "q",
+            f"perihelion distance {q!r} au is above {MAX_PERIHELION_AU:g} au: dust from such a "
+            "parent cannot reach Earth's orbit",
+        )
     if e < 0.0:
         raise InvalidOrbit(path + "e", f"eccentricity must be >= 0, got {e!r}")
     if e > MAX_ECCENTRICITY:
@@ -337,6 +364,30 @@ def _events(value, field_name) -> tuple:
     return tuple(out)
 
 
+def require_epoch_in_ephemeris(orbit: OrbitInput, path: str = "") -> None:
+    """Refuse an orbit (and alternative solutions) whose epoch lies outside DE423's span.
+
+    A forecast integrates the parent from its epoch with DE423 planets, so it needs the epoch
+    inside the span; the quick-look geometry does not (it falls back to mean elements), which
+    is why :func:`parse_orbit` itself accepts such epochs.
+
+    Raises
+    ------
+    InvalidOrbit
+        Naming ``epoch`` (with ``path`` in front).
+    """
+    for k, o in enumerate((orbit, *orbit.solutions)):
+        where = path if k == 0 else f"{path}solutions.{k - 1}."
+        if not EPOCH_SPAN_TDB_JD[0] <= o.epoch_tdb_jd <= EPOCH_SPAN_TDB_JD[1]:
+            raise InvalidOrbit(
+                where + "epoch",
+                f"epoch JD {o.epoch_tdb_jd!r} (TDB) lies outside the DE423 ephemeris span "
+                f"({EPOCH_SPAN_TDB_JD[0]}-{EPOCH_SPAN_TDB_JD[1]}, 1799-12-16 to 2200-02-01): a "
+                "forecast integrates the parent from its epoch; give the elements at an epoch "
+                "inside it",
+            )
+
+
 def _number(data, key, path, default=None) -> float:
     if key not in data or data[key] is None:
         if default is not None:
@@ -345,7 +396,10 @@ def _number(data, key, path, default=None) -> float:
     v = data[key]
     if isinstance(v, bool) or not isinstance(v, int | float | np.integer | np.floating):
         raise InvalidOrbit(path + key, f"expected a number, got {type(v).__name__}")
-    v = float(v)
+    try:
+        v = float(v)
+    except OverflowError:  # an integer with hundreds of digits
+        raise InvalidOrbit(path + key, "number too large to be a float") from None
     if not math.isfinite(v):
         raise InvalidOrbit(path + key, "must be a finite number")
     return v

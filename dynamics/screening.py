@@ -59,7 +59,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from . import __version__
-from .errors import TrailcastError
+from .errors import ComputationStopped, TrailcastError
 from .forecast import CAUTIONS, NODE_MAX_DISTANCE_AU, ForecastOptions, forecast
 from .geometry import TRAIL_SIMULATION_MOID_AU, earth_orbit_at, moid_many_vs_earth, nodes_many
 from .orbit_input import OrbitInput
@@ -96,6 +96,9 @@ VERDICTS = {
 #: Orbits per stage-1 task: large enough to amortise a task's overhead, small enough to spread
 #: a few hundred orbits over two workers.
 GEOMETRY_CHUNK = 64
+#: Longest wait for a candidate's forecast before ``should_stop`` is asked again (s); no source:
+#: short enough for a cancel to act within seconds.
+STOP_POLL_S = 0.5
 
 _SCREENING_CAUTIONS = (
     "Screening is a triage: the geometry is two-body and the trail forecasts use a small budget "
@@ -345,7 +348,7 @@ def rank_orbits(moid_au, nearest_node_au) -> np.ndarray:
 # --------------------------------------------------------------------------------------------
 
 
-def forecast_candidate(orbit: OrbitInput, options: ForecastOptions) -> dict:
+def forecast_candidate(orbit: OrbitInput, options: ForecastOptions, should_stop=None) -> dict:
     """Stage 2 for one candidate (a task a worker process can run): verdict and encounters.
 
     Runs :func:`dynamics.forecast.forecast` in this process (``workers`` forced to 1: the
@@ -360,7 +363,9 @@ def forecast_candidate(orbit: OrbitInput, options: ForecastOptions) -> dict:
         particles integrated; None on error) and ``error`` (None, or ``{"kind", "message"}``).
     """
     try:
-        res = forecast(orbit, replace(options, workers=1))
+        res = forecast(orbit, replace(options, workers=1), should_stop=should_stop)
+    except ComputationStopped:
+        raise  # the caller asked to stop: not this orbit's error
     except TrailcastError as exc:
         return {
             "verdict": "error",
@@ -444,6 +449,7 @@ def screen_batch(
     lookup: Callable[[str], dict | None] | None = None,
     save: Callable[[str, dict], None] | None = None,
     progress: Callable[[int, int, str], None] | None = None,
+    should_stop: Callable[[], bool] | None = None,
 ) -> ScreeningRun:
     """Screen many orbits: geometry for all, trail forecasts for the candidates.
 
@@ -468,6 +474,10 @@ def screen_batch(
     progress : callable, optional
         ``progress(done, total, stage)`` after each finished orbit; an exception raised by it
         (a cancelled job) stops the batch after the orbits already saved.
+    should_stop : callable, optional
+        Asked while candidates' forecasts run (every :data:`STOP_POLL_S` seconds, and between
+        integration steps of an in-process forecast); True stops the batch with
+        :class:`~dynamics.errors.ComputationStopped`, keeping the orbits already saved.
 
     Returns
     -------
@@ -481,7 +491,14 @@ def screen_batch(
         ctx = multiprocessing.get_context("spawn")  # safe under a threaded web server
         with cf.ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
             return screen_batch(
-                orbits, rule, options, executor=pool, lookup=lookup, save=save, progress=progress
+                orbits,
+                rule,
+                options,
+                executor=pool,
+                lookup=lookup,
+                save=save,
+                progress=progress,
+                should_stop=should_stop,
             )
     say = progress or (lambda done, total, stage: None)
     keys = [screening_key(o, rule, options) for o in orbits]
@@ -524,17 +541,27 @@ def screen_batch(
         done += keys.count(k)
         say(done, total, "trail forecasts")
 
+    stop = should_stop or (lambda: False)
     if executor is None:
         for k, o, g in candidates:
-            finish(k, o, g, forecast_candidate(o, options))
+            if stop():
+                raise ComputationStopped("screening stopped on request")
+            finish(k, o, g, forecast_candidate(o, options, should_stop=should_stop))
     else:
         opts1 = replace(options, workers=1)
         futures = {
             executor.submit(forecast_candidate, o, opts1): (k, o, g) for k, o, g in candidates
         }
         try:
-            for f in cf.as_completed(futures):
-                finish(*futures[f], f.result())
+            pending = set(futures)
+            while pending:
+                done_now, pending = cf.wait(
+                    pending, timeout=STOP_POLL_S, return_when=cf.FIRST_COMPLETED
+                )
+                for f in sorted(done_now, key=lambda f: first_index[futures[f][0]]):
+                    finish(*futures[f], f.result())
+                if pending and stop():
+                    raise ComputationStopped("screening stopped on request")
         except BaseException:
             for f in futures:
                 f.cancel()

@@ -507,7 +507,10 @@ def parse_time_tdb_jd(value, field="time") -> float:
     if isinstance(value, bool):
         raise InvalidTime(f"{field}: expected a Julian date (TDB) or ISO 8601 text, got a boolean")
     if isinstance(value, int | float | np.floating | np.integer):
-        v = float(value)
+        try:
+            v = float(value)
+        except OverflowError:  # an integer with hundreds of digits
+            raise InvalidTime(f"{field}: number too large to be a Julian date") from None
         if not np.isfinite(v):
             raise InvalidTime(f"{field}: not a finite number")
         _check_span(v)

@@ -156,6 +156,7 @@ def forecast_solutions(
     clones: int = DEFAULT_CLONES,
     progress: Callable[[float, str], None] | None = None,
     executor=None,
+    should_stop: Callable[[], bool] | None = None,
 ) -> SolutionsResult:
     """Run :func:`forecast` for every solution of ``orbit`` with the same seed, so that the
     differences between their encounters come from the orbits, not from sampling noise."""
@@ -169,6 +170,7 @@ def forecast_solutions(
                 options,
                 executor=executor,
                 progress=lambda f, s, k=k, label=label: say((k + f) / len(orbits), f"{label}: {s}"),
+                should_stop=should_stop,
             )
         )
     return SolutionsResult(labels, orbits, tuple(results))

@@ -29,13 +29,17 @@ def load_orbit_file(path: str):
     from dynamics.orbit_input import parse_orbit
 
     try:
-        text = Path(path).read_text(encoding="utf-8")
+        text = Path(path).read_text(encoding="utf-8-sig")  # a leading BOM is fine
     except OSError as exc:
         raise UsageError(f"cannot read {path}: {exc.strerror or exc}") from None
+    except UnicodeDecodeError:
+        raise UsageError(f"{path}: not UTF-8 text (save the orbit file as UTF-8)") from None
     try:
         data = json.loads(text)
     except json.JSONDecodeError as exc:
         raise UsageError(f"{path}: not valid JSON ({exc.msg} at line {exc.lineno})") from None
+    except RecursionError:
+        raise UsageError(f"{path}: JSON nested too deeply to be an orbit") from None
     return parse_orbit(data)
 
 
@@ -115,7 +119,7 @@ def _token(args) -> str | None:
 def submit_body_from_args(args) -> dict:
     """The POST /v1/forecasts body for the CLI arguments (validated locally first)."""
     load_orbit_file(args.orbit)  # one-line error, exit 2, before any network traffic
-    orbit = json.loads(Path(args.orbit).read_text(encoding="utf-8"))
+    orbit = json.loads(Path(args.orbit).read_text(encoding="utf-8-sig"))
     args.workers = 1  # not sent: the service decides where the chunks run
     opts = forecast_options_from_args(args)
     return {
@@ -420,19 +424,22 @@ def forecast_options_from_args(args):
     dust = getattr(args, "dust_mass", None)
     if dust is not None and not 1.0 <= dust <= 1e20:
         raise UsageError("--dust-mass must lie between 1 and 1e20 g per return")
+    trails = _parse_trails(args.trails)
+    calibration = _parse_calibration(getattr(args, "calibrate", None))
+    _check_like_the_api(args, first, last, trails, calibration)
     return ForecastOptions(
         first_year=first,
         last_year=last,
         particles=args.particles,
         seed=args.seed,
-        trails=_parse_trails(args.trails),
+        trails=trails,
         max_trail_age_years=args.max_age,
         integrator=args.integrator,
         workers=workers,
         ejection=model,
         events=tuple(_parse_event(t) for t in (getattr(args, "event", None) or ())),
         dust_mass_per_return_g=dust,
-        calibration=_parse_calibration(getattr(args, "calibrate", None)),
+        calibration=calibration,
     )
 
 
@@ -478,6 +485,54 @@ def _is_number(text: str) -> bool:
     return True
 
 
+#: The command-line flag of each option the API's request model checks.
+_FLAGS = {
+    "seed": "--seed",
+    "trails": "--trails",
+    "max_trail_age_years": "--max-age",
+    "calibration": "--calibrate",
+    "years": "--years",
+}
+
+
+def _check_like_the_api(args, first: int, last: int, trails, calibration) -> None:
+    """Check seed, trails, trail age and calibration with the API's own request model, so that
+    the command line refuses what ``POST /v1/forecasts`` refuses (one line, exit 2)."""
+    from pydantic import ValidationError
+
+    from .models import ForecastIn, ForecastOptionsIn
+
+    try:
+        options = ForecastOptionsIn(
+            seed=args.seed,
+            trails=list(trails) if trails else None,
+            max_trail_age_years=args.max_age,
+            calibration=(
+                {
+                    "year": calibration.year,
+                    "trail_year": calibration.trail_year,
+                    "zhr": calibration.zhr,
+                }
+                if calibration is not None
+                else None
+            ),
+        )
+        ForecastIn.model_construct(
+            years=[first, last], options=options, particles=None
+        )._consistent()
+    except ValidationError as exc:
+        e = exc.errors()[0]
+        loc = [str(p) for p in e.get("loc", ())]
+        flag = _FLAGS.get(loc[0] if loc else "", "an option")
+        raise UsageError(
+            f"{flag}: {str(e.get('msg', 'invalid')).removeprefix('Value error, ')}"
+        ) from None
+    except ValueError as exc:
+        field, _, msg = str(exc).partition(": ")
+        flag = _FLAGS.get(field.split(".")[-1], "an option")
+        raise UsageError(f"{flag}: {msg or exc}") from None
+
+
 def _parse_calibration(text):
     """--calibrate YEAR:TRAIL_YEAR:ZHR -> Calibration (a past observed outburst)."""
     if text is None:
@@ -487,6 +542,8 @@ def _parse_calibration(text):
     try:
         year, trail, zhr = text.split(":")
         cal = Calibration(int(year), int(trail), float(zhr))
+        if not math.isfinite(cal.zhr):
+            raise ValueError
     except ValueError:
         raise UsageError(
             f"--calibrate takes YEAR:TRAIL_YEAR:ZHR, e.g. 2039:1975:350, got {text!r}"
@@ -508,10 +565,20 @@ def cmd_forecast(args) -> int:
         if show:
             print(f"\r  {100 * fraction:5.1f}%  {stage:<40}", end="", file=sys.stderr, flush=True)
 
-    if orbit.solutions or orbit.covariance is not None:
-        result = forecast_solutions(orbit, options, clones=args.clones, progress=progress).to_json()
-    else:
-        result = forecast(orbit, options, progress=progress).to_json()
+    from .runner import make_local_pool
+
+    # our own pool (its workers die with this process), one for every solution
+    pool = make_local_pool(options.workers) if options.workers > 1 else None
+    try:
+        if orbit.solutions or orbit.covariance is not None:
+            result = forecast_solutions(
+                orbit, options, clones=args.clones, progress=progress, executor=pool
+            ).to_json()
+        else:
+            result = forecast(orbit, options, progress=progress, executor=pool).to_json()
+    finally:
+        if pool is not None:
+            pool.shutdown(wait=True, cancel_futures=True)
     if show:
         print(file=sys.stderr)
     if args.json:
@@ -590,7 +657,10 @@ def cmd_screen(args) -> int:
 
     from dynamics.screening import ScreeningRule, screen_batch, screening_forecast_options
 
-    from .screening import ProgressBar, ResultDir, assemble, read_batch, report_text, write_outputs
+    from .batch import read_batch
+    from .files import ResultDir
+    from .runner import make_local_pool
+    from .screening_report import ProgressBar, assemble, report_text, write_outputs
 
     if args.years is None:
         now = datetime.now(UTC).year
@@ -627,17 +697,19 @@ def cmd_screen(args) -> int:
     bar = ProgressBar(sys.stderr)
     bar.enabled = bar.enabled and not args.json
     scheduler = os.environ.get("TRAILCAST_DASK_SCHEDULER") or None
-    client = None
+    client = pool = None
     try:
         if scheduler:
             from distributed import Client
 
             client = Client(scheduler, timeout=10, set_as_default=False)
+        elif workers > 1:  # our own pool: its workers die with this process
+            pool = make_local_pool(workers)
         run = screen_batch(
             [r.orbit for r in rows if r.orbit is not None],
             rule,
             options,
-            executor=client.get_executor() if client else None,
+            executor=client.get_executor() if client else pool,
             workers=workers,
             lookup=store.lookup,
             save=store.save,
@@ -647,6 +719,8 @@ def cmd_screen(args) -> int:
         bar.close()
         if client is not None:
             client.close()
+        if pool is not None:
+            pool.shutdown(wait=True, cancel_futures=True)
     result = assemble(rows, run, rule, options, source=str(path))
     paths = write_outputs(out_dir, result)
     if args.json:

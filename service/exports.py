@@ -84,6 +84,36 @@ def flatten(obj: dict, prefix: str = "") -> dict:
     return out
 
 
+#: First characters that make a spreadsheet read a cell as a formula (OWASP, "CSV Injection").
+_FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+
+
+def csv_cell(value):
+    """A CSV cell that a spreadsheet shows as text: a string starting with ``= + - @``, a tab or
+    a carriage return gets a leading apostrophe (OWASP's advice); numbers pass unchanged, and a
+    lone surrogate becomes U+FFFD (it cannot be written as UTF-8)."""
+    if value is None:
+        return ""
+    if isinstance(value, str):
+        value = value.encode("utf-8", "replace").decode("utf-8") if _has_surrogate(value) else value
+        if value.startswith(_FORMULA_STARTS):
+            return "'" + value
+    return value
+
+
+def one_line(text: str) -> str:
+    """``text`` without line breaks, control characters or lone surrogates (for iCalendar
+    property values, which a CR or LF would end)."""
+    text = text.encode("utf-8", "replace").decode("utf-8") if _has_surrogate(text) else text
+    return "".join(
+        " " if (ord(c) < 0x20 or 0x7F <= ord(c) < 0xA0 or c in "\u2028\u2029") else c for c in text
+    )
+
+
+def _has_surrogate(text: str) -> bool:
+    return any(0xD800 <= ord(c) <= 0xDFFF for c in text)
+
+
 def encounters_csv(rows: list[dict]) -> str:
     """CSV text of flat rows: leading columns first, then every other scalar key, sorted.
 
@@ -99,7 +129,7 @@ def encounters_csv(rows: list[dict]) -> str:
     writer = csv.DictWriter(buf, fieldnames=columns, lineterminator="\r\n")
     writer.writeheader()
     for r in flat:
-        writer.writerow({k: ("" if r.get(k) is None else r.get(k)) for k in columns})
+        writer.writerow({k: csv_cell(r.get(k)) for k in columns})
     return buf.getvalue()
 
 
@@ -254,12 +284,13 @@ def encounters_ics(
     cal.add("version", "2.0")
     cal.add("calscale", "GREGORIAN")
     cal.add("method", "PUBLISH")
-    cal.add("x-wr-calname", calendar_name)
+    cal.add("x-wr-calname", one_line(calendar_name))
     cal.add(
         "x-wr-caldesc",
         "Predicted meteor-shower encounters with comet dust trails. " + " ".join(cautions),
     )
     for forecast_id, idx, parent, e, finished_utc in items:
+        parent = one_line(parent)
         start, end, note = event_window(e)
         ev = Event()
         ev.add("uid", f"{forecast_id}-{idx}@trailcast")

@@ -1,37 +1,44 @@
-"""Forecast jobs in the database: identity, queue, leases, results and the encounters index.
+"""Every kind of job in one table: identity, queue, leases, progress, results and retention.
 
-A job's id is a hash of its canonical inputs (the validated orbit, the years, every model option
-with its default filled in) and the model version, so the same question asked twice finds the
-same job, and a finished answer is served again instead of being recomputed.
+A job's id is a hash of its canonical inputs (for a forecast: the validated orbit, the years,
+every model option with its default filled in, and the model version), so the same question asked
+twice finds the same job, and a finished answer is served again instead of being recomputed.
 
 States: ``queued`` -> ``running`` -> ``done`` | ``failed`` | ``cancelled`` (a queued job can be
 cancelled directly). A running job is held by one runner (``host:pid:token``) that renews its
 heartbeat; a job whose runner died is put back in the queue (:meth:`JobStore.recover`). The
-result, its encounter rows and the move to ``done`` are one transaction.
+result, whatever its kind stores beside it (a forecast's encounter rows) and the move to ``done``
+are one transaction. What differs between kinds (how to run one, what to store beside its
+result) lives in :mod:`service.job_kinds`; this module knows nothing of forecasts or batches.
+
+While a job runs its progress stays below 1 and its stage is never ``done``: only the move to
+``done`` says so, so that state and progress never contradict each other.
 """
 
 import hashlib
 import json
-import math
 import os
 import secrets
 import socket
 import sqlite3
+from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import UTC, datetime, timedelta
-
-from dynamics import __version__
 
 from .storage import Store
 
 STATES = ("queued", "running", "done", "failed", "cancelled")
 FINAL_STATES = ("done", "failed", "cancelled")
-#: Keys of a ``zhr`` object read (in this order) as its number for the ``min_zhr`` filter.
-ZHR_KEYS = ("estimate", "peak", "value", "max", "zhr")
+#: Highest progress fraction a running job shows (the rest is storing its result).
+RUNNING_FRACTION_MAX = 0.99
+#: Stage shown instead of a computation's own "done" until the result is stored.
+STORING_STAGE = "storing the result"
+#: Problem type base (kept here so that this module needs nothing from the web layer).
+PROBLEM_TYPE_BASE = "https://trailcast.invalid/problems/"
 
 
 class JobNotFound(LookupError):
-    """No job has this id."""
+    """No job (of this kind) has this id."""
 
 
 class JobConflict(RuntimeError):
@@ -50,8 +57,9 @@ def utc_now() -> datetime:
     return datetime.now(UTC)
 
 
-def format_utc(t: datetime) -> str:
-    """ISO 8601 UTC with ``Z``, millisecond precision (sorts as text)."""
+def format_wall_utc(t: datetime) -> str:
+    """A wall-clock ``datetime`` as ISO 8601 UTC with ``Z``, millisecond precision (sorts as
+    text). Not :func:`dynamics.timescales.format_utc`, which formats TDB Julian dates."""
     return t.astimezone(UTC).isoformat(timespec="milliseconds").replace("+00:00", "Z")
 
 
@@ -59,6 +67,14 @@ def parse_utc(text: str | None) -> datetime | None:
     if text is None:
         return None
     return datetime.fromisoformat(text.replace("Z", "+00:00"))
+
+
+def seconds_between(a: str | None, b: str | None) -> float | None:
+    """Seconds from ``a`` to ``b`` (or to now when ``b`` is None); None without ``a``."""
+    if a is None:
+        return None
+    end = parse_utc(b) if b else utc_now()
+    return round((end - parse_utc(a)).total_seconds(), 3)
 
 
 def canonical_json(value) -> str:
@@ -72,7 +88,9 @@ def job_id_for(request: dict) -> str:
 
 
 def canonical_request(orbit_json: dict, first_year: int, last_year: int, options: dict) -> dict:
-    """The inputs a job's id hashes: orbit as parsed, years, options with defaults, version."""
+    """The inputs a forecast job's id hashes: orbit as parsed, years, options, version."""
+    from dynamics import __version__
+
     return {
         "orbit": orbit_json,
         "years": [int(first_year), int(last_year)],
@@ -81,32 +99,22 @@ def canonical_request(orbit_json: dict, first_year: int, last_year: int, options
     }
 
 
-def zhr_number(encounter: dict) -> float | None:
-    """The number the ``min_zhr`` filter compares, when the encounter carries a ``zhr``."""
-    z = encounter.get("zhr")
-    if isinstance(z, int | float) and not isinstance(z, bool):
-        return float(z) if math.isfinite(z) else None
-    if isinstance(z, dict):
-        for key in ZHR_KEYS:
-            v = z.get(key)
-            if isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v):
-                return float(v)
-    return None
-
-
 @dataclass(frozen=True)
 class Job:
-    """One row of ``forecast_jobs`` (with the result when asked for and present)."""
+    """One row of ``jobs`` (with the result when asked for and present)."""
 
     id: str
+    kind: str
     state: str
     request: dict
-    parent_name: str
+    label: str
     first_year: int
     last_year: int
     model_version: str
     progress_fraction: float
     progress_stage: str
+    items_done: int | None
+    items_total: int | None
     created_utc: str
     queued_utc: str
     started_utc: str | None
@@ -118,18 +126,26 @@ class Job:
     error: dict | None
     result: dict | None = None
 
+    @property
+    def parent_name(self) -> str:
+        """A forecast's parent name (its label)."""
+        return self.label
+
     @classmethod
     def from_row(cls, row: sqlite3.Row, result_json: str | None = None) -> "Job":
         return cls(
             id=row["id"],
+            kind=row["kind"],
             state=row["state"],
             request=json.loads(row["request_json"]),
-            parent_name=row["parent_name"],
+            label=row["label"],
             first_year=row["first_year"],
             last_year=row["last_year"],
             model_version=row["model_version"],
             progress_fraction=row["progress_fraction"],
             progress_stage=row["progress_stage"],
+            items_done=row["items_done"],
+            items_total=row["items_total"],
             created_utc=row["created_utc"],
             queued_utc=row["queued_utc"],
             started_utc=row["started_utc"],
@@ -141,6 +157,16 @@ class Job:
             error=json.loads(row["error_json"]) if row["error_json"] else None,
             result=json.loads(result_json) if result_json else None,
         )
+
+    def shown_progress(self) -> tuple[float, str]:
+        """(fraction, stage) as shown: 1 and ``done`` only when done, never while running."""
+        fraction = min(1.0, max(0.0, self.progress_fraction))
+        if self.state == "done":
+            return 1.0, "done"
+        if self.state == "running":
+            stage = STORING_STAGE if self.progress_stage == "done" else self.progress_stage
+            return min(fraction, RUNNING_FRACTION_MAX), stage
+        return fraction, self.progress_stage
 
 
 def new_runner_name() -> str:
@@ -158,57 +184,98 @@ def _process_alive(pid: int) -> bool:
     return True
 
 
-class JobStore:
-    """Job operations on a :class:`service.storage.Store`; every write is one transaction."""
+def _interrupted_error(attempts: int) -> str:
+    return json.dumps(
+        {
+            "type": PROBLEM_TYPE_BASE + "job-interrupted",
+            "title": "Job interrupted too often",
+            "status": 500,
+            "detail": f"the process running this job stopped {attempts} times; not retried again",
+        }
+    )
 
-    def __init__(self, store: Store):
+
+#: What a job kind stores beside its result, in the same transaction: ``(conn, job, result)``.
+ResultHook = Callable[[sqlite3.Connection, Job, dict], None]
+
+
+class JobStore:
+    """Job operations on a :class:`service.storage.Store`; every write is one transaction.
+
+    ``result_hooks`` maps a kind to what it stores beside its result (default: the hooks of
+    :mod:`service.job_kinds`).
+    """
+
+    def __init__(self, store: Store, result_hooks: dict[str, ResultHook] | None = None):
         self.store = store
+        if result_hooks is None:
+            from .job_kinds import result_hooks as default_hooks
+
+            result_hooks = default_hooks()
+        self.result_hooks = result_hooks
 
     # --- submitting and reading -------------------------------------------------------------
 
-    def submit(self, request: dict, parent_name: str, max_queued: int) -> tuple[Job, bool]:
+    def submit(
+        self,
+        request: dict,
+        label: str,
+        max_queued: int,
+        *,
+        kind: str = "forecast",
+        items_total: int | None = None,
+    ) -> tuple[Job, bool]:
         """Queue the job for ``request`` unless it exists; return it and whether it was queued.
 
-        A failed or cancelled job with the same id is queued again; a queued, running or done
-        one is returned unchanged (a done one with its result).
+        A failed or cancelled job with the same id is queued again (updated in place); a
+        queued, running or done one is returned unchanged (a done one with its result).
 
         Raises
         ------
         QueueFull
-            ``max_queued`` jobs are already waiting.
+            ``max_queued`` jobs (of any kind) are already waiting.
         """
         job_id = job_id_for(request)
-        now = format_utc(utc_now())
+        now = format_wall_utc(utc_now())
         with self.store.transaction() as conn:
-            row = conn.execute("SELECT * FROM forecast_jobs WHERE id = ?", (job_id,)).fetchone()
+            row = conn.execute("SELECT state, kind FROM jobs WHERE id = ?", (job_id,)).fetchone()
             if row is not None and row["state"] in ("queued", "running", "done"):
                 queued = False
             else:
                 waiting = conn.execute(
-                    "SELECT COUNT(*) FROM forecast_jobs WHERE state = 'queued'"
+                    "SELECT COUNT(*) FROM jobs WHERE state = 'queued'"
                 ).fetchone()[0]
                 if waiting >= max_queued:
                     raise QueueFull(f"{waiting} jobs are queued (limit {max_queued})")
                 if row is None:
                     conn.execute(
-                        "INSERT INTO forecast_jobs (id, state, request_json, parent_name, "
-                        "first_year, last_year, model_version, progress_stage, created_utc, "
-                        "queued_utc) VALUES (?, 'queued', ?, ?, ?, ?, ?, 'queued', ?, ?)",
+                        "INSERT INTO jobs (id, kind, state, request_json, label, series_key, "
+                        "first_year, last_year, model_version, progress_stage, items_done, "
+                        "items_total, created_utc, queued_utc) VALUES (?, ?, 'queued', ?, ?, "
+                        "CASE WHEN ? = 'forecast' THEN ? || char(31) || "
+                        "json_extract(?, '$.options') END, ?, ?, ?, 'queued', ?, ?, ?, ?)",
                         (
                             job_id,
+                            kind,
                             canonical_json(request),
-                            parent_name,
+                            label,
+                            kind,
+                            label,
+                            canonical_json(request),
                             request["years"][0],
                             request["years"][1],
                             request["model_version"],
+                            0 if items_total is not None else None,
+                            items_total,
                             now,
                             now,
                         ),
                     )
                 else:  # failed or cancelled before: try again from scratch
                     conn.execute(
-                        "UPDATE forecast_jobs SET state = 'queued', progress_fraction = 0, "
-                        "progress_stage = 'queued', queued_utc = ?, started_utc = NULL, "
+                        "UPDATE jobs SET state = 'queued', progress_fraction = 0, "
+                        "progress_stage = 'queued', items_done = CASE WHEN items_total IS NULL "
+                        "THEN NULL ELSE 0 END, queued_utc = ?, started_utc = NULL, "
                         "finished_utc = NULL, heartbeat_utc = NULL, runner = NULL, "
                         "attempts = 0, cancel_requested = 0, error_json = NULL WHERE id = ?",
                         (now, job_id),
@@ -216,63 +283,70 @@ class JobStore:
                 queued = True
         return self.get(job_id, with_result=True), queued
 
-    def get(self, job_id: str, with_result: bool = False) -> Job:
-        """The job (and its result when ``with_result`` and done), read in one statement."""
+    def get(self, job_id: str, with_result: bool = False, kind: str | None = None) -> Job:
+        """The job (and its result when ``with_result`` and done), read in one statement.
+
+        Raises
+        ------
+        JobNotFound
+            No job has this id, or it is not of ``kind`` (when given).
+        """
         if with_result:
             rows = self.store.query(
-                "SELECT j.*, r.result_json AS result_json FROM forecast_jobs j "
-                "LEFT JOIN forecast_results r ON r.job_id = j.id WHERE j.id = ?",
+                "SELECT j.*, r.result_json AS result_json FROM jobs j "
+                "LEFT JOIN job_results r ON r.job_id = j.id WHERE j.id = ?",
                 (job_id,),
             )
         else:
-            rows = self.store.query("SELECT * FROM forecast_jobs WHERE id = ?", (job_id,))
-        if not rows:
+            rows = self.store.query("SELECT * FROM jobs WHERE id = ?", (job_id,))
+        if not rows or (kind is not None and rows[0]["kind"] != kind):
             raise JobNotFound(job_id)
         row = rows[0]
         return Job.from_row(row, row["result_json"] if with_result else None)
 
-    def cancel(self, job_id: str) -> Job:
+    def cancel(self, job_id: str, kind: str | None = None) -> Job:
         """Cancel a queued job at once, or ask the runner of a running job to stop.
 
         Raises
         ------
         JobNotFound, JobConflict
         """
-        now = format_utc(utc_now())
+        now = format_wall_utc(utc_now())
         with self.store.transaction() as conn:
-            row = conn.execute("SELECT state FROM forecast_jobs WHERE id = ?", (job_id,)).fetchone()
-            if row is None:
+            row = conn.execute("SELECT state, kind FROM jobs WHERE id = ?", (job_id,)).fetchone()
+            if row is None or (kind is not None and row["kind"] != kind):
                 raise JobNotFound(job_id)
             if row["state"] == "queued":
                 conn.execute(
-                    "UPDATE forecast_jobs SET state = 'cancelled', progress_stage = 'cancelled', "
+                    "UPDATE jobs SET state = 'cancelled', progress_stage = 'cancelled', "
                     "finished_utc = ?, cancel_requested = 1 WHERE id = ?",
                     (now, job_id),
                 )
             elif row["state"] == "running":
-                conn.execute(
-                    "UPDATE forecast_jobs SET cancel_requested = 1 WHERE id = ?", (job_id,)
-                )
+                conn.execute("UPDATE jobs SET cancel_requested = 1 WHERE id = ?", (job_id,))
             else:
                 raise JobConflict(f"job {job_id} is {row['state']}: nothing to cancel")
         return self.get(job_id)
 
-    def counts_by_state(self) -> dict[str, int]:
+    def counts_by_state(self, kind: str | None = "forecast") -> dict[str, int]:
+        """Jobs per state (of ``kind``; every kind when None)."""
         counts = dict.fromkeys(STATES, 0)
+        where, params = ("WHERE kind = ?", (kind,)) if kind else ("", ())
         for row in self.store.query(
-            "SELECT state, COUNT(*) AS n FROM forecast_jobs GROUP BY state"
+            f"SELECT state, COUNT(*) AS n FROM jobs {where} GROUP BY state", params
         ):
             counts[row["state"]] = row["n"]
         return counts
 
-    def duration_histogram(self, buckets_s: tuple[float, ...]) -> dict:
+    def duration_histogram(self, buckets_s: tuple[float, ...], kind: str = "forecast") -> dict:
         """Run times (start to finish) of done and failed jobs: cumulative bucket counts, sum."""
         sums = ", ".join(f"SUM(d <= {float(b)!r})" for b in buckets_s)
         rows = self.store.query(
             f"SELECT state, COUNT(*) AS n, COALESCE(SUM(d), 0) AS total, {sums} FROM ("
             "SELECT state, (julianday(finished_utc) - julianday(started_utc)) * 86400.0 AS d "
-            "FROM forecast_jobs WHERE state IN ('done', 'failed') AND started_utc IS NOT NULL "
-            "AND finished_utc IS NOT NULL) GROUP BY state"
+            "FROM jobs WHERE kind = ? AND state IN ('done', 'failed') "
+            "AND started_utc IS NOT NULL AND finished_utc IS NOT NULL) GROUP BY state",
+            (kind,),
         )
         out = {}
         for row in rows:
@@ -286,109 +360,123 @@ class JobStore:
 
     # --- the runner's side ------------------------------------------------------------------
 
-    def claim_next(self, runner: str) -> Job | None:
-        """Move the oldest queued job to running, held by ``runner``; None if none waits."""
-        now = format_utc(utc_now())
+    def claim_next(self, runner: str, kinds: tuple[str, ...] | None = None) -> Job | None:
+        """Move the oldest queued job (of ``kinds``) to running, held by ``runner``."""
+        now = format_wall_utc(utc_now())
+        where, params = "state = 'queued'", []
+        if kinds is not None:
+            where += f" AND kind IN ({', '.join('?' * len(kinds))})"
+            params.extend(kinds)
         with self.store.transaction() as conn:
             row = conn.execute(
-                "SELECT id FROM forecast_jobs WHERE state = 'queued' "
-                "ORDER BY queued_utc, id LIMIT 1"
+                f"SELECT id FROM jobs WHERE {where} ORDER BY queued_utc, id LIMIT 1", params
             ).fetchone()
             if row is None:
                 return None
             conn.execute(
-                "UPDATE forecast_jobs SET state = 'running', runner = ?, started_utc = ?, "
+                "UPDATE jobs SET state = 'running', runner = ?, started_utc = ?, "
                 "heartbeat_utc = ?, attempts = attempts + 1, progress_fraction = 0, "
+                "items_done = CASE WHEN items_total IS NULL THEN NULL ELSE 0 END, "
                 "progress_stage = 'starting' WHERE id = ?",
                 (runner, now, now, row["id"]),
             )
         return self.get(row["id"])
 
     def heartbeat(
-        self, job_id: str, runner: str, fraction: float | None = None, stage: str | None = None
+        self,
+        job_id: str,
+        runner: str,
+        fraction: float | None = None,
+        stage: str | None = None,
+        items_done: int | None = None,
     ) -> bool:
         """Renew the lease (and record progress); return True when cancellation was asked.
+
+        A running job's fraction is held below 1 and its stage is never ``done`` (the move to
+        ``done`` in :meth:`finish_done` says that).
 
         Raises
         ------
         LeaseLost
             The job is no longer running under ``runner``.
         """
-        now = format_utc(utc_now())
+        now = format_wall_utc(utc_now())
         with self.store.transaction() as conn:
             if fraction is None:
                 cur = conn.execute(
-                    "UPDATE forecast_jobs SET heartbeat_utc = ? "
+                    "UPDATE jobs SET heartbeat_utc = ? "
                     "WHERE id = ? AND state = 'running' AND runner = ?",
                     (now, job_id, runner),
                 )
             else:
+                stage = STORING_STAGE if stage == "done" else (stage or "")
                 cur = conn.execute(
-                    "UPDATE forecast_jobs SET heartbeat_utc = ?, progress_fraction = ?, "
-                    "progress_stage = ? WHERE id = ? AND state = 'running' AND runner = ?",
-                    (now, float(fraction), stage or "", job_id, runner),
+                    "UPDATE jobs SET heartbeat_utc = ?, progress_fraction = ?, "
+                    "progress_stage = ?, items_done = COALESCE(?, items_done) "
+                    "WHERE id = ? AND state = 'running' AND runner = ?",
+                    (
+                        now,
+                        min(max(float(fraction), 0.0), RUNNING_FRACTION_MAX),
+                        stage,
+                        items_done,
+                        job_id,
+                        runner,
+                    ),
                 )
             if cur.rowcount != 1:
                 raise LeaseLost(job_id)
             row = conn.execute(
-                "SELECT cancel_requested FROM forecast_jobs WHERE id = ?", (job_id,)
+                "SELECT cancel_requested FROM jobs WHERE id = ?", (job_id,)
             ).fetchone()
         return bool(row["cancel_requested"])
 
     def finish_done(self, job_id: str, runner: str, result: dict) -> bool:
-        """Store the result, its encounter rows and the state ``done`` in one transaction.
+        """Store the result, what its kind keeps beside it and the state ``done`` at once.
 
         Returns False (and writes nothing) when ``runner`` no longer holds the job.
         """
-        now = format_utc(utc_now())
-        parent = str(result.get("parent", {}).get("name", ""))
+        now = format_wall_utc(utc_now())
         with self.store.transaction() as conn:
             cur = conn.execute(
-                "UPDATE forecast_jobs SET state = 'done', finished_utc = ?, heartbeat_utc = ?, "
-                "progress_fraction = 1.0, progress_stage = 'done', error_json = NULL "
-                "WHERE id = ? AND state = 'running' AND runner = ?",
+                "UPDATE jobs SET state = 'done', finished_utc = ?, heartbeat_utc = ?, "
+                "progress_fraction = 1.0, progress_stage = 'done', items_done = items_total, "
+                "error_json = NULL WHERE id = ? AND state = 'running' AND runner = ?",
                 (now, now, job_id, runner),
             )
             if cur.rowcount != 1:
                 return False
             conn.execute(
-                "INSERT INTO forecast_results (job_id, result_json, stored_utc) VALUES (?, ?, ?)",
+                "INSERT OR REPLACE INTO job_results (job_id, result_json, stored_utc) "
+                "VALUES (?, ?, ?)",
                 (job_id, json.dumps(result, allow_nan=False), now),
             )
-            conn.executemany(
-                "INSERT INTO forecast_encounters (job_id, idx, parent_name, peak_utc, zhr, "
-                "encounter_json) VALUES (?, ?, ?, ?, ?, ?)",
-                [
-                    (
-                        job_id,
-                        k,
-                        parent,
-                        format_utc(parse_utc(e["peak_utc"])),  # one format: sorts as text
-                        zhr_number(e),
-                        json.dumps(e),
-                    )
-                    for k, e in enumerate(result.get("encounters", []))
-                ],
+            job = Job.from_row(
+                conn.execute("SELECT * FROM jobs WHERE id = ?", (job_id,)).fetchone()
             )
+            hook = self.result_hooks.get(job.kind)
+            if hook is not None:
+                hook(conn, job, result)
         return True
 
     def finish(self, job_id: str, runner: str, state: str, error: dict | None = None) -> bool:
         """End a job held by ``runner`` as ``failed`` or ``cancelled``."""
-        now = format_utc(utc_now())
+        now = format_wall_utc(utc_now())
         with self.store.transaction() as conn:
             cur = conn.execute(
-                "UPDATE forecast_jobs SET state = ?, finished_utc = ?, progress_stage = ?, "
+                "UPDATE jobs SET state = ?, finished_utc = ?, progress_stage = ?, "
                 "error_json = ? WHERE id = ? AND state = 'running' AND runner = ?",
                 (state, now, state, json.dumps(error) if error else None, job_id, runner),
             )
         return cur.rowcount == 1
 
     def release(self, job_id: str, runner: str, stage: str, count_attempt: bool = False) -> bool:
-        """Put a job held by ``runner`` back in the queue (shutdown, lost worker)."""
+        """Put a job held by ``runner`` back in the queue (shutdown: the attempt does not count;
+        a dead worker pool: ``count_attempt``, so that a job that kills its workers ends)."""
         with self.store.transaction() as conn:
             cur = conn.execute(
-                "UPDATE forecast_jobs SET state = 'queued', runner = NULL, heartbeat_utc = NULL, "
+                "UPDATE jobs SET state = 'queued', runner = NULL, heartbeat_utc = NULL, "
                 "started_utc = NULL, progress_fraction = 0, progress_stage = ?, "
+                "items_done = CASE WHEN items_total IS NULL THEN NULL ELSE 0 END, "
                 "attempts = attempts - ? WHERE id = ? AND state = 'running' AND runner = ?",
                 (stage, 0 if count_attempt else 1, job_id, runner),
             )
@@ -403,47 +491,36 @@ class JobStore:
         """
         host, pid, _token = me.rsplit(":", 2)
         now = utc_now()
-        stale_before = format_utc(now - timedelta(seconds=lease_seconds))
+        stale_before = format_wall_utc(now - timedelta(seconds=lease_seconds))
         requeued = []
         with self.store.transaction() as conn:
             rows = conn.execute(
-                "SELECT id, runner, heartbeat_utc, attempts FROM forecast_jobs "
-                "WHERE state = 'running'"
+                "SELECT id, runner, heartbeat_utc, attempts FROM jobs WHERE state = 'running'"
             ).fetchall()
             for row in rows:
                 owner = row["runner"] or "::"
-                o_host, o_pid, _o_token = (owner.rsplit(":", 2) + ["", ""])[:3]
-                gone = False
                 if owner == me:
                     continue
-                if o_host == host and o_pid.isdigit():
-                    gone = o_pid == pid or not _process_alive(int(o_pid))
-                if not gone and (row["heartbeat_utc"] or "") < stale_before:
-                    gone = True
+                o_host, o_pid, _o_token = (owner.rsplit(":", 2) + ["", ""])[:3]
+                gone = (
+                    o_host == host
+                    and o_pid.isdigit()
+                    and (o_pid == pid or not _process_alive(int(o_pid)))
+                )
+                gone = gone or (row["heartbeat_utc"] or "") < stale_before
                 if not gone:
                     continue
                 if row["attempts"] >= max_attempts:
                     conn.execute(
-                        "UPDATE forecast_jobs SET state = 'failed', finished_utc = ?, "
+                        "UPDATE jobs SET state = 'failed', finished_utc = ?, "
                         "progress_stage = 'failed', error_json = ? WHERE id = ?",
-                        (
-                            format_utc(now),
-                            json.dumps(
-                                {
-                                    "type": "https://trailcast.invalid/problems/job-interrupted",
-                                    "title": "Job interrupted too often",
-                                    "status": 500,
-                                    "detail": f"the process running this job stopped "
-                                    f"{row['attempts']} times; not retried again",
-                                }
-                            ),
-                            row["id"],
-                        ),
+                        (format_wall_utc(now), _interrupted_error(row["attempts"]), row["id"]),
                     )
                 else:
                     conn.execute(
-                        "UPDATE forecast_jobs SET state = 'queued', runner = NULL, "
-                        "heartbeat_utc = NULL, started_utc = NULL, progress_fraction = 0, "
+                        "UPDATE jobs SET state = 'queued', runner = NULL, heartbeat_utc = NULL, "
+                        "started_utc = NULL, progress_fraction = 0, "
+                        "items_done = CASE WHEN items_total IS NULL THEN NULL ELSE 0 END, "
                         "progress_stage = 'queued (re-queued after an interruption)' "
                         "WHERE id = ?",
                         (row["id"],),
@@ -451,39 +528,23 @@ class JobStore:
                     requeued.append(row["id"])
         return requeued
 
-    # --- encounters across forecasts ----------------------------------------------------------
-
-    def encounters(
-        self,
-        from_utc: str | None,
-        to_utc: str | None,
-        parent: str | None,
-        min_zhr: float | None,
-        after: tuple[str, str, int] | None,
-        limit: int,
-    ) -> list[sqlite3.Row]:
-        """Stored encounters ordered by peak time, filtered, after the cursor, at most limit."""
-        where, params = [], []
-        if from_utc is not None:
-            where.append("e.peak_utc >= ?")
-            params.append(from_utc)
-        if to_utc is not None:
-            where.append("e.peak_utc <= ?")
-            params.append(to_utc)
-        if parent:
-            escaped = parent.replace("\\", "\\\\").replace("%", "\\%").replace("_", "\\_")
-            where.append("e.parent_name LIKE ? ESCAPE '\\'")
-            params.append(f"%{escaped}%")
-        if min_zhr is not None:
-            where.append("(e.zhr IS NULL OR e.zhr >= ?)")
-            params.append(min_zhr)
-        if after is not None:
-            where.append("(e.peak_utc, e.job_id, e.idx) > (?, ?, ?)")
-            params.extend(after)
-        sql = (
-            "SELECT e.job_id, e.idx, e.parent_name, e.peak_utc, e.encounter_json, "
-            "j.finished_utc FROM forecast_encounters e JOIN forecast_jobs j ON j.id = e.job_id "
-            + ("WHERE " + " AND ".join(where) if where else "")
-            + " ORDER BY e.peak_utc, e.job_id, e.idx LIMIT ?"
-        )
-        return self.store.query(sql, (*params, int(limit)))
+    def prune(self, max_age_days: float | None, max_finished: int | None) -> int:
+        """Delete finished jobs (with their results) older than ``max_age_days`` or beyond the
+        newest ``max_finished``; queued and running jobs are never touched. Returns how many."""
+        deleted = 0
+        with self.store.transaction() as conn:
+            if max_age_days is not None:
+                before = format_wall_utc(utc_now() - timedelta(days=max_age_days))
+                deleted += conn.execute(
+                    "DELETE FROM jobs WHERE state IN ('done', 'failed', 'cancelled') "
+                    "AND finished_utc < ?",
+                    (before,),
+                ).rowcount
+            if max_finished is not None:
+                deleted += conn.execute(
+                    "DELETE FROM jobs WHERE id IN (SELECT id FROM jobs WHERE state IN "
+                    "('done', 'failed', 'cancelled') ORDER BY finished_utc DESC, id DESC "
+                    "LIMIT -1 OFFSET ?)",
+                    (int(max_finished),),
+                ).rowcount
+        return deleted

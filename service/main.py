@@ -23,7 +23,6 @@ from .routers import (
     system,
 )
 from .runner import JobRunner
-from .screening import ScreeningJobStore, ScreeningRunner
 from .security import require_token
 from .settings import Settings, get_settings
 from .storage import Store
@@ -146,17 +145,14 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         store = Store(settings.database_path)
         app.state.store = store
         app.state.db = store.conn
-        app.state.jobs = JobStore(store)
+        app.state.jobs = JobStore(store)  # every kind of job: forecasts, screenings
         app.state.runner = JobRunner(app.state.jobs, settings)
         app.state.runner.start()
-        app.state.screenings = ScreeningJobStore(store)
-        app.state.screening_runner = ScreeningRunner(app.state.screenings, settings)
-        app.state.screening_runner.start()
         try:
             yield
         finally:
-            app.state.screening_runner.stop()
             app.state.runner.stop()
+            geometry.close_workers(app)
             store.close()
 
     # /docs (Swagger UI) and /redoc from the assets that the fastapi-offline package installs,

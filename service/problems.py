@@ -1,5 +1,6 @@
 """RFC 9457 problem details: every error the service returns is ``application/problem+json``."""
 
+import re
 from typing import Any
 
 from fastapi import FastAPI, Request
@@ -9,6 +10,8 @@ from pydantic import BaseModel, ConfigDict, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from dynamics.errors import InvalidOrbit, InvalidTime, OutsideTimeSpan, TrailcastError
+
+from .models.common import LimitExceeded
 
 PROBLEM_MEDIA_TYPE = "application/problem+json"
 _TYPE_BASE = "https://trailcast.invalid/problems/"  # stable identifiers, not fetched
@@ -125,21 +128,27 @@ def install_problem_handlers(app: FastAPI) -> None:
     async def _trailcast_error(request: Request, exc: TrailcastError):
         return problem(422, "Cannot compute", str(exc), _TYPE_BASE + "computation")
 
+    @app.exception_handler(LimitExceeded)
+    async def _limit(request: Request, exc: LimitExceeded):
+        return problem(
+            422, "Limit exceeded", str(exc), _TYPE_BASE + "limit-exceeded", field=exc.field
+        )
+
     @app.exception_handler(RequestValidationError)
     async def _validation(request: Request, exc: RequestValidationError):
-        errors = exc.errors()
-        first = errors[0] if errors else {}
-        field = ".".join(str(p) for p in first.get("loc", ())[1:]) or "body"
+        # A route that needs the token says 401 before looking at the body.
+        denied = token_problem(request)
+        if denied is not None:
+            return denied
+        errors = [_error_entry(e) for e in exc.errors()]
+        first = errors[0] if errors else {"field": "body", "message": "invalid"}
         return problem(
             422,
             "Invalid request",
-            f"{field}: {first.get('msg', 'invalid')}",
+            f"{first['field']}: {first['message']}",
             _TYPE_BASE + "invalid-request",
-            field=field,
-            errors=[
-                {"field": ".".join(str(p) for p in e.get("loc", ())[1:]), "message": e.get("msg")}
-                for e in errors
-            ],
+            field=first["field"],
+            errors=errors,
         )
 
     @app.exception_handler(StarletteHTTPException)
@@ -155,6 +164,53 @@ def install_problem_handlers(app: FastAPI) -> None:
     async def _unexpected(request: Request, exc: Exception):
         # Logged by the server; the client gets a problem, never a traceback.
         return problem(500, "Internal Server Error", "unexpected error; see the server log")
+
+
+def _error_entry(e: dict) -> dict:
+    """One validation error as ``{"field", "message"}``; a body that is not JSON at all names
+    the body and the character where reading stopped (not the position as a "field")."""
+    loc = tuple(e.get("loc", ()))
+    if e.get("type") == "json_invalid":
+        pos = loc[1] if len(loc) > 1 else None
+        reason = (e.get("ctx") or {}).get("error", "not valid JSON")
+        where = f" at character {pos}" if isinstance(pos, int) else ""
+        return {"field": "body", "message": f"the body is not valid JSON ({reason}{where})"}
+    field = ".".join(str(p) for p in loc[1:]) or "body"
+    msg = str(e.get("msg", "invalid"))
+    if msg.startswith("Value error, "):
+        msg = msg[len("Value error, ") :]
+        # a check over several keys names its field first: "years: last precedes first"
+        named = _NAMED_MESSAGE.match(msg)
+        if named:
+            inner, msg = named.groups()
+            field = inner if field == "body" else f"{field}.{inner}"
+    return {"field": field, "message": msg}
+
+
+_NAMED_MESSAGE = re.compile(r"^([A-Za-z_][\w.]*): (.+)$", re.S)
+
+
+def token_problem(request: Request):
+    """The 401 problem when this request changes state and lacks the server's token, else None."""
+    from .security import token_ok
+
+    settings = getattr(request.app.state, "settings", None)
+    if request.method not in ("POST", "DELETE") or settings is None or not settings.api_token:
+        return None
+    if token_ok(request.headers.get("authorization"), settings.api_token):
+        return None
+    return problem(
+        401,
+        "Unauthorized",
+        UNAUTHORIZED_DETAIL,
+        _TYPE_BASE + "unauthorized",
+        headers={"WWW-Authenticate": 'Bearer realm="trailcast"'},
+    )
+
+
+UNAUTHORIZED_DETAIL = (
+    "this route needs the header 'Authorization: Bearer <token>' with the server's token"
+)
 
 
 def _title(status: int) -> str:

@@ -1,28 +1,37 @@
-"""The job runner: threads in the service process that take queued forecasts and run them.
+"""The job runner: threads in the service process that take queued jobs of every kind and run them.
 
-Each of ``settings.job_runners`` threads claims the oldest queued job, runs
-:func:`dynamics.forecast.forecast` (its particle chunks go to a local spawn-based process pool
-with ``settings.forecast_workers`` processes, or to a Dask cluster when
-``settings.dask_scheduler`` is set) and stores the result in one transaction. The forecast's
-progress callback records progress, renews the job's lease and raises to stop the forecast when
-the job was cancelled or the service is shutting down. A job interrupted by a shutdown goes back
-to the queue; one whose process died is re-queued by :meth:`JobStore.recover` at the next
-start-up (or by any other live process once its lease has expired).
+Each of ``settings.job_runners`` threads claims the oldest queued job (forecast, screening ...),
+runs it through its kind's module (:mod:`service.job_kinds`) with the shared executor (a local
+spawn-based process pool with ``settings.forecast_workers`` processes whose workers die with this
+process, or a Dask cluster when ``settings.dask_scheduler`` is set) and stores the result in one
+transaction. What every kind shares lives here, once:
+
+- progress: the kind reports ``(fraction, stage[, items_done])`` through :class:`RunContext`;
+  each report renews the lease, and raises to stop the computation when the job was cancelled,
+  ran past ``settings.job_max_seconds`` or the service is shutting down; computations that run
+  long between reports ask ``RunContext.should_stop`` (the parent-history integration does);
+- a heartbeat thread renews the lease while a chunk runs, and notices cancellation;
+- a dead worker pool (``BrokenProcessPool``) is replaced and the job re-queued (the attempt
+  counts, so a job that keeps killing its workers ends as failed);
+- a shutdown puts the running job back in the queue; a job whose process died is re-queued by
+  :meth:`JobStore.recover` at the next start-up (or by any live process once its lease expired);
+- retention: finished jobs older than ``settings.job_retention_days`` or beyond the newest
+  ``settings.job_retention_count`` are deleted now and then.
 """
 
 import concurrent.futures as cf
 import logging
 import multiprocessing
+import os
 import threading
 import time
 import traceback
 from concurrent.futures.process import BrokenProcessPool
-from dataclasses import replace
 
-from dynamics.errors import TrailcastError
+from dynamics.errors import ComputationStopped, TrailcastError
+from dynamics.workers import die_with_parent
 
-from .jobs import Job, JobStore, LeaseLost, new_runner_name
-from .problems import TYPE_BASE
+from .jobs import PROBLEM_TYPE_BASE, Job, JobStore, LeaseLost, new_runner_name
 from .settings import Settings
 
 log = logging.getLogger("trailcast.runner")
@@ -31,9 +40,8 @@ log = logging.getLogger("trailcast.runner")
 PROGRESS_WRITE_INTERVAL_S = 0.25
 #: Pause before the next job after the workers could not be reached (s).
 WORKERS_RETRY_S = 5.0
-#: Most particle crossings stored per trail crossing (evenly thinned beyond that): enough to
-#: draw every meteoroid of the default 300-particle budget, small enough to keep results compact.
-MAX_STORED_CROSSINGS_PER_TRAIL = 500
+#: Interval between two retention sweeps (s); no source: old jobs may wait that long.
+RETENTION_INTERVAL_S = 600.0
 
 
 class JobCancelled(Exception):
@@ -44,111 +52,33 @@ class ShuttingDown(Exception):
     """Raised from the progress callback: the service is stopping; the job is re-queued."""
 
 
-def ejection_model(o: dict):
-    """The EjectionModel a canonical request's ``options`` describe (forecasts and screenings)."""
-    from dynamics.release import EjectionModel
+class JobTimedOut(Exception):
+    """Raised from the progress callback: the job ran past ``settings.job_max_seconds``."""
 
-    return replace(
-        EjectionModel(),
-        speed_law=o["speed_law"],
-        mass_index=o["mass_index"],
-        meteoroid_density_g_cm3=o["meteoroid_density_g_cm3"],
-        nucleus_radius_km=o["nucleus_radius_km"],
+
+def make_local_pool(workers: int) -> cf.ProcessPoolExecutor:
+    """A spawn-based process pool (safe under a threaded server) whose workers die with us."""
+    ctx = multiprocessing.get_context("spawn")
+    return cf.ProcessPoolExecutor(
+        max_workers=workers,
+        mp_context=ctx,
+        initializer=die_with_parent,
+        initargs=(os.getpid(),),
     )
 
 
-def forecast_inputs(job: Job, workers: int):
-    """The (OrbitInput, ForecastOptions) a job's canonical request describes."""
-    from dynamics.forecast import Calibration, ForecastOptions
-    from dynamics.orbit_input import parse_orbit
+def kill_pool(pool: cf.ProcessPoolExecutor) -> None:
+    """Stop a local pool now, running tasks included (their results are no longer wanted).
 
-    req = job.request
-    o = req["options"]
-    orbit = parse_orbit(req["orbit"])
-    options = ForecastOptions(
-        first_year=req["years"][0],
-        last_year=req["years"][1],
-        particles=o["particles"],
-        seed=o["seed"],
-        trails=tuple(o["trails"]) if o["trails"] is not None else None,
-        max_trail_age_years=o["max_trail_age_years"],
-        integrator=o["integrator"],
-        workers=workers,
-        ejection=ejection_model(o),
-        dust_mass_per_return_g=o.get("dust_mass_per_return_g"),
-        calibration=Calibration(**o["calibration"]) if o.get("calibration") else None,
-    )
-    return orbit, options
-
-
-def solution_particle_crossings(computed) -> list[dict]:
-    """:func:`particle_crossings` for a multi-solution result, indexed like its merged lists."""
-    per_solution = [particle_crossings(r, r.to_json()) for r in computed.results]
-    out = []
-    for kind, key in (("encounter", "encounters"), ("near_miss", "near_misses")):
-        for m, (si, k, row) in enumerate(computed.merged_rows(key)):
-            for item in per_solution[si]:
-                if item["kind"] == kind and item["index"] == k:
-                    out.append(dict(item, index=m, solution=row["solution"]))
-    return out
-
-
-def particle_crossings(computed, result_json: dict) -> list[dict]:
-    """Each trail crossing's simulated meteoroids, compact, for the dashboard's charts.
-
-    One item per encounter and near miss (``kind`` and ``index`` point into the result's
-    ``encounters`` / ``near_misses``), with the meteoroids behind it: when Earth passes each one's
-    node (``t_earth_utc``), the solar longitude then (deg, geometric J2000), the signed miss
-    distance (au, meteoroid minus Earth) and the radiant (RA/Dec deg, J2000). Meteoroids without
-    a crossing are left out; above :data:`MAX_STORED_CROSSINGS_PER_TRAIL` they are evenly thinned.
+    ``ProcessPoolExecutor`` has no public way to stop a task that already runs, so its worker
+    processes are killed; the pool is then broken and must not be used again.
     """
-    import numpy as np
-
-    from dynamics.timescales import format_utc
-
-    out = []
-    for kind, key, group in (
-        ("encounter", "encounters", computed.encounters),
-        ("near_miss", "near_misses", computed.near_misses),
-    ):
-        for k, enc in enumerate(group):
-            c = enc.crossings
-            ok = np.all(
-                np.isfinite(
-                    [
-                        c.t_earth_tdb_jd,
-                        c.miss_distance_au,
-                        c.solar_longitude_deg,
-                        c.ra_deg,
-                        c.dec_deg,
-                    ]
-                ),
-                axis=0,
-            )
-            idx = np.flatnonzero(ok)
-            if len(idx) > MAX_STORED_CROSSINGS_PER_TRAIL:
-                pick = np.linspace(0, len(idx) - 1, MAX_STORED_CROSSINGS_PER_TRAIL)
-                idx = idx[np.unique(pick.round().astype(int))]
-            trail = result_json[key][k]["trail"]
-            out.append(
-                {
-                    "kind": kind,
-                    "index": k,
-                    "year": enc.year,
-                    "perihelion_year": trail["perihelion_year"],
-                    "revolutions": trail["revolutions"],
-                    "t_earth_utc": [
-                        str(t) for t in np.atleast_1d(format_utc(c.t_earth_tdb_jd[idx]))
-                    ]
-                    if len(idx)
-                    else [],
-                    "solar_longitude_deg": np.round(c.solar_longitude_deg[idx], 5).tolist(),
-                    "miss_distance_au": np.round(c.miss_distance_au[idx], 7).tolist(),
-                    "ra_deg": np.round(c.ra_deg[idx], 3).tolist(),
-                    "dec_deg": np.round(c.dec_deg[idx], 3).tolist(),
-                }
-            )
-    return out
+    for proc in list((getattr(pool, "_processes", None) or {}).values()):
+        try:
+            proc.kill()
+        except (OSError, AttributeError):
+            pass
+    pool.shutdown(wait=False, cancel_futures=True)
 
 
 class Executors:
@@ -172,17 +102,18 @@ class Executors:
             if self.settings.forecast_workers <= 1:
                 return None
             if self._pool is None:
-                ctx = multiprocessing.get_context("spawn")  # safe under a threaded server
-                self._pool = cf.ProcessPoolExecutor(
-                    max_workers=self.settings.forecast_workers, mp_context=ctx
-                )
+                self._pool = make_local_pool(self.settings.forecast_workers)
             return self._pool
 
-    def discard_pool(self) -> None:
-        """Forget a broken local pool (a worker process died); the next job makes a new one."""
+    def discard_pool(self, kill: bool = False) -> None:
+        """Forget the local pool (broken: a worker died; or ``kill``: its running tasks belong
+        to a cancelled or timed-out job and are stopped); the next job makes a new one."""
         with self._lock:
             if self._pool is not None:
-                self._pool.shutdown(wait=False, cancel_futures=True)
+                if kill:
+                    kill_pool(self._pool)
+                else:
+                    self._pool.shutdown(wait=False, cancel_futures=True)
                 self._pool = None
 
     def _dask_client(self):
@@ -216,29 +147,77 @@ class Executors:
                 self._client = None
 
 
-class JobRunner:
-    """``settings.job_runners`` threads running queued jobs; start with :meth:`start`."""
+class RunContext:
+    """What a job kind's ``run`` gets: the executor, progress reporting and the stop checks."""
 
-    def __init__(self, jobs: JobStore, settings: Settings):
+    def __init__(self, runner: "JobRunner", job: Job, executor):
+        self.runner = runner
+        self.job = job
+        self.executor = executor
+        self.store = runner.jobs.store
+        self.workers = runner.settings.forecast_workers
+        self.cancel_seen = threading.Event()
+        self.deadline = time.monotonic() + runner.settings.job_max_seconds
+        self._last_t = 0.0
+        self._last_stage: str | None = None
+
+    def check(self) -> None:
+        """Raise when the job must stop: shutdown, cancellation or its time limit."""
+        if self.runner._stop.is_set():
+            raise ShuttingDown
+        if self.cancel_seen.is_set():
+            raise JobCancelled
+        if time.monotonic() > self.deadline:
+            raise JobTimedOut
+
+    def should_stop(self) -> bool:
+        """For computations that poll (no exception of ours may cross them)."""
+        try:
+            self.check()
+        except (ShuttingDown, JobCancelled, JobTimedOut):
+            return True
+        return False
+
+    def progress(self, fraction: float, stage: str, items_done: int | None = None) -> None:
+        """Record progress (at most every :data:`PROGRESS_WRITE_INTERVAL_S` unless the stage
+        changes); raise to stop the job (see :meth:`check`)."""
+        self.check()
+        now = time.monotonic()
+        if stage != self._last_stage or now - self._last_t >= PROGRESS_WRITE_INTERVAL_S:
+            self._last_t, self._last_stage = now, stage
+            if self.runner.jobs.heartbeat(
+                self.job.id, self.runner.name, fraction, stage, items_done
+            ):
+                self.cancel_seen.set()
+        self.check()
+
+
+class JobRunner:
+    """``settings.job_runners`` threads running queued jobs of every kind; :meth:`start`."""
+
+    def __init__(self, jobs: JobStore, settings: Settings, kinds=None):
+        from .job_kinds import kinds as all_kinds
+
         self.jobs = jobs
         self.settings = settings
+        self.kinds = kinds if kinds is not None else all_kinds()
         self.name = new_runner_name()
         self.executors = Executors(settings)
         self._stop = threading.Event()
         self._wake = threading.Event()
         self._threads: list[threading.Thread] = []
-        self._running: set[str] = set()
-        self._running_lock = threading.Lock()
 
     # --- lifecycle ---------------------------------------------------------------------------
 
     def start(self) -> list[str]:
-        """Re-queue jobs whose process died, then start the runner threads; return re-queued ids."""
+        """Re-queue jobs whose process died, apply retention, start the runner threads; return
+        the re-queued ids."""
         requeued = self.jobs.recover(
             self.name, self.settings.job_lease_seconds, self.settings.max_job_attempts
         )
         if requeued:
             log.warning("re-queued %d interrupted job(s): %s", len(requeued), ", ".join(requeued))
+        self.apply_retention()
         for k in range(self.settings.job_runners):
             t = threading.Thread(target=self._loop, name=f"trailcast-runner-{k}", daemon=True)
             t.start()
@@ -261,10 +240,21 @@ class JobRunner:
     def alive(self) -> bool:
         return all(t.is_alive() for t in self._threads)
 
+    def apply_retention(self) -> int:
+        """Delete finished jobs beyond the retention settings; return how many."""
+        try:
+            n = self.jobs.prune(self.settings.job_retention_days, self.settings.job_retention_count)
+        except Exception:  # noqa: BLE001 - a busy database: the next sweep will do
+            log.exception("retention sweep failed")
+            return 0
+        if n:
+            log.info("retention: deleted %d finished job(s)", n)
+        return n
+
     # --- work --------------------------------------------------------------------------------
 
     def _loop(self) -> None:
-        last_recover = time.monotonic()
+        last_recover = last_retention = time.monotonic()
         poll_s = min(1.0, self.settings.job_lease_seconds / 4)
         while not self._stop.is_set():
             try:
@@ -275,7 +265,10 @@ class JobRunner:
                         self.settings.max_job_attempts,
                     )
                     last_recover = time.monotonic()
-                job = self.jobs.claim_next(self.name)
+                if time.monotonic() - last_retention > RETENTION_INTERVAL_S:
+                    self.apply_retention()
+                    last_retention = time.monotonic()
+                job = self.jobs.claim_next(self.name, tuple(self.kinds))
             except Exception:  # noqa: BLE001 - the database may be busy; try again
                 log.exception("job queue not readable")
                 job = None
@@ -286,69 +279,53 @@ class JobRunner:
             self._run(job)
 
     def _run(self, job: Job) -> None:
-        from dynamics.forecast import forecast
-        from dynamics.uncertainty import forecast_solutions
-
-        log.info("job %s: started (attempt %d)", job.id, job.attempts)
-        with self._running_lock:
-            self._running.add(job.id)
-        beat_stop = threading.Event()
-        cancel_seen = threading.Event()
-        beat = threading.Thread(
-            target=self._heartbeat, args=(job.id, beat_stop, cancel_seen), daemon=True
-        )
-        beat.start()
-        last = {"t": 0.0, "stage": None}
-
-        def progress(fraction: float, stage: str) -> None:
-            if self._stop.is_set():
-                raise ShuttingDown
-            now = time.monotonic()
-            if stage != last["stage"] or now - last["t"] >= PROGRESS_WRITE_INTERVAL_S:
-                last["t"], last["stage"] = now, stage
-                if self.jobs.heartbeat(job.id, self.name, fraction, stage):
-                    raise JobCancelled
-            if cancel_seen.is_set():
-                raise JobCancelled
-
+        kind = self.kinds[job.kind]
+        log.info("%s job %s: started (attempt %d)", job.kind, job.id, job.attempts)
         try:
             executor = self.executors.get()
         except Exception as exc:  # noqa: BLE001 - e.g. the Dask scheduler is unreachable
             log.error("job %s: no workers: %s", job.id, exc)
-            beat_stop.set()
             if job.attempts < self.settings.max_job_attempts:
                 self.jobs.release(job.id, self.name, f"queued (workers unreachable: {exc})", True)
                 self._stop.wait(WORKERS_RETRY_S)
             else:
                 self._fail(job, 503, "Workers unreachable", str(exc))
-            with self._running_lock:
-                self._running.discard(job.id)
             return
+        ctx = RunContext(self, job, executor)
+        beat_stop = threading.Event()
+        beat = threading.Thread(
+            target=self._heartbeat, args=(job.id, beat_stop, ctx.cancel_seen), daemon=True
+        )
+        beat.start()
         try:
-            orbit, options = forecast_inputs(job, self.settings.forecast_workers)
-            if orbit.solutions or orbit.covariance is not None:
-                clones = job.request["options"].get("clones", 5)
-                computed = forecast_solutions(
-                    orbit, options, clones=clones, progress=progress, executor=executor
-                )
-                result = computed.to_json()
-                result["particle_crossings"] = solution_particle_crossings(computed)
-            else:
-                computed = forecast(orbit, options, progress=progress, executor=executor)
-                result = computed.to_json()
-                result["particle_crossings"] = particle_crossings(computed, result)
-            if self._stop.is_set():
-                raise ShuttingDown
+            try:
+                result = kind.run(job, ctx)
+            except ComputationStopped:
+                ctx.check()  # says why: shutdown, cancellation or the time limit
+                raise
+            # computed: stored even if a stop came in the last instant (storing takes little)
             if self.jobs.finish_done(job.id, self.name, result):
                 log.info("job %s: done", job.id)
             else:
                 log.warning("job %s: finished but no longer held by this runner", job.id)
         except JobCancelled:
+            self._stop_local_work(executor)
             self.jobs.finish(job.id, self.name, "cancelled")
             log.info("job %s: cancelled", job.id)
         except ShuttingDown:
             self.jobs.release(job.id, self.name, "queued (re-queued at shutdown)")
             log.info("job %s: re-queued at shutdown", job.id)
+        except JobTimedOut:
+            self._stop_local_work(executor)
+            self._fail(
+                job,
+                422,
+                "Time limit exceeded",
+                f"the job ran longer than this server allows "
+                f"({self.settings.job_max_seconds:g} s); ask for fewer years, trails or "
+                "meteoroids",
+                kind_="time-limit",
+            )
         except LeaseLost:
             log.warning("job %s: lease lost; another runner has it", job.id)
         except BrokenProcessPool:
@@ -357,32 +334,44 @@ class JobRunner:
                 self.jobs.release(
                     job.id, self.name, "queued (a worker process died)", count_attempt=True
                 )
+                log.warning("job %s: a worker process died; re-queued", job.id)
             else:
                 self._fail(job, 500, "Worker process died", "a worker process died repeatedly")
         except TrailcastError as exc:
             self._fail(job, 422, "Cannot compute", str(exc))
         except Exception as exc:  # noqa: BLE001 - a job must never take the runner down
             log.error("job %s failed:\n%s", job.id, traceback.format_exc())
-            self._fail(job, 500, "Forecast failed", f"{type(exc).__name__}: {exc}")
+            self._fail(job, 500, kind.failure_title, f"{type(exc).__name__}: {exc}")
         finally:
             beat_stop.set()
             beat.join(5.0)
-            with self._running_lock:
-                self._running.discard(job.id)
 
-    def _fail(self, job: Job, status: int, title: str, detail: str) -> None:
-        kind = {422: "computation", 503: "workers-unreachable"}.get(status, "job-failed")
+    def _stop_local_work(self, executor) -> None:
+        """Chunks of a stopped job still running in the local pool: kill them (CPU for the next
+        job). With one runner thread the pool serves only this job; with several it is shared,
+        and the others' chunks would die too, so it is left alone then."""
+        if (
+            executor is not None
+            and executor is self.executors._pool
+            and self.settings.job_runners == 1
+        ):
+            self.executors.discard_pool(kill=True)
+
+    def _fail(
+        self, job: Job, status: int, title: str, detail: str, kind_: str | None = None
+    ) -> None:
+        kind_ = kind_ or {422: "computation", 503: "workers-unreachable"}.get(status, "job-failed")
         self.jobs.finish(
             job.id,
             self.name,
             "failed",
-            {"type": TYPE_BASE + kind, "title": title, "status": status, "detail": detail},
+            {"type": PROBLEM_TYPE_BASE + kind_, "title": title, "status": status, "detail": detail},
         )
         log.info("job %s: failed: %s", job.id, detail)
 
     def _heartbeat(self, job_id: str, stop: threading.Event, cancel_seen: threading.Event):
         """Renew the lease while chunks run (progress comes only between chunks)."""
-        interval = self.settings.job_lease_seconds / 4
+        interval = min(self.settings.job_lease_seconds / 4, 1.0)
         while not stop.wait(interval):
             try:
                 if self.jobs.heartbeat(job_id, self.name):

@@ -27,6 +27,10 @@ EXAMPLE_ENCOUNTER = {
     "vinf_km_s": 28.03,
     "particles": 20,
     "dilution": 0.9958,
+    "population_index": 2.512,
+    "zhr": {"estimate": 12.0, "low": 3.0, "high": 40.0, "mode": "absolute"},
+    "window": {"start_utc": "2040-04-11T07:40:00Z", "end_utc": "2040-04-11T09:30:00Z"},
+    "profile": [{"time_utc": "2040-04-11T08:32:43Z", "zhr": 12.0}],
 }
 
 
@@ -43,24 +47,72 @@ class RadiantOut(BaseModel):
     dec_deg: float = Field(..., description="Declination, equatorial J2000 (deg)")
 
 
+class ZhrOut(BaseModel):
+    """Zenithal hourly rate at the peak: meteors per hour for one observer under a clear sky
+    of limiting magnitude +6.5 with the radiant at the zenith (Koschack & Rendtel 1990)."""
+
+    model_config = ConfigDict(extra="allow")
+    estimate: float | None = Field(None, description="Best estimate (meteors per hour)")
+    low: float | None = Field(None, description="Lower end of the stated range (meteors/hour)")
+    high: float | None = Field(None, description="Upper end of the stated range (meteors/hour)")
+    mode: str | None = Field(
+        None,
+        description="`absolute` (from a stated or default dust mass per return) or "
+        "`calibrated` (scaled to a past observed outburst)",
+        examples=["absolute"],
+    )
+
+
+class WindowOut(BaseModel):
+    """When the activity stands above its background (UTC, ISO 8601)."""
+
+    model_config = ConfigDict(extra="allow")
+    start_utc: str = Field(..., description="Start of the activity window (UTC, ISO 8601)")
+    end_utc: str = Field(..., description="End of the activity window (UTC, ISO 8601)")
+
+
+class ProfilePointOut(BaseModel):
+    model_config = ConfigDict(extra="allow")
+    time_utc: str = Field(..., description="Time (UTC, ISO 8601)")
+    zhr: float = Field(..., description="ZHR at that time (meteors per hour)")
+
+
 class EncounterOut(BaseModel):
-    """One trail crossing Earth's path; extra keys (e.g. ``zhr``) pass through."""
+    """One trail crossing Earth's path; extra keys pass through."""
 
     model_config = ConfigDict(extra="allow", json_schema_extra={"examples": [EXAMPLE_ENCOUNTER]})
 
-    year: int
+    year: int = Field(..., description="Calendar year (UTC) of the encounter")
     trail: TrailOut
-    node: str
+    node: str = Field(..., description="`ascending` or `descending`: where the trail meets Earth")
     peak_utc: str = Field(..., description="Time Earth passes the trail's centre (UTC, ISO 8601)")
     solar_longitude_deg: float = Field(..., description="At the peak; geometric, J2000 (deg)")
-    miss_distance_au: float = Field(..., description="Trail minus Earth at the node (au)")
-    miss_distance_spread_au: float
+    miss_distance_au: float = Field(
+        ..., description="Trail centre minus Earth at the node, signed (au; > 0: outside)"
+    )
+    miss_distance_spread_au: float = Field(
+        ..., description="Half the 16-84 % range of the meteoroids' miss distances (au)"
+    )
     fwhm_hours: float = Field(..., description="FWHM of the simulated Earth passage times (h)")
     radiant: RadiantOut
     vg_km_s: float = Field(..., description="Geocentric speed (km/s)")
     vinf_km_s: float = Field(..., description="Speed at the top of the atmosphere (km/s)")
-    particles: int = Field(..., description="Simulated meteoroids behind the numbers")
-    dilution: float
+    particles: int = Field(..., description="Simulated meteoroids behind the numbers (count)")
+    dilution: float = Field(
+        ...,
+        description="Along-trail dilution relative to freshly released dust (dimensionless, "
+        "0-1; 1 = not yet spread out)",
+    )
+    population_index: float | None = Field(
+        None, description="Population index r (dimensionless) used for the ZHR"
+    )
+    zhr: ZhrOut | None = Field(None, description="Expected ZHR at the peak (meteors per hour)")
+    window: WindowOut | None = Field(
+        None, description="Activity window (UTC); null when the profile gives none"
+    )
+    profile: list[ProfilePointOut] = Field(
+        default_factory=list, description="ZHR against time around the peak (UTC; per hour)"
+    )
 
 
 class ForecastOut(BaseModel):

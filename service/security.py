@@ -11,13 +11,23 @@ from typing import Annotated
 from fastapi import Depends
 from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 
-from .problems import TYPE_BASE, ProblemError
+from .problems import TYPE_BASE, UNAUTHORIZED_DETAIL, ProblemError
 from .settings import Settings, get_settings
 
 _bearer = HTTPBearer(
     auto_error=False,
     description="Required for POST and DELETE when the server sets TRAILCAST_API_TOKEN.",
 )
+
+
+def token_ok(authorization: str | None, token: str) -> bool:
+    """Whether an ``Authorization`` header value carries ``token`` as a bearer token."""
+    scheme, _, given = (authorization or "").partition(" ")
+    if scheme.lower() != "bearer":
+        given = ""
+    return secrets.compare_digest(
+        given.strip().encode("utf-8", "surrogatepass"), token.encode("utf-8")
+    )
 
 
 def require_token(
@@ -32,7 +42,7 @@ def require_token(
         raise ProblemError(
             401,
             "Unauthorized",
-            "this route needs the header 'Authorization: Bearer <token>' with the server's token",
+            UNAUTHORIZED_DETAIL,
             TYPE_BASE + "unauthorized",
             headers={"WWW-Authenticate": 'Bearer realm="trailcast"'},
         )

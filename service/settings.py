@@ -1,19 +1,27 @@
 """Service settings: one typed object read from the environment, served by a cached dependency.
 
 Every setting has a default that works on a fresh machine (embedded SQLite under ``./var/``,
-local worker processes). Tests override :func:`get_settings` through FastAPI's dependency
-overrides or by building the app with explicit settings.
+local worker processes). ``TRAILCAST_<NAME>`` environment variables override them, read and
+checked by pydantic-settings (a wrong value stops the start-up with a message naming the
+variable). Tests override :func:`get_settings` through FastAPI's dependency overrides or build
+the app with explicit settings (``Settings(...)`` ignores nothing: explicit values win over the
+environment).
 """
 
 import os
 from functools import lru_cache
 from pathlib import Path
 
-from pydantic import BaseModel, Field
+from pydantic import Field
+from pydantic_settings import BaseSettings, SettingsConfigDict
 
 
-class Settings(BaseModel):
+class Settings(BaseSettings):
     """Runtime configuration (environment variable in brackets)."""
+
+    model_config = SettingsConfigDict(
+        env_prefix="TRAILCAST_", env_ignore_empty=True, extra="ignore", frozen=True
+    )
 
     data_dir: Path = Field(
         Path("var"),
@@ -69,6 +77,26 @@ class Settings(BaseModel):
         gt=0,
         description="A running job whose runner has not reported for this long (s) is re-queued [TRAILCAST_JOB_LEASE_SECONDS].",
     )
+    job_max_seconds: float = Field(
+        3600.0,
+        gt=0,
+        description="Wall-clock limit of one job run (s); a job still running then is stopped and failed [TRAILCAST_JOB_MAX_SECONDS].",
+    )
+    job_retention_days: float | None = Field(
+        90.0,
+        gt=0,
+        description="Finished jobs (done, failed, cancelled) older than this many days are deleted with their results; unset to keep them [TRAILCAST_JOB_RETENTION_DAYS].",
+    )
+    job_retention_count: int | None = Field(
+        10_000,
+        ge=1,
+        description="At most this many finished jobs are kept (the newest); unset for no limit [TRAILCAST_JOB_RETENTION_COUNT].",
+    )
+    request_max_seconds: float = Field(
+        60.0,
+        gt=0,
+        description="Wall-clock limit of one synchronous computation (POST /v1/geometry) (s); answered 422 past it [TRAILCAST_REQUEST_MAX_SECONDS].",
+    )
 
     @property
     def database_path(self) -> Path:
@@ -81,16 +109,19 @@ class Settings(BaseModel):
 
     @classmethod
     def from_env(cls, env=None) -> "Settings":
-        env = os.environ if env is None else env
+        """Settings from ``env`` (a mapping of ``TRAILCAST_*`` variables; default: the process
+        environment)."""
+        if env is None:
+            return cls()
         values = {}
         for name in cls.model_fields:
             key = f"TRAILCAST_{name.upper()}"
             if env.get(key) not in (None, ""):
                 values[name] = env[key]
-        return cls(**values)
+        return cls.model_validate(values)
 
 
 @lru_cache
 def get_settings() -> Settings:
     """The process-wide settings (cached; tests override this dependency)."""
-    return Settings.from_env()
+    return Settings()

@@ -70,6 +70,16 @@ BAD_SUBMISSIONS = [
     ({**TINY, "options": {"workers": 64}}, 422, "options.workers"),  # not a client's choice
     ({**TINY, "colour": "red"}, 422, "colour"),
     ({"years": [2040]}, 422, "orbit"),
+    # Issue 13's findings: each was a 500 or a job accepted that could only fail.
+    ({**TINY, "orbit": {**DEMO_ORBIT, "q": 10**400}}, 422, "orbit.q"),  # huge integer literal
+    ({**TINY, "orbit": {**DEMO_ORBIT, "q": 1e-300}}, 422, "orbit.q"),  # inside the Sun
+    ({**TINY, "orbit": {**DEMO_ORBIT, "q": 1e-9}}, 422, "orbit.q"),
+    ({**TINY, "orbit": {**DEMO_ORBIT, "q": 1e308}}, 422, "orbit.q"),  # no dust reaches Earth
+    ({**TINY, "orbit": {**DEMO_ORBIT, "epoch": 2_000_000.5}}, 422, "orbit.epoch"),  # not DE423
+    ({**TINY, "orbit": {**DEMO_ORBIT, "name": "P/x\r\nEND:VCALENDAR"}}, 422, "orbit.name"),
+    ({**TINY, "options": {"trails": [-5000]}}, 422, "options.trails.0"),
+    ({**TINY, "options": {"trails": [99999]}}, 422, "options.trails.0"),
+    ({**TINY, "options": {"trails": [2041]}}, 422, "options.trails"),  # after the last year
 ]
 
 
@@ -92,6 +102,101 @@ def test_malformed_json_and_wrong_types_are_422(idle):
     _problem(client.post("/v1/forecasts", json=[1, 2, 3]), 422)
     _problem(client.post("/v1/forecasts", json={**TINY, "years": "2040"}), 422, "years")
     assert _store_dump(db) == before
+
+
+def _raw(client, path: str, text: str, **headers):
+    return client.post(
+        path,
+        content=text.encode("utf-8", "surrogatepass"),
+        headers={"content-type": "application/json", **headers},
+    )
+
+
+def test_hostile_json_literals_are_422_never_500(idle):
+    """Issue 13, findings 2: lone surrogates, NaN/Infinity literals, 400-digit integers."""
+    client, db = idle
+    before = _store_dump(db)
+    orbit = json.dumps(DEMO_ORBIT)
+    surrogate = orbit.replace('"P/2026', '"\\ud800P/2026')  # a lone surrogate, JSON-escaped
+    assert "\\ud800" in surrogate
+
+    def body(orbit_text: str) -> str:
+        return '{"orbit": ' + orbit_text + ', "years": [2040]}'
+
+    def geometry(orbit_text: str) -> str:
+        return '{"orbit": ' + orbit_text + "}"
+
+    _problem(_raw(client, "/v1/forecasts", body(surrogate)), 422, "orbit.name")
+    _problem(_raw(client, "/v1/geometry", geometry(surrogate)), 422, "orbit.name")
+    nan = orbit.replace('"q": 0.953', '"q": NaN')
+    assert "NaN" in nan
+    _problem(_raw(client, "/v1/forecasts", body(nan)), 422, "orbit.q")
+    _problem(
+        _raw(client, "/v1/screenings", '{"orbits": [' + nan + '], "years": [2040]}'),
+        422,
+        "orbits.0.q",
+    )
+    inf = orbit.replace('"q": 0.953', '"q": Infinity')
+    _problem(_raw(client, "/v1/geometry", geometry(inf)), 422, "orbit.q")
+    huge = orbit.replace('"q": 0.953', '"q": ' + "9" * 400)
+    _problem(_raw(client, "/v1/geometry", geometry(huge)), 422, "orbit.q")
+    deep = '{"orbits": [{"name": ' + "[" * 50 + "]" * 50 + '}], "years": [2040]}'
+    assert _problem(_raw(client, "/v1/screenings", deep), 422)["field"].startswith("orbits.0.")
+    assert _store_dump(db) == before
+
+
+def test_malformed_json_names_the_body_not_a_position(idle):
+    client, _ = idle
+    r = _raw(client, "/v1/forecasts", '{"orbit": ')
+    body = _problem(r, 422, "body")
+    assert "not valid JSON" in body["detail"] and body["detail"] != "1: JSON decode error"
+
+
+def test_token_is_checked_before_the_body(tmp_path):
+    """Issue 13, finding 8: with a token set, malformed JSON without the token is 401, not 422."""
+    app = create_app(Settings(data_dir=tmp_path, job_runners=0, api_token="s3cret"))
+    with TestClient(app) as client:
+        _problem(_raw(client, "/v1/forecasts", '{"orbit": '), 401)
+        _problem(_raw(client, "/v1/screenings", '{"years": "x"}'), 401)
+        good = {"Authorization": "Bearer s3cret"}
+        _problem(_raw(client, "/v1/forecasts", '{"orbit": ', **good), 422, "body")
+
+
+@pytest.mark.parametrize(
+    "cursor",
+    [
+        # forged cursors: an SQLite integer overflow, a lone surrogate, a wrong shape
+        __import__("base64")
+        .urlsafe_b64encode(json.dumps(["2040-01-01T00:00:00.000Z", "0" * 32, 2**70]).encode())
+        .decode(),
+        __import__("base64")
+        .urlsafe_b64encode(b'["\\ud800", "00000000000000000000000000000000", 1]')
+        .decode(),
+        __import__("base64").urlsafe_b64encode(b'["a", "b", 1]').decode(),
+    ],
+)
+def test_forged_cursor_is_422(idle, cursor):
+    client, _ = idle
+    _problem(client.get("/v1/encounters", params={"cursor": cursor}), 422, "cursor")
+
+
+def test_exports_escape_formulas_and_line_breaks():
+    """Issue 13, findings 2 and 8: CSV formula injection; CR/LF in names broke the calendar."""
+    import csv
+    import io
+
+    import icalendar
+
+    from service.exports import encounters_csv, encounters_ics
+
+    rows = [{"forecast_id": "x", "parent": "=HYPERLINK(1)", "note": "@SUM(A1)", "d": -0.5}]
+    out = list(csv.DictReader(io.StringIO(encounters_csv(rows))))
+    assert out[0]["parent"] == "'=HYPERLINK(1)" and out[0]["note"] == "'@SUM(A1)"
+    assert out[0]["d"] == "-0.5"  # numbers are not text: left alone
+    enc = {"peak_utc": "2040-04-11T08:32:43Z", "fwhm_hours": 1.0, "trail": {}}
+    ics = encounters_ics([("f" * 32, 0, "P/x\r\nEND:VCALENDAR\ud800", enc, None)], "t\r\n", [])
+    cal = icalendar.Calendar.from_ical(ics)
+    assert len(cal.walk("VEVENT")) == 1
 
 
 def test_oversized_bodies_are_413_declared_or_streamed(tmp_path):
@@ -377,3 +482,19 @@ def test_openapi_property_based_no_5xx_and_schema_conformant(case, fuzz_app_runn
             response_schema_conformance,
         ]
     )
+
+
+def test_geometry_runs_bounded_in_a_worker(tmp_path):
+    """Issue 13, finding 1: a geometry request is bounded in time (its worker is killed past
+    the limit) and an elliptic orbit's note no longer speaks of an open orbit."""
+    slow = Settings(data_dir=tmp_path / "a", job_runners=0, request_max_seconds=0.001)
+    with TestClient(create_app(slow)) as client:
+        body = _problem(client.post("/v1/geometry", json={"orbit": DEMO_ORBIT}), 422)
+        assert body["type"].endswith("time-limit")
+    with TestClient(create_app(Settings(data_dir=tmp_path / "b", job_runners=0))) as client:
+        r = client.post("/v1/geometry", json={"orbit": DEMO_ORBIT, "year": 2031})
+        assert r.status_code == 200, r.text
+        assert "open orbit" not in r.json()["verdict"]
+        far = {**DEMO_ORBIT, "q": 999.0, "e": 0.5}  # elliptic, far away: formerly "open orbit"
+        r = client.post("/v1/geometry", json={"orbit": far})
+        assert r.status_code == 200 and "open orbit" not in r.json()["verdict"]

@@ -60,3 +60,81 @@ def test_dynamics_never_imports_the_web_layer():
     )
     proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     assert proc.returncode == 0, proc.stdout + proc.stderr
+
+
+DEMO = json.loads((EXAMPLES / "demo-comet.json").read_text(encoding="utf-8"))
+
+
+def _one_line_exit_2(args: list[str]) -> str:
+    proc = subprocess.run(
+        [sys.executable, "-m", "service.cli", *args], capture_output=True, text=True, timeout=120
+    )
+    assert proc.returncode == 2, proc.stderr
+    assert proc.stdout == "" and len(proc.stderr.strip().splitlines()) == 1, proc.stderr
+    assert "Traceback" not in proc.stderr
+    return proc.stderr
+
+
+@pytest.mark.parametrize(
+    ("name", "data"),
+    [
+        # Issue 13, finding 7: each gave a traceback and exit 1.
+        ("utf16.json", json.dumps(DEMO).encode("utf-16")),
+        ("binary.json", bytes(range(256))),
+        ("deep.json", b"[" * 5000 + b"]" * 5000),
+        ("huge.json", json.dumps(DEMO).replace('"q": 0.953', '"q": ' + "9" * 400).encode()),
+        ("surrogate.json", json.dumps(DEMO).replace('"P/2026', '"\\ud800P/2026').encode()),
+    ],
+)
+def test_hostile_orbit_files_give_one_line_and_exit_2(tmp_path, name, data):
+    path = tmp_path / name
+    path.write_bytes(data)
+    _one_line_exit_2(["check", str(path)])
+
+
+@pytest.mark.parametrize(
+    "option",
+    [
+        ["--seed", "-1"],
+        ["--trails", "-5000"],
+        ["--max-age", "-1"],
+        ["--max-age", "nan"],
+        ["--max-age", "inf"],
+        ["--max-age", "0"],
+        ["--calibrate", "2039:1975:inf"],
+    ],
+)
+def test_forecast_options_the_api_refuses_are_refused_here_too(option):
+    err = _one_line_exit_2(
+        ["forecast", str(EXAMPLES / "demo-comet.json"), "--years", "2040", *option]
+    )
+    assert option[0] in err
+
+
+def test_orbit_file_with_a_byte_order_mark_is_read(tmp_path, capsys):
+    path = tmp_path / "bom.json"
+    path.write_bytes(b"\xef\xbb\xbf" + json.dumps(DEMO).encode("utf-8"))
+    assert main(["check", str(path), "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["orbit_type"] == "elliptic"
+
+
+def test_batch_rows_that_used_to_abort_the_batch(tmp_path):
+    """Issue 13, finding 6: a huge integer, deep nesting, a surrogate or a raw U+2028 in one row."""
+    from service.batch import read_batch
+
+    good = json.dumps(DEMO)
+    lines = [
+        good.replace('"q": 0.953', '"q": ' + "9" * 400),  # line 1: huge integer
+        "[" * 5000 + "]" * 5000,  # line 2: deep nesting
+        good.replace('"P/2026', '"\\ud800P/2026'),  # line 3: lone surrogate (escaped)
+        good.replace("Hollow Pine", "Hollow\u2028Pine"),  # line 4: raw U+2028 inside a string
+        good,  # line 5: fine
+    ]
+    path = tmp_path / "batch.jsonl"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    rows = read_batch(path)
+    assert [r.line for r in rows] == [1, 2, 3, 4, 5]  # U+2028 did not split line 4
+    assert [r.orbit is not None for r in rows] == [False, False, False, False, True]
+    assert rows[0].error["field"] == "q" and rows[2].error["field"] == "name"
+    assert rows[3].error["field"] == "name"  # a line break has no place in a name
+    rows[2].name.encode("utf-8")  # a printable name: reports and CSV can be written

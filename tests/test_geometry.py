@@ -538,3 +538,11 @@ def test_openapi_documents_geometry_with_demo_example(client):
     assert "422" in op["responses"]
     text = json.dumps(spec)
     assert "Hollow Pine" in text
+
+
+def test_verdict_without_a_moid_names_the_orbit_type():
+    """Issue 13, finding 8: an elliptic orbit without a MOID was called "this open orbit"."""
+    from dynamics.geometry import _verdict
+
+    assert "open orbit" not in _verdict(None, open_orbit=False)
+    assert "open orbit" in _verdict(None, open_orbit=True)

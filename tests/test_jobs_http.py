@@ -22,6 +22,7 @@ from pathlib import Path
 import httpx
 import icalendar
 import pytest
+from processes import alive, children
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 DEMO_ORBIT = json.loads((EXAMPLES / "demo-comet.json").read_text(encoding="utf-8"))
@@ -130,7 +131,12 @@ def test_submit_follow_and_export_over_http(server):
     result = job["result"]
     assert result["parent"]["name"] == DEMO_ORBIT["name"]
     assert result["model"]["options"]["trails"] == [2026]
-    assert job["progress"] == {"fraction": 1.0, "stage": "done"}
+    assert job["progress"] == {
+        "fraction": 1.0,
+        "stage": "done",
+        "items_done": None,  # a forecast counts no items (a screening counts its orbits)
+        "items_total": None,
+    }
     assert job["timings"]["run_seconds"] > 0 and job["timings"]["finished_utc"]
     assert any("Spacecraft operators" in c for c in job["cautions"])
 
@@ -273,10 +279,10 @@ def test_job_survives_sigkill_and_completes_after_restart(tmp_path):
     # The process is gone mid-job: the row says running, nothing is half-written.
     assert _integrity(db) == "ok"
     conn = sqlite3.connect(db)
-    states = dict(conn.execute("SELECT id, state FROM forecast_jobs").fetchall())
+    states = dict(conn.execute("SELECT id, state FROM jobs").fetchall())
     assert states == {long_id: "running", tiny_id: "queued"}
-    assert conn.execute("SELECT COUNT(*) FROM forecast_results").fetchone()[0] == 0
-    assert conn.execute("SELECT COUNT(*) FROM forecast_encounters").fetchone()[0] == 0
+    assert conn.execute("SELECT COUNT(*) FROM job_results").fetchone()[0] == 0
+    assert conn.execute("SELECT COUNT(*) FROM encounters").fetchone()[0] == 0
     conn.close()
 
     second = Server(data, **env)
@@ -299,11 +305,11 @@ def test_job_survives_sigkill_and_completes_after_restart(tmp_path):
     assert _integrity(db) == "ok"
     conn = sqlite3.connect(db)
     try:
-        results = conn.execute("SELECT job_id, COUNT(*) FROM forecast_results GROUP BY job_id")
+        results = conn.execute("SELECT job_id, COUNT(*) FROM job_results GROUP BY job_id")
         assert dict(results.fetchall()) == {long_id: 1, tiny_id: 1}
         for job in (long_job, tiny_job):
             n = conn.execute(
-                "SELECT COUNT(*) FROM forecast_encounters WHERE job_id = ?", (job["id"],)
+                "SELECT COUNT(*) FROM encounters WHERE job_id = ?", (job["id"],)
             ).fetchone()[0]
             assert n == len(job["result"]["encounters"])  # none lost, none twice
     finally:
@@ -344,3 +350,124 @@ def test_calibration_trail_must_precede_its_year(server):
     r = httpx.post(f"{server.url}/v1/forecasts", json=body, timeout=30.0)
     assert r.status_code == 422
     assert r.json()["field"] == "options.calibration.trail_year"
+
+
+#: The invented example batch (examples/screening-batch.jsonl): 200 orbits with a few
+#: candidates whose trail forecasts keep a screening busy long enough to be killed mid-way.
+def _readable_rows(path: Path) -> list:
+    out = []
+    for t in path.read_text(encoding="utf-8").split("\n"):
+        try:
+            out.append(json.loads(t))
+        except ValueError:  # comments, blank lines and the deliberately broken row
+            continue
+    return out
+
+
+_ALL_ROWS = _readable_rows(EXAMPLES / "screening-batch.jsonl")
+#: 30 harmless orbits (done right after the geometry stage) and the two periodic candidates,
+#: whose small trail forecasts keep the job running long enough to be killed in the middle.
+BATCH_ROWS = [r for r in _ALL_ROWS if "(harmless)" in r["name"]][:30] + [
+    r for r in _ALL_ROWS if "(candidate)" in r["name"]
+][:2]
+SCREENING = {
+    "orbits": BATCH_ROWS,
+    "years": [2039, 2039],
+    "options": {"particles": 10, "max_trail_age_years": 60},
+}
+
+
+@pytest.mark.slow
+def test_screening_survives_sigkill_and_its_workers_do_not_outlive_the_server(tmp_path):
+    data = tmp_path / "var"
+    db = data / "trailcast.sqlite3"
+    env = {"TRAILCAST_WORKERS": "2"}
+    first = Server(data, **env)
+    try:
+        r = httpx.post(f"{first.url}/v1/screenings", json=SCREENING, timeout=60.0)
+        assert r.status_code == 202, r.text
+        job_id = r.json()["id"]
+        _wait_for(
+            f"{first.url}/v1/screenings/{job_id}",
+            lambda j: j["state"] == "running" and j["progress"]["items_done"] >= 1,
+            "the screening to be under way",
+        )
+        workers = children(first.proc.pid)
+        assert workers, "the server has started no worker processes"
+        os.kill(first.proc.pid, signal.SIGKILL)  # the server only: its workers must follow
+        first.proc.wait(timeout=30)
+        deadline = time.monotonic() + 30.0  # generous against the workers' 0.5 s watch
+        while any(alive(p) for p in workers) and time.monotonic() < deadline:
+            time.sleep(0.2)
+        orphans = [p for p in workers if alive(p)]
+    finally:
+        first.kill()  # the rest of the process group, if anything is left
+    assert orphans == []
+
+    assert _integrity(db) == "ok"
+    conn = sqlite3.connect(db)
+    assert conn.execute("SELECT state FROM jobs WHERE id = ?", (job_id,)).fetchone()[0] == (
+        "running"
+    )
+    conn.close()
+
+    second = Server(data, **env)
+    try:
+        job = _wait_for(
+            f"{second.url}/v1/screenings/{job_id}",
+            lambda j: j["state"] == "done",
+            "the interrupted screening to finish after the restart",
+        )
+        results = httpx.get(f"{second.url}/v1/screenings/{job_id}/results.json", timeout=30.0)
+    finally:
+        second.stop()
+    assert job["attempts"] == 2  # started once before the kill, once after
+    orbits = results.json()["orbits"]
+    assert [o["index"] for o in orbits] == list(range(len(BATCH_ROWS)))  # none lost
+    assert _integrity(db) == "ok"
+    conn = sqlite3.connect(db)
+    try:
+        assert (
+            conn.execute("SELECT COUNT(*) FROM job_results WHERE job_id = ?", (job_id,)).fetchone()[
+                0
+            ]
+            == 1
+        )  # none twice
+        keys = {o["key"] for o in orbits if o["key"]}
+        stored = conn.execute("SELECT COUNT(*) FROM screening_orbit_results").fetchone()[0]
+        assert stored == len(keys)  # one stored result per distinct orbit
+    finally:
+        conn.close()
+
+
+@pytest.mark.slow
+def test_sigterm_puts_the_running_job_back_in_the_queue(tmp_path):
+    """Issue 13, finding 1: SIGTERM left a job 'running'. Now the computation stops between
+    steps, the job is re-queued and the server exits; its workers end with it."""
+    data = tmp_path / "var"
+    server = Server(data, TRAILCAST_WORKERS="2")
+    try:
+        r = httpx.post(f"{server.url}/v1/forecasts", json=LONGER, timeout=30.0)
+        job_id = r.json()["id"]
+        _wait_for(
+            f"{server.url}/v1/forecasts/{job_id}",
+            lambda j: j["state"] == "running" and j["progress"]["fraction"] > 0.0,
+            "the job to be under way",
+        )
+        workers = children(server.proc.pid)
+        os.kill(server.proc.pid, signal.SIGTERM)
+        server.proc.wait(timeout=WAIT_S)
+        deadline = time.monotonic() + 30.0
+        while any(alive(p) for p in workers) and time.monotonic() < deadline:
+            time.sleep(0.2)
+        assert [p for p in workers if alive(p)] == []
+    finally:
+        server.kill()
+    conn = sqlite3.connect(data / "trailcast.sqlite3")
+    try:
+        state, stage = conn.execute(
+            "SELECT state, progress_stage FROM jobs WHERE id = ?", (job_id,)
+        ).fetchone()
+    finally:
+        conn.close()
+    assert state == "queued" and "shutdown" in stage

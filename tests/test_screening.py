@@ -23,6 +23,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from processes import alive, children
 
 from dynamics.ephemeris import EPHEMERIS_SPAN_TDB_JD, gm_au3_d2, heliocentric_state
 from dynamics.geometry import EARTH_MEAN_J2000
@@ -302,3 +303,50 @@ def test_dask_cluster_gives_the_same_screening(tmp_path):
         remote = screen_batch(pick, ScreeningRule(), options, executor=client.get_executor())
     assert remote.records == local.records
     assert sum(r["candidate"] for r in local.records) >= 1
+
+
+@pytest.mark.slow
+def test_screen_workers_end_when_the_command_is_killed(tmp_path):
+    """Issue 13, finding 5: after SIGKILL of `trailcast screen --workers 2`, its worker
+    processes stayed alive. Only the command is killed here; its workers must end by
+    themselves."""
+    proc = subprocess.Popen(
+        _screen_cmd(tmp_path / "screen"),
+        cwd=ROOT,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+        start_new_session=True,
+    )
+    try:
+        deadline = time.monotonic() + WAIT_S
+        while len(children(proc.pid)) < 2:  # the pool's workers (and the resource tracker)
+            assert proc.poll() is None and time.monotonic() < deadline
+            time.sleep(0.05)
+        time.sleep(1.0)  # let the workers finish starting up
+        workers = children(proc.pid)
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait(timeout=30)
+        deadline = time.monotonic() + 30.0  # generous against the workers' 0.5 s watch
+        while any(alive(p) for p in workers) and time.monotonic() < deadline:
+            time.sleep(0.2)
+        assert [p for p in workers if alive(p)] == []
+    finally:
+        try:
+            os.killpg(proc.pid, signal.SIGKILL)
+        except ProcessLookupError:
+            pass
+
+
+def test_duplicated_names_in_a_batch_are_flagged(tmp_path):
+    """Issue 13, finding 6: duplicated names were not flagged."""
+    from dynamics.screening import ScreeningRule, screening_forecast_options
+    from service.screening_report import assemble
+
+    bad = {"name": "P/x (invented)", "q": -1}
+    path = tmp_path / "dup.jsonl"
+    path.write_text("\n".join(json.dumps(bad) for _ in range(3)) + "\n", encoding="utf-8")
+    rows = read_batch(path)
+    result = assemble(
+        rows, None, ScreeningRule(), screening_forecast_options(2040, 2040), source="test"
+    )
+    assert [o.get("duplicate_name_of") for o in result["orbits"]] == [None, 1, 1]

@@ -62,7 +62,11 @@ def test_submit_progress_results_and_reuse(client):
     deadline = time.monotonic() + WAIT_S
     while True:
         job = c.get(accepted["links"]["self"]).json()
-        assert 0 <= job["progress"]["orbits_done"] <= job["progress"]["orbits_total"] == 6
+        progress = job["progress"]
+        assert 0 <= progress["items_done"] <= progress["items_total"] == 6
+        # state and progress never contradict: 1 and "done" only once the job is done
+        assert (progress["fraction"] == 1.0) == (job["state"] == "done"), job
+        assert (progress["stage"] == "done") == (job["state"] == "done"), job
         if job["state"] == "done":
             break
         assert job["state"] in ("queued", "running") and time.monotonic() < deadline, job
@@ -118,3 +122,30 @@ def test_refused_screenings_are_problems_and_change_nothing(tmp_path, body, fiel
         queued = c.post("/v1/screenings", json={"orbits": [{"name": "y"}], "years": [2030]})
         assert c.get(queued.json()["links"]["results_csv"]).status_code == 409
         assert c.delete(queued.json()["links"]["self"]).json()["state"] == "cancelled"
+
+
+def test_hostile_items_are_reported_and_the_screening_finishes(client):
+    """Issue 13, finding 2: one orbit with a 400-digit integer failed the whole screening; a
+    lone surrogate in a name made its results.json and results.csv answer 500."""
+    c, _ = client
+    harmless = _small_batch()[0]
+    huge = json.dumps({**harmless, "q": 1.0}).replace('"q": 1.0', '"q": ' + "9" * 400)
+    surrogate = json.dumps(harmless).replace('"name": "', '"name": "\\ud800', 1)
+    body = '{"orbits": [' + huge + ", " + surrogate + '], "years": [2030]}'
+    r = c.post(
+        "/v1/screenings",
+        content=body.encode("utf-8", "surrogatepass"),
+        headers={"content-type": "application/json"},
+    )
+    assert r.status_code == 202, r.text
+    url = r.json()["links"]["self"]
+    deadline = time.monotonic() + WAIT_S
+    while (job := c.get(url).json())["state"] != "done":
+        assert job["state"] in ("queued", "running") and time.monotonic() < deadline, job
+        time.sleep(0.1)
+    res = c.get(job["links"]["results_json"])
+    assert res.status_code == 200
+    errors = [o["error"]["field"] for o in res.json()["orbits"]]
+    assert errors == ["q", "name"]  # both reported, neither stopped the batch
+    csv_r = c.get(job["links"]["results_csv"])
+    assert csv_r.status_code == 200 and len(list(csv.DictReader(io.StringIO(csv_r.text)))) == 2

@@ -10,17 +10,19 @@ always kept, because nothing says they are weak.
 import base64
 import binascii
 import json
+import re
 from datetime import UTC, date, datetime, timedelta
-from typing import Annotated
 from urllib.parse import urlencode
 
-from fastapi import APIRouter, Depends, Query, Request, Response
+from fastapi import APIRouter, Query, Response
 from pydantic import BaseModel, ConfigDict, Field
 
 from dynamics.forecast import CAUTIONS
 
 from ..exports import encounters_ics
-from ..jobs import ZHR_KEYS, JobStore, format_utc
+from ..job_kinds.forecast import ZHR_KEYS
+from ..job_kinds.forecast import list_encounters as stored_encounters
+from ..jobs import format_wall_utc
 from ..problems import TYPE_BASE, ProblemError, problem_responses
 from ..schemas import EXAMPLE_ENCOUNTER, EncounterOut
 from ._site import SITE_ICS_NOTE, SITE_LAT, SITE_LON, optional_site
@@ -35,11 +37,7 @@ ZHR_NOTE = (
 _EXAMPLE_ID = "5d2c3f0e9a1b4c7d8e6f5a4b3c2d1e0f"
 
 
-def get_jobs(request: Request) -> JobStore:
-    return request.app.state.jobs
-
-
-Jobs = Annotated[JobStore, Depends(get_jobs)]
+from ._jobs import Jobs  # noqa: E402
 
 
 class EncounterLinksOut(BaseModel):
@@ -105,7 +103,7 @@ def _bound(text: str | None, name: str, end_of_day: bool) -> str | None:
             t = datetime.fromisoformat(text.replace("Z", "+00:00").replace("z", "+00:00"))
             if t.tzinfo is None:
                 t = t.replace(tzinfo=UTC)
-        return format_utc(t)
+        return format_wall_utc(t)
     except (ValueError, OverflowError):
         raise ProblemError(
             422,
@@ -114,6 +112,11 @@ def _bound(text: str | None, name: str, end_of_day: bool) -> str | None:
             TYPE_BASE + "invalid-request",
             field=name,
         ) from None
+
+
+#: What a cursor this service gives out holds: a stored peak time and a job id.
+_CURSOR_PEAK = re.compile(r"\d{4}-\d{2}-\d{2}T\d{2}:\d{2}:\d{2}\.\d{3}Z")
+_CURSOR_JOB = re.compile(r"[0-9a-f]{32}")
 
 
 def _cursor_out(row) -> str:
@@ -127,10 +130,18 @@ def _cursor_in(text: str | None) -> tuple[str, str, int] | None:
     try:
         raw = base64.urlsafe_b64decode(text + "=" * (-len(text) % 4))
         peak, job_id, idx = json.loads(raw)
-        if not (isinstance(peak, str) and isinstance(job_id, str) and isinstance(idx, int)):
+        if not (
+            isinstance(peak, str)
+            and isinstance(job_id, str)
+            and isinstance(idx, int)
+            and not isinstance(idx, bool)
+            and 0 <= idx < 2**63  # an SQLite integer
+            and _CURSOR_PEAK.fullmatch(peak)
+            and _CURSOR_JOB.fullmatch(job_id)
+        ):
             raise ValueError
         return peak, job_id, idx
-    except (ValueError, TypeError, binascii.Error, UnicodeDecodeError):
+    except (ValueError, TypeError, binascii.Error, UnicodeDecodeError, RecursionError):
         raise ProblemError(
             422,
             "Invalid request",
@@ -160,6 +171,17 @@ _PARENT = Query(
 )
 
 
+_SUPERSEDED = Query(
+    False,
+    description="Also list encounters of older forecasts of the same parent with the same "
+    "options (by default only the latest done forecast covering each year is listed)",
+)
+SUPERSEDED_NOTE = (
+    "Each encounter comes from the latest done forecast of its parent with the same options "
+    "that covers its year, unless include_superseded=true."
+)
+
+
 def _filters(from_, to, min_zhr, parent) -> dict:
     return {
         "from": _bound(from_, "from", end_of_day=False),
@@ -178,8 +200,12 @@ def _query_string(params: dict) -> str:
     response_model=EncountersPageOut,
     summary="Predicted encounters across all stored forecasts, by peak time (paginated)",
     description=(
-        "Every encounter of every done forecast, ordered by peak time (UTC), filtered by peak "
-        "time (`from`, `to`), parent name (`parent`) and `min_zhr`. " + ZHR_NOTE + " Pages hold "
+        "Every encounter of the done forecasts, ordered by peak time (UTC), filtered by peak "
+        "time (`from`, `to`), parent name (`parent`) and `min_zhr`. "
+        + SUPERSEDED_NOTE
+        + " "
+        + ZHR_NOTE
+        + " Pages hold "
         "`limit` items; follow `links.next` (or pass `next_cursor` as `cursor`). Predictions "
         "are model estimates; spacecraft operators defer to the responsible agencies; "
         "observers mind the usual night-time safety."
@@ -194,13 +220,29 @@ def list_encounters(
     parent: str | None = _PARENT,
     limit: int = Query(100, ge=1, le=500, description="Items per page"),
     cursor: str | None = Query(None, max_length=500, description="From a previous page"),
+    include_superseded: bool = _SUPERSEDED,
 ) -> EncountersPageOut:
     f = _filters(from_, to, min_zhr, parent)
-    rows = jobs.encounters(f["from"], f["to"], parent, min_zhr, _cursor_in(cursor), limit + 1)
+    rows = stored_encounters(
+        jobs.store,
+        f["from"],
+        f["to"],
+        parent,
+        min_zhr,
+        _cursor_in(cursor),
+        limit + 1,
+        include_superseded,
+    )
     more = len(rows) > limit
     rows = rows[:limit]
     next_cursor = _cursor_out(rows[-1]) if more and rows else None
-    query = {"from": from_, "to": to, "min_zhr": min_zhr, "parent": parent}
+    query = {
+        "from": from_,
+        "to": to,
+        "min_zhr": min_zhr,
+        "parent": parent,
+        "include_superseded": "true" if include_superseded else None,
+    }
     return EncountersPageOut(
         items=[
             EncounterItemOut(
@@ -222,7 +264,7 @@ def list_encounters(
             ics="/v1/encounters.ics" + ("?" + _query_string(query) if any(query.values()) else ""),
         ),
         filters=f,
-        notes=[ZHR_NOTE],
+        notes=[ZHR_NOTE, SUPERSEDED_NOTE],
         cautions=list(CAUTIONS),
     )
 
@@ -258,10 +300,13 @@ def list_encounters_ics(
     limit: int = Query(1000, ge=1, le=5000, description="Most events in the calendar"),
     lat: float | None = SITE_LAT,
     lon: float | None = SITE_LON,
+    include_superseded: bool = _SUPERSEDED,
 ) -> Response:
     site = optional_site(lat, lon)
     f = _filters(from_, to, min_zhr, parent)
-    rows = jobs.encounters(f["from"], f["to"], parent, min_zhr, None, limit)
+    rows = stored_encounters(
+        jobs.store, f["from"], f["to"], parent, min_zhr, None, limit, include_superseded
+    )
     items = [
         (
             r["job_id"],

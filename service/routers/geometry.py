@@ -6,55 +6,52 @@ The orbit object is the one every command reads (README, "The orbit input"); it 
 (422 problem+json). The response is :meth:`dynamics.geometry.GeometryResult.to_json`.
 """
 
-import json
-from pathlib import Path
 from typing import Any
 
-from fastapi import APIRouter
+from fastapi import APIRouter, Request
 from pydantic import BaseModel, ConfigDict, Field
 
-from dynamics.geometry import quick_look
-from dynamics.orbit_input import parse_orbit
+from ..bounded import BoundedWorkers, ClientGone, TimeLimitExceeded
+from ..models import OrbitIn, RequestModel
+from ..models.common import Year
+from ..models.orbit import DEMO_ORBIT
+from ..problems import TYPE_BASE, ProblemError, problem_responses
+from ._jobs import SettingsDep
 
 router = APIRouter(prefix="/v1", tags=["geometry"])
 
-# The invented demo comet (examples/demo-comet.json) as the OpenAPI example; inline fallback
-# when the package runs without the examples folder.
-_DEMO_PATH = Path(__file__).resolve().parents[2] / "examples" / "demo-comet.json"
-try:
-    _DEMO_ORBIT = json.loads(_DEMO_PATH.read_text(encoding="utf-8"))
-except (OSError, ValueError):  # pragma: no cover - installed without examples/
-    _DEMO_ORBIT = {
-        "name": "P/2026 W3 (Hollow Pine) [invented demo comet]",
-        "epoch": "2026-11-20T00:00:00 TDB",
-        "q": 0.962,
-        "e": 0.828,
-        "i": 38.5,
-        "node": 21.6,
-        "peri": 204.2,
-        "tp": "2026-10-30T06:00:00 TDB",
-    }
+
+def _quick_look_json(orbit_json: dict, year: int | None) -> dict:
+    """In the worker process: the quick look as JSON."""
+    from dynamics.geometry import quick_look
+    from dynamics.orbit_input import parse_orbit
+
+    return quick_look(parse_orbit(orbit_json), year).to_json()
 
 
-class GeometryIn(BaseModel):
+def _workers(request: Request) -> BoundedWorkers:
+    state = request.app.state
+    if getattr(state, "geometry_workers", None) is None:
+        state.geometry_workers = BoundedWorkers(1)
+    return state.geometry_workers
+
+
+def close_workers(app) -> None:
+    """Stop the geometry worker process (at shutdown)."""
+    workers = getattr(app.state, "geometry_workers", None)
+    if workers is not None:
+        workers.close()
+        app.state.geometry_workers = None
+
+
+class GeometryIn(RequestModel):
     """Request: the parent's orbit and, optionally, a year for Earth passage times."""
 
-    model_config = ConfigDict(
-        extra="forbid",
-        json_schema_extra={"examples": [{"orbit": _DEMO_ORBIT, "year": 2031}]},
-    )
+    model_config = ConfigDict(json_schema_extra={"examples": [{"orbit": DEMO_ORBIT, "year": 2031}]})
 
-    orbit: dict[str, Any] = Field(
-        ...,
-        description=(
-            "Orbit input object: heliocentric osculating elements, ecliptic and equinox J2000 "
-            "(name, epoch, q [au], e, i, node, peri [deg], tp; see the README)."
-        ),
-    )
-    year: int | None = Field(
+    orbit: OrbitIn
+    year: Year | None = Field(
         None,
-        ge=1800,
-        le=2199,
         description="Calendar year (UTC) in which to time Earth's passages (DE423: 1800-2199).",
     )
 
@@ -130,11 +127,28 @@ class GeometryOut(BaseModel):
         "Two-body geometry of the parent's orbit against Earth's: every local minimum of the "
         "orbit distance (MOID) with its theoretical radiant, both nodes with miss distances and "
         "solar longitudes (and Earth's passage times in `year`), similar established showers "
-        "and a one-line screening verdict. Predictions are model estimates; spacecraft "
-        "operators defer to the responsible agencies."
+        "and a one-line screening verdict. The computation runs in a worker process, at most "
+        "`TRAILCAST_REQUEST_MAX_SECONDS` (422 past it), and stops when the client disconnects. "
+        "Predictions are model estimates; spacecraft operators defer to the responsible "
+        "agencies."
     ),
-    responses={422: {"description": "Invalid orbit or year (problem+json naming the field)"}},
+    responses=problem_responses(422),
 )
-def compute_geometry(body: GeometryIn) -> GeometryOut:
-    orbit = parse_orbit(body.orbit, path="orbit.")
-    return GeometryOut.model_validate(quick_look(orbit, body.year).to_json())
+async def compute_geometry(
+    body: GeometryIn, request: Request, settings: SettingsDep
+) -> GeometryOut:
+    orbit = body.orbit.to_domain()
+    try:
+        result = await _workers(request).run(
+            request, settings.request_max_seconds, _quick_look_json, orbit.to_json(), body.year
+        )
+    except TimeLimitExceeded as exc:
+        raise ProblemError(
+            422,
+            "Time limit exceeded",
+            f"the geometry of this orbit took too long ({exc}); check its elements",
+            TYPE_BASE + "time-limit",
+        ) from None
+    except ClientGone:
+        raise ProblemError(499, "Client Closed Request", "the client went away") from None
+    return GeometryOut.model_validate(result)

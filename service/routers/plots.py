@@ -6,17 +6,17 @@ dashboard, reports and other dashboards embed the same picture with no script an
 
 from typing import Annotated, Literal
 
-from fastapi import APIRouter, Depends, Path, Query, Request, Response
+from fastapi import APIRouter, Path, Query, Response
 from pydantic import BaseModel, ConfigDict, Field
 
 from dynamics.forecast import CAUTIONS
 
 from .. import plots
 from ..exports import PROFILE_COLUMNS, profiles_csv
-from ..jobs import Job, JobStore
+from ..jobs import Job
 from ..problems import TYPE_BASE, ProblemError, problem_responses
-from ._jobs import finished_job
-from .forecasts import _not_found  # the same 404 as the forecast routes
+from ._jobs import Jobs
+from .forecasts import ROUTES as FORECASTS
 
 router = APIRouter(prefix="/v1", tags=["plots"])
 
@@ -41,13 +41,6 @@ CHART_DESCRIPTIONS = {
     "radiants": "Radiants of the simulated meteoroids (small) and each trail's median (large): "
     "right ascension (increasing to the left) against declination, deg, J2000.",
 }
-
-
-def get_jobs(request: Request) -> JobStore:
-    return request.app.state.jobs
-
-
-Jobs = Annotated[JobStore, Depends(get_jobs)]
 
 
 class PlotLinksOut(BaseModel):
@@ -110,8 +103,8 @@ class PlotIndexOut(BaseModel):
     cautions: list[str]
 
 
-def _done_job(jobs: JobStore, job_id: str) -> Job:
-    return finished_job(jobs, job_id, _not_found, "job", "plots")
+def _done_job(jobs, job_id: str) -> Job:
+    return FORECASTS.finished(jobs, job_id, "plots")
 
 
 def _plot_url(job_id: str, chart: str, year: int, fmt: str) -> str:

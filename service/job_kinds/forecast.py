@@ -1,0 +1,244 @@
+"""Forecast jobs: run :func:`dynamics.forecast.forecast` for a canonical request, and keep each
+encounter in the ``encounters`` index beside the result (for ``GET /v1/encounters``).
+
+The stored result also carries each meteoroid's crossing (``particle_crossings``) for the
+dashboard's charts.
+"""
+
+import json
+import math
+import sqlite3
+from dataclasses import replace
+
+from ..jobs import Job, format_wall_utc, parse_utc
+from . import JobKind
+
+#: Most particle crossings stored per trail crossing (evenly thinned beyond that): enough to
+#: draw every meteoroid of the default 300-particle budget, small enough to keep results compact.
+MAX_STORED_CROSSINGS_PER_TRAIL = 500
+#: Keys of a ``zhr`` object read (in this order) as its number for the ``min_zhr`` filter.
+ZHR_KEYS = ("estimate", "peak", "value", "max", "zhr")
+
+
+def ejection_model(o: dict):
+    """The EjectionModel a canonical request's ``options`` describe (forecasts and screenings)."""
+    from dynamics.release import EjectionModel
+
+    return replace(
+        EjectionModel(),
+        speed_law=o["speed_law"],
+        mass_index=o["mass_index"],
+        meteoroid_density_g_cm3=o["meteoroid_density_g_cm3"],
+        nucleus_radius_km=o["nucleus_radius_km"],
+    )
+
+
+def forecast_inputs(job: Job, workers: int):
+    """The (OrbitInput, ForecastOptions) a job's canonical request describes."""
+    from dynamics.forecast import Calibration, ForecastOptions
+    from dynamics.orbit_input import parse_orbit
+
+    req = job.request
+    o = req["options"]
+    orbit = parse_orbit(req["orbit"])
+    options = ForecastOptions(
+        first_year=req["years"][0],
+        last_year=req["years"][1],
+        particles=o["particles"],
+        seed=o["seed"],
+        trails=tuple(o["trails"]) if o["trails"] is not None else None,
+        max_trail_age_years=o["max_trail_age_years"],
+        integrator=o["integrator"],
+        workers=workers,
+        ejection=ejection_model(o),
+        dust_mass_per_return_g=o.get("dust_mass_per_return_g"),
+        calibration=Calibration(**o["calibration"]) if o.get("calibration") else None,
+    )
+    return orbit, options
+
+
+def solution_particle_crossings(computed) -> list[dict]:
+    """:func:`particle_crossings` for a multi-solution result, indexed like its merged lists."""
+    per_solution = [particle_crossings(r, r.to_json()) for r in computed.results]
+    out = []
+    for kind, key in (("encounter", "encounters"), ("near_miss", "near_misses")):
+        for m, (si, k, row) in enumerate(computed.merged_rows(key)):
+            for item in per_solution[si]:
+                if item["kind"] == kind and item["index"] == k:
+                    out.append(dict(item, index=m, solution=row["solution"]))
+    return out
+
+
+def particle_crossings(computed, result_json: dict) -> list[dict]:
+    """Each trail crossing's simulated meteoroids, compact, for the dashboard's charts.
+
+    One item per encounter and near miss (``kind`` and ``index`` point into the result's
+    ``encounters`` / ``near_misses``), with the meteoroids behind it: when Earth passes each one's
+    node (``t_earth_utc``), the solar longitude then (deg, geometric J2000), the signed miss
+    distance (au, meteoroid minus Earth) and the radiant (RA/Dec deg, J2000). Meteoroids without
+    a crossing are left out; above :data:`MAX_STORED_CROSSINGS_PER_TRAIL` they are evenly thinned.
+    """
+    import numpy as np
+
+    from dynamics.timescales import format_utc
+
+    out = []
+    for kind, key, group in (
+        ("encounter", "encounters", computed.encounters),
+        ("near_miss", "near_misses", computed.near_misses),
+    ):
+        for k, enc in enumerate(group):
+            c = enc.crossings
+            ok = np.all(
+                np.isfinite(
+                    [
+                        c.t_earth_tdb_jd,
+                        c.miss_distance_au,
+                        c.solar_longitude_deg,
+                        c.ra_deg,
+                        c.dec_deg,
+                    ]
+                ),
+                axis=0,
+            )
+            idx = np.flatnonzero(ok)
+            if len(idx) > MAX_STORED_CROSSINGS_PER_TRAIL:
+                pick = np.linspace(0, len(idx) - 1, MAX_STORED_CROSSINGS_PER_TRAIL)
+                idx = idx[np.unique(pick.round().astype(int))]
+            trail = result_json[key][k]["trail"]
+            out.append(
+                {
+                    "kind": kind,
+                    "index": k,
+                    "year": enc.year,
+                    "perihelion_year": trail["perihelion_year"],
+                    "revolutions": trail["revolutions"],
+                    "t_earth_utc": [
+                        str(t) for t in np.atleast_1d(format_utc(c.t_earth_tdb_jd[idx]))
+                    ]
+                    if len(idx)
+                    else [],
+                    "solar_longitude_deg": np.round(c.solar_longitude_deg[idx], 5).tolist(),
+                    "miss_distance_au": np.round(c.miss_distance_au[idx], 7).tolist(),
+                    "ra_deg": np.round(c.ra_deg[idx], 3).tolist(),
+                    "dec_deg": np.round(c.dec_deg[idx], 3).tolist(),
+                }
+            )
+    return out
+
+
+def run(job: Job, ctx) -> dict:
+    """The forecast (or every orbit solution's) for ``job``, as stored JSON."""
+    from dynamics.forecast import forecast
+    from dynamics.uncertainty import forecast_solutions
+
+    orbit, options = forecast_inputs(job, ctx.workers)
+    if orbit.solutions or orbit.covariance is not None:
+        clones = job.request["options"].get("clones", 5)
+        computed = forecast_solutions(
+            orbit,
+            options,
+            clones=clones,
+            progress=ctx.progress,
+            executor=ctx.executor,
+            should_stop=ctx.should_stop,
+        )
+        result = computed.to_json()
+        result["particle_crossings"] = solution_particle_crossings(computed)
+    else:
+        computed = forecast(
+            orbit,
+            options,
+            progress=ctx.progress,
+            executor=ctx.executor,
+            should_stop=ctx.should_stop,
+        )
+        result = computed.to_json()
+        result["particle_crossings"] = particle_crossings(computed, result)
+    return result
+
+
+def zhr_number(encounter: dict) -> float | None:
+    """The number the ``min_zhr`` filter compares, when the encounter carries a ``zhr``."""
+    z = encounter.get("zhr")
+    if isinstance(z, int | float) and not isinstance(z, bool):
+        return float(z) if math.isfinite(z) else None
+    if isinstance(z, dict):
+        for key in ZHR_KEYS:
+            v = z.get(key)
+            if isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v):
+                return float(v)
+    return None
+
+
+def store_result(conn: sqlite3.Connection, job: Job, result: dict) -> None:
+    """One ``encounters`` row per predicted encounter (not near misses), in the done transaction."""
+    parent = str(result.get("parent", {}).get("name", "") or job.label)
+    conn.execute("DELETE FROM encounters WHERE job_id = ?", (job.id,))
+    conn.executemany(
+        "INSERT INTO encounters (job_id, idx, parent_name, year, peak_utc, zhr, encounter_json) "
+        "VALUES (?, ?, ?, ?, ?, ?, ?)",
+        [
+            (
+                job.id,
+                k,
+                parent,
+                int(e.get("year") or e["peak_utc"][:4]),
+                format_wall_utc(parse_utc(e["peak_utc"])),  # one format: sorts as text
+                zhr_number(e),
+                json.dumps(e),
+            )
+            for k, e in enumerate(result.get("encounters", []))
+        ],
+    )
+
+
+def list_encounters(
+    store,
+    from_utc: str | None,
+    to_utc: str | None,
+    parent: str | None,
+    min_zhr: float | None,
+    after: tuple[str, str, int] | None,
+    limit: int,
+    include_superseded: bool = False,
+) -> list[sqlite3.Row]:
+    """Stored encounters ordered by peak time, filtered, after the cursor, at most ``limit``.
+
+    Unless ``include_superseded``, an encounter is listed only from the latest done forecast of
+    its parent with the same options that covers its year: a forecast run again (a new orbit
+    solution, a new model version) replaces the older one's encounters instead of doubling them.
+    """
+    where, params = [], []
+    if from_utc is not None:
+        where.append("e.peak_utc >= ?")
+        params.append(from_utc)
+    if to_utc is not None:
+        where.append("e.peak_utc <= ?")
+        params.append(to_utc)
+    if parent:
+        escaped = parent.replace("\\", "\\\\").replace("%", "\\%").replace("_", "\\_")
+        where.append("e.parent_name LIKE ? ESCAPE '\\'")
+        params.append(f"%{escaped}%")
+    if min_zhr is not None:
+        where.append("(e.zhr IS NULL OR e.zhr >= ?)")
+        params.append(min_zhr)
+    if after is not None:
+        where.append("(e.peak_utc, e.job_id, e.idx) > (?, ?, ?)")
+        params.extend(after)
+    if not include_superseded:
+        where.append(
+            "NOT EXISTS (SELECT 1 FROM jobs n WHERE n.kind = 'forecast' AND n.state = 'done' "
+            "AND n.series_key = j.series_key AND n.first_year <= e.year "
+            "AND n.last_year >= e.year AND (n.finished_utc, n.id) > (j.finished_utc, j.id))"
+        )
+    sql = (
+        "SELECT e.job_id, e.idx, e.parent_name, e.peak_utc, e.encounter_json, "
+        "j.finished_utc FROM encounters e JOIN jobs j ON j.id = e.job_id "
+        + ("WHERE " + " AND ".join(where) if where else "")
+        + " ORDER BY e.peak_utc, e.job_id, e.idx LIMIT ?"
+    )
+    return store.query(sql, (*params, int(limit)))
+
+
+KIND = JobKind("forecast", run, store_result, failure_title="Forecast failed")
