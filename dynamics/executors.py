@@ -26,20 +26,27 @@ def default_workers() -> int:
         return max(1, os.cpu_count() or 1)
 
 
+def process_pool(workers: int) -> cf.ProcessPoolExecutor:
+    """A process pool of ``workers`` processes: ``spawn`` (safe under a threaded web server)
+    and workers that die with this process (no orphans after a SIGKILL). Every process pool
+    of trailcast comes from here; the caller shuts it down."""
+    ctx = multiprocessing.get_context("spawn")
+    return cf.ProcessPoolExecutor(
+        max_workers=workers,
+        mp_context=ctx,
+        initializer=die_with_parent,
+        initargs=(os.getpid(),),
+    )
+
+
 @contextmanager
 def make_executor(workers: int):
-    """A process pool of ``workers`` processes (``spawn``: safe under a threaded web server),
-    or None for ``workers <= 1`` (run in this process). Use as a context manager."""
+    """:func:`process_pool` as a context manager, or None for ``workers <= 1`` (run in this
+    process)."""
     if workers <= 1:
         yield None
         return
-    ctx = multiprocessing.get_context("spawn")
-    with cf.ProcessPoolExecutor(
-        max_workers=workers,
-        mp_context=ctx,
-        initializer=die_with_parent,  # no orphans after a SIGKILL of this process
-        initargs=(os.getpid(),),
-    ) as pool:
+    with process_pool(workers) as pool:
         yield pool
 
 

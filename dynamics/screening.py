@@ -52,7 +52,6 @@ import concurrent.futures as cf
 import hashlib
 import json
 import math
-import multiprocessing
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, replace
 
@@ -60,6 +59,7 @@ import numpy as np
 
 from . import __version__
 from .errors import ComputationStopped, TrailcastError
+from .executors import process_pool
 from .forecast import CAUTIONS, NODE_MAX_DISTANCE_AU, ForecastOptions, forecast
 from .geometry import TRAIL_SIMULATION_MOID_AU, earth_orbit_at, moid_many_vs_earth, nodes_many
 from .orbit_input import OrbitInput
@@ -488,8 +488,7 @@ def screen_batch(
         (1 = smallest MOID in this batch).
     """
     if executor is None and workers > 1:
-        ctx = multiprocessing.get_context("spawn")  # safe under a threaded web server
-        with cf.ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
+        with process_pool(workers) as pool:
             return screen_batch(
                 orbits,
                 rule,

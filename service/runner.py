@@ -21,15 +21,12 @@ transaction. What every kind shares lives here, once:
 
 import concurrent.futures as cf
 import logging
-import multiprocessing
-import os
 import threading
 import time
 import traceback
 from concurrent.futures.process import BrokenProcessPool
 
 from dynamics.errors import ComputationStopped, TrailcastError
-from dynamics.workers import die_with_parent
 
 from .jobs import PROBLEM_TYPE_BASE, Job, JobStore, LeaseLost, new_runner_name
 from .settings import Settings
@@ -58,13 +55,9 @@ class JobTimedOut(Exception):
 
 def make_local_pool(workers: int) -> cf.ProcessPoolExecutor:
     """A spawn-based process pool (safe under a threaded server) whose workers die with us."""
-    ctx = multiprocessing.get_context("spawn")
-    return cf.ProcessPoolExecutor(
-        max_workers=workers,
-        mp_context=ctx,
-        initializer=die_with_parent,
-        initargs=(os.getpid(),),
-    )
+    from dynamics.executors import process_pool
+
+    return process_pool(workers)
 
 
 def kill_pool(pool: cf.ProcessPoolExecutor) -> None:
