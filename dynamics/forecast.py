@@ -56,6 +56,7 @@ from .targeting import (
     beta_class_edges,
     beta_classes,
     find_targets,
+    parent_nodes,
     pilot_pick,
     predicted_offset,
     select_for_window,
@@ -519,20 +520,10 @@ def _trails_in_scope(returns, options, t_min, y_start, y_end):
 
 
 def _no_target_note(returns, trail_ids) -> str:
-    from .crossings import node_of_orbit
-
-    el = returns[trail_ids[-1]].elements
-    parts = []
-    for which in ("ascending", "descending"):
-        r, _ = node_of_orbit(
-            float(el.q_au),
-            float(el.e),
-            float(el.incl_deg),
-            float(el.node_deg),
-            float(el.peri_deg),
-            which,
-        )
-        parts.append(f"{which} node at {float(r):.3f} au" if np.isfinite(r) else f"no {which} node")
+    parts = [
+        f"{which} node at {r:.3f} au" if np.isfinite(r) else f"no {which} node"
+        for which, r, _ in parent_nodes(returns[trail_ids[-1]])
+    ]
     return (
         f"no trail can meet Earth in the requested years: the parent's {' and '.join(parts)} "
         f"from the Sun, none within {NODE_MAX_DISTANCE_AU} au of Earth's orbit"
@@ -569,13 +560,9 @@ def _pilot(targets, trails, options, executor, say) -> int:
             half = tg.span_days + PILOT_OUTPUT_MARGIN_DAYS
             step = max(PILOT_MIN_STEP_DAYS, tg.span_days * PILOT_STEP_PER_SPAN)
             out_t = _output_times(tr.ret, tg.t_earth, half, step, options.dt_days)
-            for start, sub in _chunks(pick, options):
-                tasks.append(
-                    _make_task(
-                        ("pilot", ti, round_, start), tr.ret, tr.pool.take(sub), out_t, options
-                    )
-                )
-                meta.append((ti, sub))
+            _add_tasks(
+                tasks, meta, ("pilot", ti, round_), ti, pick, tr.pool, tr.ret, out_t, options
+            )
         if not tasks:
             break
         say(0.1 + 0.04 * round_, "pilot integration")
@@ -737,13 +724,7 @@ def _main_rounds(targets, trails, options, executor, say, integrated):
                 MAIN_STEP_DAYS,
                 options.dt_days,
             )
-            for start, sub in _chunks(pick, options):
-                tasks.append(
-                    _make_task(
-                        ("main", round_, ti, start), tr.ret, tg.pool.take(sub), out_t, options
-                    )
-                )
-                meta.append((ti, sub))
+            _add_tasks(tasks, meta, ("main", round_, ti), ti, pick, tg.pool, tr.ret, out_t, options)
         if not tasks:
             break
         results = run_tasks(
@@ -904,6 +885,13 @@ def _calibrate(orbit, options, executor):
         "factor": round_sig(factor, 4),
     }
     return info, replace(options, zhr_scale=factor)
+
+
+def _add_tasks(tasks, meta, key, ti, pick, pool, ret, out_t, options) -> None:
+    """Append one target's integration chunks (and what each holds) to the run's lists."""
+    for start, sub in _chunks(pick, options):
+        tasks.append(_make_task((*key, start), ret, pool.take(sub), out_t, options))
+        meta.append((ti, sub))
 
 
 def _chunks(pick: np.ndarray, options):

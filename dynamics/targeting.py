@@ -103,14 +103,9 @@ def parent_node_time(ret: ParentReturn, node: str) -> float:
     return ret.tp_tdb_jd + float(dt[0])
 
 
-def nodes_near_earth(ret: ParentReturn, max_distance_au: float):
-    """The parent's nodes (on return ``ret``) within ``max_distance_au`` of Earth's orbit.
-
-    Earth's distance is DE423's at the time Earth passes the node's longitude nearest the
-    return (clipped into DE423's span). Returns a list of (node, r_node_au, node_longitude_deg).
-    """
-    from .ephemeris import EPHEMERIS_SPAN_TDB_JD, heliocentric_state
-
+def parent_nodes(ret: ParentReturn):
+    """[(node, heliocentric distance au (NaN: none), longitude deg)] for both nodes of the
+    parent's orbit at return ``ret``."""
     el = ret.elements
     out = []
     for which in ("ascending", "descending"):
@@ -122,6 +117,20 @@ def nodes_near_earth(ret: ParentReturn, max_distance_au: float):
             float(el.peri_deg),
             which,
         )
+        out.append((which, float(r), float(lon)))
+    return out
+
+
+def nodes_near_earth(ret: ParentReturn, max_distance_au: float):
+    """The parent's nodes (on return ``ret``) within ``max_distance_au`` of Earth's orbit.
+
+    Earth's distance is DE423's at the time Earth passes the node's longitude nearest the
+    return (clipped into DE423's span). Returns a list of (node, r_node_au, node_longitude_deg).
+    """
+    from .ephemeris import EPHEMERIS_SPAN_TDB_JD, heliocentric_state
+
+    out = []
+    for which, r, lon in parent_nodes(ret):
         if not np.isfinite(r):
             continue
         t = float(
