@@ -64,7 +64,9 @@ def test_dask_cluster_and_local_pool_give_the_same_encounters(tmp_path):
     assert ready["workers"].startswith("dask: 2 workers")
     assert on_dask["id"] == local["id"]  # where it runs is not part of the question
     # Same seed, same chunks: the numbers agree exactly, not just within a tolerance.
-    assert len(local["result"]["encounters"]) >= 1
+    # something to compare: the 2026 trail crosses near Earth's path in 2040 (an encounter or
+    # a near miss, as the sample of 30 meteoroids decides: the invariant is where it runs)
+    assert local["result"]["encounters"] + local["result"]["near_misses"]
     assert on_dask["result"]["encounters"] == local["result"]["encounters"]
     assert on_dask["result"]["near_misses"] == local["result"]["near_misses"]
     assert (
