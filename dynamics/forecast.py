@@ -23,10 +23,10 @@ from .activity import (
     DEFAULT_EROSION_M_PER_RETURN,
     MODEL_UNCERTAINTY_FACTOR,
     Profile,
-    activity_profile,
     default_dust_mass_per_return_g,
     limiting_mass_g,
     meteoroids_per_particle,
+    trail_activity,
 )
 from .constants import DAYS_PER_JULIAN_YEAR
 from .ejection import population_index_from_mass_index
@@ -236,6 +236,10 @@ class TrailEncounter:
                 "low": _zhr(self.zhr_low),
                 "high": _zhr(self.zhr_high),
                 "mode": self.zhr_mode,
+                "box_count_estimate": None if self.profile is None else _zhr(self.profile.box_zhr),
+                "estimators_disagree": None
+                if self.profile is None
+                else self.profile.estimators_disagree,
             },
             "window": None
             if self.profile is None or self.profile.window_tdb_jd is None
@@ -279,10 +283,13 @@ class ForecastResult:
                 "zhr_mode": "calibrated" if self.calibration else "absolute",
                 "calibration": self.calibration,
                 "dust_mass_per_return_g": self.options.dust_mass(),
-                "zhr_method": "kernel density of simulated meteoroids above the +6.5 mag mass "
-                "limit along Earth's path; flux Q = n Vg; ZHR = Q x 37200 km^2 / c(r) "
-                "(Koschack & Rendtel 1990); low/high: bootstrap 16-84 % widened by the model "
-                "factor of the mode",
+                "zhr_method": "per mass decade, a Gaussian tube (median, 16-84 % half-range) "
+                "along and across Earth's path fitted to the simulated meteoroids above the "
+                "+6.5 mag mass limit after removing their drift with arrival time; flux "
+                "Q = n Vg (1 + v_esc^2/Vg^2); ZHR = Q x 37200 km^2 / c(r) (Koschack & Rendtel "
+                "1990); box_count_estimate: weighted meteoroids in a space-time box around Earth "
+                "(after Vaubaillon et al. 2005), estimators_disagree beyond a factor 3; low/high: "
+                "bootstrap 16-84 % widened by the model factor of the mode",
             },
             "conventions": {
                 "times": "UTC, ISO 8601",
@@ -843,15 +850,17 @@ def _summarise(
     )
     counts = np.where(met.mass_g >= limiting_mass_g(sub.vinf_km_s), counts, 0.0)
     _, v_e = heliocentric_state("earth", peak)
-    prof = activity_profile(
+    prof = trail_activity(
         sub.t_earth_tdb_jd,
         sub.miss_distance_au,
-        sub.vz_au_d,
-        sub.vg_km_s,
+        lag[keep],
+        met.mass_g,
         counts,
-        options.window_days,
-        float(np.linalg.norm(v_e)),
-        r_pop,
+        sub.vg_km_s,
+        sub.vz_au_d,
+        earth_speed_au_d=float(np.linalg.norm(v_e)),
+        population_index=r_pop,
+        window_days=options.window_days,
         rng=options.seed,
     )
     mode = "calibrated" if options.calibration is not None else "absolute"
