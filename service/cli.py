@@ -781,6 +781,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("id", metavar="ID", help="job id printed by `trailcast submit`")
     add_service_options(p, "wait until the job is done, failed or cancelled")
     p.set_defaults(func=cmd_status)
+
+    from .hindcast import add_parser as add_hindcast_parser
+
+    add_hindcast_parser(sub, UsageError)
     return parser
 
 
