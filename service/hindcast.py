@@ -1,17 +1,10 @@
 """``trailcast hindcast``: run the hindcast catalogue and write the report (JSON, Markdown, PNG, SVG).
 
-The catalogue (``validation/hindcasts.json``) is a JSON object::
-
-    {"parents": {"55P/Tempel-Tuttle": {<orbit keys as in the orbit JSON>, "source": "..."}},
-     "rows": [{"id": "...", "parent": "55P/Tempel-Tuttle", "year": 1999, "trail_year": 1899,
-               "outburst": true, "tolerance_min": 15,
-               "observed": {"peak_utc": "1999-11-18T02:02:00Z", "zhr": 3700,
-                            "zhr_uncertainty": 300, "fwhm_hours": 1.0},
-               "source": "..."}]}
-
-Keys of a parent that are not orbit keys (``source``, notes) are kept for the report and not
-passed to the orbit parser. The numerical part (running rows, scoring, the calibration rule) is
-:mod:`dynamics.hindcast`; this module reads, checks, writes and draws.
+The catalogue is ``validation/hindcasts.json`` (its fields: ``validation/README.md``): ``orbits``
+by parent designation and ``rows`` of past outbursts and no-outburst returns. This module reads
+and checks what the run needs, converts each orbit to the orbit JSON the rest of trailcast
+reads, runs :func:`dynamics.hindcast.run_catalogue`, scores with :func:`dynamics.hindcast.score`
+and writes the report; the numerical part lives in :mod:`dynamics.hindcast`.
 """
 
 import functools
@@ -23,7 +16,8 @@ from datetime import UTC, datetime
 from pathlib import Path
 
 from dynamics.hindcast import DEFAULT_PARTICLES, run_catalogue, score
-from dynamics.orbit_input import ORBIT_KEYS, parse_orbit
+from dynamics.orbit_input import parse_orbit
+from dynamics.timescales import iso_to_tdb_jd
 
 DEFAULT_CATALOGUE = "validation/hindcasts.json"
 DEFAULT_OUT = "validation/report"
@@ -38,12 +32,34 @@ class CatalogueError(ValueError):
     """The catalogue file is not what :func:`load_catalogue` expects (names the field)."""
 
 
-def _orbit_part(parent: dict) -> dict:
-    return {k: v for k, v in parent.items() if k in ORBIT_KEYS}
+#: Catalogue orbit fields -> the orbit JSON keys of :mod:`dynamics.orbit_input`.
+_ORBIT_FIELDS = {
+    "epoch_tdb_jd": "epoch",
+    "q_au": "q",
+    "e": "e",
+    "incl_deg": "i",
+    "node_deg": "node",
+    "peri_deg": "peri",
+    "tp_tdb_jd": "tp",
+}
+
+
+def orbit_json(name: str, entry: dict) -> dict:
+    """The orbit JSON of one catalogue parent (nominal solution; non-gravitational terms when
+    the catalogue gives them)."""
+    out = {"name": name}
+    for src, dst in _ORBIT_FIELDS.items():
+        if src not in entry:
+            raise CatalogueError(f"orbits.{name}.{src}: missing (required)")
+        out[dst] = entry[src]
+    ng = entry.get("nongrav_au_d2")
+    if ng:
+        out["nongrav"] = {k: ng[k] for k in ("a1", "a2", "a3") if k in ng}
+    return out
 
 
 def load_catalogue(path) -> tuple[list[dict], dict[str, dict], dict]:
-    """Read and check a hindcast catalogue: (rows, orbits by parent, the whole document)."""
+    """Read and check a hindcast catalogue: (rows, orbit JSON by parent, the whole document)."""
     try:
         doc = json.loads(Path(path).read_text(encoding="utf-8"))
     except OSError as exc:
@@ -52,54 +68,58 @@ def load_catalogue(path) -> tuple[list[dict], dict[str, dict], dict]:
         raise CatalogueError(f"{path}: not valid JSON ({exc.msg} at line {exc.lineno})") from None
     if not isinstance(doc, dict) or not isinstance(doc.get("rows"), list):
         raise CatalogueError(f"{path}: expected an object with a list 'rows'")
-    parents = doc.get("parents")
+    parents = doc.get("orbits")
     if not isinstance(parents, dict) or not parents:
-        raise CatalogueError(f"{path}: expected an object 'parents' of orbits by name")
+        raise CatalogueError(f"{path}: expected an object 'orbits' of parent orbits by name")
     orbits = {}
-    for name, parent in parents.items():
-        if not isinstance(parent, dict):
-            raise CatalogueError(f"{path}: parents.{name}: expected an orbit object")
-        orbit = _orbit_part(parent)
-        orbit.setdefault("name", name)
+    for name, entry in parents.items():
+        if not isinstance(entry, dict):
+            raise CatalogueError(f"{path}: orbits.{name}: expected an object")
+        orbit = orbit_json(name, entry)
         try:
             parse_orbit(orbit)
         except ValueError as exc:
-            raise CatalogueError(f"{path}: parents.{name}: {exc}") from None
+            raise CatalogueError(f"{path}: orbits.{name}: {exc}") from None
         orbits[name] = orbit
     seen = set()
     for k, row in enumerate(doc["rows"]):
         where = f"{path}: rows[{k}]"
         if not isinstance(row, dict):
             raise CatalogueError(f"{where}: expected an object")
-        for key in ("id", "parent", "year", "trail_year", "outburst"):
+        for key in ("id", "parent", "year", "kind", "observed"):
             if key not in row:
                 raise CatalogueError(f"{where}.{key}: missing (required)")
         if row["id"] in seen:
             raise CatalogueError(f"{where}.id: {row['id']!r} appears twice")
         seen.add(row["id"])
         if row["parent"] not in orbits:
-            raise CatalogueError(f"{where}.parent: {row['parent']!r} is not in 'parents'")
-        for key in ("year", "trail_year"):
-            if not isinstance(row[key], int) or isinstance(row[key], bool):
-                raise CatalogueError(f"{where}.{key}: expected an integer year")
-        if row["trail_year"] >= row["year"]:
-            raise CatalogueError(f"{where}.trail_year: must precede the year")
-        obs = row.get("observed") or {}
+            raise CatalogueError(f"{where}.parent: {row['parent']!r} is not in 'orbits'")
+        if not isinstance(row["year"], int) or isinstance(row["year"], bool):
+            raise CatalogueError(f"{where}.year: expected an integer year")
+        for j, trail in enumerate(row.get("trails") or []):
+            y = trail.get("perihelion_year") if isinstance(trail, dict) else None
+            if not isinstance(y, int) or isinstance(y, bool) or y >= row["year"]:
+                raise CatalogueError(
+                    f"{where}.trails[{j}].perihelion_year: expected a year before {row['year']}"
+                )
+        obs = row["observed"]
         if not isinstance(obs, dict):
             raise CatalogueError(f"{where}.observed: expected an object")
-        for key in ("zhr", "zhr_uncertainty", "fwhm_hours"):
+        for key in ("zhr", "zhr_low", "zhr_high", "fwhm_min"):
             v = obs.get(key)
             if v is not None and (
                 not isinstance(v, int | float) or isinstance(v, bool) or not v >= 0
             ):
                 raise CatalogueError(f"{where}.observed.{key}: expected a number >= 0")
-        if obs.get("peak_utc") is not None:
-            from dynamics.timescales import iso_to_tdb_jd
-
+        times = [("observed.peak_utc", obs.get("peak_utc"))]
+        times += [("check_window_utc", t) for t in row.get("check_window_utc") or []]
+        for field, text in times:
+            if text is None:
+                continue
             try:
-                iso_to_tdb_jd(obs["peak_utc"])
+                iso_to_tdb_jd(text)
             except ValueError as exc:
-                raise CatalogueError(f"{where}.observed.peak_utc: {exc}") from None
+                raise CatalogueError(f"{where}.{field}: {exc}") from None
         tol = row.get("tolerance_min")
         if tol is not None and (not isinstance(tol, int | float) or not tol > 0):
             raise CatalogueError(f"{where}.tolerance_min: expected minutes > 0")
@@ -151,21 +171,24 @@ def markdown(report: dict) -> str:
             f"| median FWHM ratio | {_fmt(s['median_fwhm_ratio'], '.3g')} |",
             f"| storms (ZHR > 1000) predicted where none was seen | "
             f"{s['storms_predicted_where_none_seen']} |",
-            f"| encounters predicted where none was seen | "
-            f"{s['outbursts_predicted_where_none_seen']} |",
+            f"| no-outburst rows predicted above x3 the level seen | "
+            f"{s['no_outburst_rows_over_x3_observed']} |",
+            f"| rows that could not run (reasons in the JSON) | {s['rows_failed']} |",
             "",
-            "| row | parent | year | trail | outburst | offset (min) | tol. | miss (au) | "
+            "| row | parent | year | trails | outburst | offset (min) | tol. | miss (au) | "
             "ZHR pred. | ZHR obs. | ZHR ratio | FWHM ratio | label | estimators disagree |",
             "|---|---|---|---|---|---|---|---|---|---|---|---|---|---|",
         ]
         for r in block["rows"]:
             lines.append(
-                f"| {r['id']} | {r['parent']} | {r['year']} | {r['trail_year']} | "
+                f"| {r['id']} | {r['parent']} | {r['year']} | "
+                f"{', '.join(map(str, r['trails'])) or 'all'} | "
                 f"{_yes(r['outburst'])} | {_fmt(r['offset_min'], '+.1f')} | "
                 f"{_fmt(r['tolerance_min'], 'g')} | {_fmt(r['miss_distance_au'], '+.5f')} | "
                 f"{_fmt(r['predicted_zhr'], '.3g')} | {_fmt(r['observed_zhr'], 'g')} | "
                 f"{_fmt(r['zhr_ratio'], '.3g')} | {_fmt(r['fwhm_ratio'], '.3g')} | "
-                f"{r['label'] or 'no crossing'} | {_yes(r['estimators_disagree'])} |"
+                f"{r['label'] or ('failed' if r['error'] else 'no crossing')} | "
+                f"{_yes(r['estimators_disagree'])} |"
             )
         lines.append("")
     cal = report["scores"]["calibration"]
