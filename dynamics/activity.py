@@ -167,6 +167,11 @@ MIN_ALONG_WIDTH_DAYS = 6371.0 / 30.0 / 86400.0
 #: Outlier clip (robust sigmas) in the straight-line fit of a class's drift against arrival lag
 #: (no source: planetary close encounters throw a few meteoroids far off).
 DRIFT_CLIP_SIGMAS = 3.0
+#: The drift with arrival lag is evaluated at lag 0 only when the class's lags surround it;
+#: otherwise at the nearest of these percentiles of its lags: the estimator interpolates along
+#: the trail, never extrapolates (a fit over lopsided arrivals, e.g. all 8-20 days before
+#: Earth, moved one trail's centre by 0.01 au). No source.
+REFERENCE_LAG_PERCENTILES = (10.0, 90.0)
 #: Half-size of the space-time box of the cross-check, in the pooled robust widths of the trail
 #: along and across Earth's path (no source: small enough to measure the local density, large
 #: enough to hold meteoroids; a centred Gaussian tube's box mean is 0.96 of its peak per axis).
@@ -221,6 +226,7 @@ class MassClass:
     miss_drift_au_per_day: float
     flux_factor: float  # mean of Vg x focusing / crossing speed (km/s per au/day)
     peak_zhr: float
+    reference_lag_days: float = 0.0  # where the drift was evaluated (0 unless lopsided)
 
     def to_json(self) -> dict:
         return {
@@ -233,6 +239,7 @@ class MassClass:
             "t_sigma_hours": round(self.t_sigma_days * 24.0, 3),
             "earth_offset_sigmas": round(abs(self.miss_centre_au) / self.miss_sigma_au, 2),
             "peak_zhr": float(f"{self.peak_zhr:.3g}"),
+            "reference_lag_days": round(self.reference_lag_days, 2),
         }
 
 
@@ -342,8 +349,9 @@ def trail_activity(
     :func:`mass_classes`):
 
     - the drift of miss distance and of Earth's passage time with arrival lag is fitted as a
-      straight line and removed (values at zero lag: an interpolation, the window being
-      symmetric);
+      straight line and removed: values at zero lag when the class's arrivals surround it,
+      else at the nearest decile of its lags (:data:`REFERENCE_LAG_PERCENTILES`; never an
+      extrapolation along the trail);
     - the class is taken as a Gaussian tube: centre = median, width = 16-84 % half-range (robust
       sigma), along Earth's path (time) and across it (miss distance); the density at Earth's
       path (miss 0) is then analytic and is not broadened by any kernel, so the wings of the
@@ -414,8 +422,9 @@ def trail_activity(
             k = idx[g]
             b_t = _drift(lag[k], te[k])
             b_r = _drift(lag[k], dr[k])
-            t0 = te[k] - b_t * lag[k]
-            r0 = dr[k] - b_r * lag[k]
+            lag_ref = float(np.clip(0.0, *np.percentile(lag[k], REFERENCE_LAG_PERCENTILES)))
+            t0 = te[k] - b_t * (lag[k] - lag_ref)
+            r0 = dr[k] - b_r * (lag[k] - lag_ref)
             out.append(
                 (
                     k,
@@ -427,6 +436,7 @@ def trail_activity(
                     b_r,
                     float(c[k].sum()),
                     float(np.mean(fx[k])),
+                    lag_ref,
                 )
             )
         return out
@@ -434,7 +444,7 @@ def trail_activity(
     def zhr_on(grid, fitted, scale=1.0):
         total = np.zeros_like(grid)
         per = []
-        for _, mt, st, _, mr, sr, _, ck, fk in fitted:
+        for _, mt, st, _, mr, sr, _, ck, fk, _ in fitted:
             g_t = np.exp(-0.5 * ((grid - mt) / st) ** 2) / (st * math.sqrt(2 * math.pi))
             g_r = math.exp(-0.5 * (mr / sr) ** 2) / (sr * math.sqrt(2 * math.pi))
             z = zhr_from_flux(scale * ck * g_t * g_r * fk * norm, population_index)
@@ -475,6 +485,7 @@ def trail_activity(
             f[6],
             f[8],
             float(z.max()),
+            f[9],
         )
         for f, z in zip(fitted, per, strict=True)
     )

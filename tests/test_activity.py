@@ -190,6 +190,25 @@ def test_gaussian_tube_density_is_recovered_at_its_core(drift):
 
 
 @pytest.mark.invariant
+def test_drift_is_not_extrapolated_beyond_the_sampled_arrivals():
+    # A tube whose centre drifts 5e-4 au/day with arrival lag, sampled only 8-20 days before
+    # Earth's passage: the centre is taken at the 90th percentile of the lags (about -9.2 d,
+    # analytic for a uniform sample on [-20, -8]), not extrapolated to lag 0.
+    rng = np.random.default_rng(15)
+    drift, mu = 5e-4, 0.004
+    t_e, y, lag, n0, vg, vz = _tube(rng, N_TUBE, 3e-4, mu, 30.0 / 1440.0, drift)
+    early = lag < -8.0
+    k = int(early.sum())
+    prof = _estimate(t_e[early], y[early], lag[early], np.full(k, 2e-3), np.ones(k), vg, vz)
+    cls = prof.classes[0]
+    assert -10.0 < cls.reference_lag_days < -8.5
+    expected = mu + drift * cls.reference_lag_days
+    # centre within 5 % of a width of the drifted tube's centre at that lag (sampling ~0.5 %)
+    assert cls.miss_centre_au == pytest.approx(expected, abs=0.05 * 3e-4)
+    assert cls.miss_sigma_au == pytest.approx(3e-4, rel=CORE_TOL)  # the drift is removed
+
+
+@pytest.mark.invariant
 @pytest.mark.parametrize("z", [3.0, 4.0])
 def test_gaussian_tube_wings_are_not_inflated(z):
     rng = np.random.default_rng(12)
