@@ -237,7 +237,8 @@ def draw(report: dict):
     for r in pts:
         obs, pred = float(r["observed_zhr"]), max(float(r["predicted_zhr"]), 1e-2)
         lo, hi = min(lo, obs, pred), max(hi, obs, pred)
-        ax2.plot(obs, pred, marker="o", mfc="none", color="#0072B2", ms=8, ls="none")
+        mark = "o" if r["outburst"] else "^"  # triangles: no-outburst rows (level seen)
+        ax2.plot(obs, pred, marker=mark, mfc="none", color="#0072B2", ms=8, ls="none")
         c = calibrated.get(r["id"])
         if c is not None and c["calibration_factor"] is not None and c["predicted_zhr"]:
             cp = max(float(c["predicted_zhr"]), 1e-2)
@@ -254,7 +255,7 @@ def draw(report: dict):
     ax2.set_ylim(lo, hi)
     ax2.set_xlabel("observed peak ZHR")
     ax2.set_ylabel("predicted peak ZHR")
-    ax2.set_title("ZHR (open: absolute, filled: calibrated; band: x3)")
+    ax2.set_title("ZHR (open: absolute, filled: calibrated; ^: no outburst; band: x3)")
     fig.suptitle(f"trailcast hindcast, {report['run_utc'][:10]}", fontsize=11)
     fig.tight_layout()
     return fig

@@ -319,9 +319,13 @@ def test_older_trail_is_broader(leonids_1999):
     by_rev = {e.revolutions: e for e in res.encounters + res.near_misses}
     young, old = by_rev[3], by_rev[4]  # 1899 and 1866 trails in 1999
     assert old.fwhm_hours > young.fwhm_hours
-    assert (old.profile.window_tdb_jd[1] - old.profile.window_tdb_jd[0]) > (
-        young.profile.window_tdb_jd[1] - young.profile.window_tdb_jd[0]
-    )
+    # the window (above 10 % of the peak) holds the peak and is wider than the FWHM (50 %); its
+    # width depends on the mix of mass classes (a sum of Gaussians), so it is not compared
+    # between trails
+    for e in (young, old):
+        w = e.profile.window_tdb_jd
+        assert w[0] <= e.profile.peak_tdb_jd <= w[1]
+        assert (w[1] - w[0]) * 24.0 > e.fwhm_hours
 
 
 @pytest.mark.invariant
