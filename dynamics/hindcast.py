@@ -204,11 +204,12 @@ def run_catalogue(
     seed: int = 1,
     workers: int = 1,
     progress: Callable[[int, int, str], None] | None = None,
+    on_result: Callable[[list[dict]], None] | None = None,
 ) -> list[dict]:
     """:func:`run_row` for every row, sharing one pool of ``workers`` processes.
 
     ``orbits`` maps each row's ``parent`` to its orbit dict. ``progress(k, n, row_id)`` is called
-    before each row.
+    before each row; ``on_result(results_so_far)`` after each one (e.g. to save a partial report).
     """
     say = progress or (lambda k, n, rid: None)
     pool = _executor(workers) if workers > 1 else None
@@ -226,6 +227,8 @@ def run_catalogue(
                     executor=pool,
                 )
             )
+            if on_result is not None:
+                on_result(list(out))
         say(len(rows), len(rows), "")
         return out
     finally:

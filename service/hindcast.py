@@ -145,6 +145,9 @@ def markdown(report: dict) -> str:
         f"Run {report['run_utc']} with `{report['command']}` on {report['catalogue']} "
         f"({report['particles']} meteoroids per trail, seed {report['seed']}, trailcast "
         f"{report['version']}).",
+        ""
+        if report.get("rows_run", 0) >= report.get("rows_requested", 0)
+        else f"**Partial: {report['rows_run']} of {report['rows_requested']} rows run so far.**",
         "",
         "Offsets are predicted minus observed peak (minutes); ratios are predicted/observed. "
         "ZHR in absolute mode comes from the default dust production; calibrated: "
@@ -328,19 +331,36 @@ def cmd_hindcast(args, usage_error=ValueError) -> int:
         if not args.json:
             print(f"[{k}/{n}] {rid}" if rid else f"[{n}/{n}] done", file=sys.stderr, flush=True)
 
-    results = run_catalogue(
-        rows, orbits, particles=args.particles, seed=args.seed, workers=workers, progress=progress
-    )
     command = "trailcast hindcast " + " ".join(sys.argv[2:]) if len(sys.argv) > 1 else ""
-    report = build_report(
+
+    def report_of(results):
+        done = rows[: len(results)]
+        report = build_report(
+            done,
+            orbits,
+            results,
+            catalogue=args.catalogue,
+            particles=args.particles,
+            seed=args.seed,
+            command=command.strip() or "trailcast hindcast",
+        )
+        report["rows_run"], report["rows_requested"] = len(results), len(rows)
+        return report
+
+    def save_partial(results):  # an interrupted run keeps the rows it finished
+        if len(results) < len(rows):
+            write_report(args.out, report_of(results))
+
+    results = run_catalogue(
         rows,
         orbits,
-        results,
-        catalogue=args.catalogue,
         particles=args.particles,
         seed=args.seed,
-        command=command.strip() or "trailcast hindcast",
+        workers=workers,
+        progress=progress,
+        on_result=save_partial,
     )
+    report = report_of(results)
     paths = write_report(args.out, report)
     if args.json:
         print(json.dumps({m: report["scores"][m]["summary"] for m in ("absolute", "calibrated")}))

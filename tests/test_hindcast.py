@@ -176,6 +176,9 @@ def test_report_files_are_complete(quick_report):
     assert (out / "hindcast.svg").read_text().lstrip().startswith("<?xml")
     assert set(report["scores"]) >= {"absolute", "calibrated", "calibration", "rule"}
     assert not list(out.glob("*.part"))  # every file renamed into place
+    # a partial report was saved after the first row; the final one replaced it
+    assert report["rows_run"] == report["rows_requested"] == len(QUICK_ROWS)
+    assert "Partial" not in md
 
 
 def _crossing(trail_tp_tdb_jd, peak_tdb_jd, zhr, width_days=0.02):
