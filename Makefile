@@ -6,7 +6,7 @@ STAMP := $(VENV)/.installed
 HOST ?= 127.0.0.1
 PORT ?= 8000
 
-.PHONY: install run test bench lint clean
+.PHONY: install run test bench lint validate clean
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -26,6 +26,13 @@ run: $(STAMP)
 # pytest exit code 5 means "no tests collected": that is a failure for us, never hidden.
 test: $(STAMP)
 	$(BIN)/python -m pytest
+
+# The hindcast catalogue, every row, on all cores (about an hour or more on 2 cores):
+# writes validation/report/hindcast.{json,md,png,svg}.
+# The whole hindcast catalogue (report under validation/report), then the long class hindcasts.
+validate: $(STAMP)
+	$(BIN)/trailcast hindcast validation/hindcasts.json --out validation/report
+	$(BIN)/python -m pytest -m validation tests/test_hindcast_classes.py
 
 bench: $(STAMP)
 	$(BIN)/python -m benchmarks

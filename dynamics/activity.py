@@ -6,12 +6,15 @@ Chain of reasoning (every step a named function with its source):
    spread over a power-law mass distribution of index s (:func:`meteoroids_per_particle`).
 2. Only meteoroids bright enough to count for a ZHR matter: mass above the limit that gives a
    +6.5 mag meteor at their speed (:func:`limiting_mass_g`).
-3. The simulated meteoroids pierce the ecliptic near Earth's path during a window of 2W days.
-   Their piercing rate per unit area, divided by each one's speed across the plane, is the
-   spatial density n at Earth's position, estimated with a Gaussian kernel along Earth's path
-   (in time) and across it (in miss distance) (:func:`activity_profile`).
-4. The flux onto a surface facing the radiant is Q = n Vg, and the zenithal hourly rate follows
-   from Koschack & Rendtel (1990) (:func:`zhr_from_flux`).
+3. The simulated meteoroids reach Earth's path during a window of 2W days. Per mass class
+   (decades), after removing their drift with arrival time, they are fitted as a Gaussian tube
+   along Earth's path (in time) and across it (in miss distance); the classes' densities n at
+   Earth's position add up with the size distribution's weights (:func:`trail_activity`).
+4. The flux onto a surface facing the radiant is Q = n Vg (1 + v_esc^2 / Vg^2) (gravitational
+   focusing, :func:`gravitational_focusing_factor`), and the zenithal hourly rate follows from
+   Koschack & Rendtel (1990) (:func:`zhr_from_flux`). A second estimator, the weighted count of
+   meteoroids in a space-time box around Earth (after Vaubaillon et al. 2005), checks it.
+5. A crossing is called an encounter by its predicted activity (:func:`classify_crossing`).
 
 Absolute levels rest on the dust production per return, which is poorly known for any comet:
 trailcast offers a documented default (:func:`default_dust_mass_per_return_g`), a user-stated
@@ -25,7 +28,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .constants import AU_KM
+from .constants import AU_KM, EARTH_ESCAPE_KM_S
 
 #: Koschack & Rendtel (1990, WGN 18, 44 and 119): effective collecting area of a standard
 #: observer (km^2) in Q = ZHR (13.1 r - 16.5)(r - 1.3)^0.748 / 37200 km^2 per hour (from memory).
@@ -145,9 +148,109 @@ def meteoroids_per_particle(
     return a * m ** (1.0 - mass_index) * math.log(sim_m_max_g / sim_m_min_g) / n_drawn
 
 
+#: Width of a mass class (dex): one class per decade of mass (common practice, no source). The
+#: cross-section of a trail is stratified by size (small grains were ejected faster and feel more
+#: radiation pressure), so each class gets its own centre and width.
+MASS_CLASS_DEX = 1.0
+#: A class with fewer meteoroids than this is merged into its neighbour (the heavier one, or the
+#: lighter one for the heaviest class): a robust width from fewer points is mostly noise
+#: (no source; the 16-84 % half-range of 8 Gaussian draws scatters by about 30 %).
+MIN_CLASS_METEOROIDS = 8
+#: Half-range between these percentiles is the robust Gaussian sigma (exact for a Gaussian).
+SIGMA_PERCENTILES = (15.865525393145708, 84.13447460685429)
+#: Smallest width across Earth's path (au): Earth's radius (mean, IUGG); a trail cannot be
+#: resolved more finely than the body that meets it.
+MIN_CROSS_WIDTH_AU = 6371.0 / AU_KM
+#: Smallest width along Earth's path (days): the time Earth takes to move by its own radius at
+#: 30 km/s (about 3.5 min; no source, same reasoning as above).
+MIN_ALONG_WIDTH_DAYS = 6371.0 / 30.0 / 86400.0
+#: Outlier clip (robust sigmas) in the straight-line fit of a class's drift against arrival lag
+#: (no source: planetary close encounters throw a few meteoroids far off).
+DRIFT_CLIP_SIGMAS = 3.0
+#: The drift with arrival lag is evaluated at lag 0 only when the class's lags surround it;
+#: otherwise at the nearest of these percentiles of its lags: the estimator interpolates along
+#: the trail, never extrapolates (a fit over lopsided arrivals, e.g. all 8-20 days before
+#: Earth, moved one trail's centre by 0.01 au). No source.
+REFERENCE_LAG_PERCENTILES = (10.0, 90.0)
+#: Half-size of the space-time box of the cross-check, in the pooled robust widths of the trail
+#: along and across Earth's path (no source: small enough to measure the local density, large
+#: enough to hold meteoroids; a centred Gaussian tube's box mean is 0.96 of its peak per axis).
+BOX_HALF_SIGMAS = 0.5
+#: ... and over this fraction of the arrival window (a box in space as well as time: a short
+#: stretch of arrival lags, so that the trail's drift with arrival time does not widen it; no
+#: source).
+BOX_LAG_FRACTION = 0.25
+#: The two estimators are said to disagree when their peak ZHRs differ by more than this factor
+#: (the issue's threshold; no source) ...
+DISAGREEMENT_FACTOR = 3.0
+#: ... counting a ZHR below this as this (an hourly rate below one meteor is not seen either way;
+#: common practice, no source).
+CROSS_CHECK_FLOOR_ZHR = 1.0
+#: Lowest predicted peak ZHR for a trail crossing to be called an encounter when the annual
+#: shower's ZHR is not known (common practice, no source: a rate of ten meteors an hour under
+#: ideal skies is what observers notice above the sporadic background).
+ENCOUNTER_MIN_ZHR = 10.0
+
+
+def gravitational_focusing_factor(vg_km_s, v_esc_km_s: float = EARTH_ESCAPE_KM_S):
+    """Flux enhancement by Earth's gravity, 1 + v_esc^2 / Vg^2 (orientation-averaged).
+
+    Conservation of energy and angular momentum of a meteoroid approaching Earth at geocentric
+    speed Vg from far away (Opik 1951; Jones & Poole 2007, MNRAS 375, 925; from memory). The
+    factor is anisotropic in reality (largest opposite the radiant); this is its global value.
+
+    >>> round(float(gravitational_focusing_factor(71.0)), 4)
+    1.0249
+    """
+    vg = np.asarray(vg_km_s, dtype=float)
+    return 1.0 + (v_esc_km_s / vg) ** 2
+
+
+@dataclass(frozen=True)
+class MassClass:
+    """One decade of meteoroid mass: its share of a trail crossing and its fitted shape.
+
+    Times TDB JD, distances au. The across-path centre and width are those at zero arrival lag
+    (after removing the class's linear drift of miss distance against lag); likewise in time.
+    """
+
+    log10_mass_lo_g: float
+    log10_mass_hi_g: float
+    meteoroids: int
+    counts: float
+    t_centre_tdb_jd: float
+    t_sigma_days: float
+    t_drift_days_per_day: float
+    miss_centre_au: float
+    miss_sigma_au: float
+    miss_drift_au_per_day: float
+    flux_factor: float  # mean of Vg x focusing / crossing speed (km/s per au/day)
+    peak_zhr: float
+    reference_lag_days: float = 0.0  # where the drift was evaluated (0 unless lopsided)
+
+    def to_json(self) -> dict:
+        return {
+            "mass_g": [10.0**self.log10_mass_lo_g, 10.0**self.log10_mass_hi_g],
+            "meteoroids": self.meteoroids,
+            "real_meteoroids": float(f"{self.counts:.4g}"),
+            "miss_centre_au": round(self.miss_centre_au, 6),
+            "miss_sigma_au": round(self.miss_sigma_au, 6),
+            "miss_drift_au_per_day": float(f"{self.miss_drift_au_per_day:.3g}"),
+            "t_sigma_hours": round(self.t_sigma_days * 24.0, 3),
+            "earth_offset_sigmas": round(abs(self.miss_centre_au) / self.miss_sigma_au, 2),
+            "peak_zhr": float(f"{self.peak_zhr:.3g}"),
+            "reference_lag_days": round(self.reference_lag_days, 2),
+        }
+
+
 @dataclass(frozen=True)
 class Profile:
-    """ZHR against time along Earth's path for one trail encounter."""
+    """ZHR against time along Earth's path for one trail encounter.
+
+    Besides the profile: the mass classes behind it, the cross-check by a box count
+    (``box_zhr``, from ``box_meteoroids`` simulated meteoroids) and whether the two estimators
+    disagree by more than :data:`DISAGREEMENT_FACTOR`.
+    """
 
     t_tdb_jd: np.ndarray
     zhr: np.ndarray
@@ -156,6 +259,10 @@ class Profile:
     fwhm_hours: float
     window_tdb_jd: tuple[float, float] | None
     boot_peak_zhr: np.ndarray = field(repr=False)
+    classes: tuple[MassClass, ...] = ()
+    box_zhr: float = 0.0
+    box_meteoroids: int = 0
+    estimators_disagree: bool = False
 
 
 def _contiguous(mask, k):
@@ -169,102 +276,309 @@ def _contiguous(mask, k):
     return lo, hi
 
 
-def _silverman(x, n):
-    sd = np.std(x)
-    iqr = np.subtract(*np.percentile(x, [75, 25])) / 1.349
-    spread = min(sd, iqr) if iqr > 0 else sd
-    return 1.06 * max(spread, 1e-12) * n ** (-0.2)
+def _robust_sigma(x) -> float:
+    lo, hi = np.percentile(x, SIGMA_PERCENTILES)
+    return 0.5 * float(hi - lo)
 
 
-def activity_profile(
+def _drift(lag, y) -> float:
+    """Slope of y against arrival lag (per day), least squares with one robust clipping pass."""
+    if len(lag) < 3 or np.ptp(lag) <= 0:
+        return 0.0
+    b, a = np.polyfit(lag, y, 1)
+    res = y - (a + b * lag)
+    mad = 1.4826 * np.median(np.abs(res - np.median(res)))
+    keep = (
+        np.abs(res - np.median(res)) <= DRIFT_CLIP_SIGMAS * mad
+        if mad > 0
+        else np.ones_like(res, bool)
+    )
+    if keep.sum() >= 3 and np.ptp(lag[keep]) > 0 and not keep.all():
+        b, a = np.polyfit(lag[keep], y[keep], 1)
+    return float(b)
+
+
+def mass_classes(mass_g, min_meteoroids: int = MIN_CLASS_METEOROIDS) -> list[np.ndarray]:
+    """Indices of the meteoroids in each mass class (decades of mass, small classes merged).
+
+    >>> [len(c) for c in mass_classes([1e-5] * 3 + [2e-4] * 10 + [3e-3] * 9, 8)]
+    [13, 9]
+    """
+    m = np.asarray(mass_g, dtype=float)
+    if len(m) == 0:
+        return []
+    dec = np.floor(np.log10(m) / MASS_CLASS_DEX).astype(int)
+    groups = [np.flatnonzero(dec == d) for d in np.unique(dec)]
+    merged: list[np.ndarray] = []
+    carry = np.zeros(0, dtype=int)
+    for g in groups:  # lightest first: a small class joins the next heavier one
+        carry = np.concatenate([carry, g])
+        if len(carry) >= min_meteoroids:
+            merged.append(carry)
+            carry = np.zeros(0, dtype=int)
+    if len(carry):  # the heaviest leftovers join the lighter neighbour (or stand alone)
+        if merged:
+            merged[-1] = np.concatenate([merged[-1], carry])
+        else:
+            merged.append(carry)
+    return [np.sort(g) for g in merged]
+
+
+def trail_activity(
     t_earth_tdb_jd,
     miss_distance_au,
-    vz_au_d,
-    vg_km_s,
+    lag_days,
+    mass_g,
     counts,
-    window_days: float,
+    vg_km_s,
+    crossing_speed_au_d,
+    *,
     earth_speed_au_d: float,
     population_index: float,
-    *,
-    n_grid: int = 241,
+    window_days: float,
+    n_grid: int = 801,
     n_boot: int = 100,
     rng=None,
 ) -> Profile:
-    """Kernel estimate of the ZHR along Earth's path from simulated meteoroid crossings.
+    """ZHR along Earth's path from simulated meteoroids, per mass class, with a box cross-check.
+
+    The meteoroids arrived at their closest point to Earth's path within +-``window_days`` of
+    Earth passing that point. If the trail is steady over the window, meteoroids crossing the
+    surface spanned by Earth's path and the miss direction at speed v_perp through an area A in
+    2W days had the spatial density n = N / (A 2W v_perp). Per mass class (decades,
+    :func:`mass_classes`):
+
+    - the drift of miss distance and of Earth's passage time with arrival lag is fitted as a
+      straight line and removed: values at zero lag when the class's arrivals surround it,
+      else at the nearest decile of its lags (:data:`REFERENCE_LAG_PERCENTILES`; never an
+      extrapolation along the trail);
+    - the class is taken as a Gaussian tube: centre = median, width = 16-84 % half-range (robust
+      sigma), along Earth's path (time) and across it (miss distance); the density at Earth's
+      path (miss 0) is then analytic and is not broadened by any kernel, so the wings of the
+      cross-section are not inflated (they follow the fitted Gaussian);
+    - its weight is the sum of ``counts`` over the class (the size distribution's weights).
+
+    Flux Q = sum over classes of n_k Vg F, with F the gravitational focusing factor
+    (:func:`gravitational_focusing_factor`), and ZHR from Koschack & Rendtel (1990)
+    (:func:`zhr_from_flux`).
+
+    Cross-check (after Vaubaillon, Colas & Jorda 2005, A&A 439, 751: the weighted count of
+    simulated meteoroids in a space-time box around Earth; the box shape here is ours): the
+    weighted meteoroids whose crossing lies within +-:data:`BOX_HALF_SIGMAS` pooled widths of
+    Earth at the profile's peak, in time and in raw miss distance, and whose arrival lag lies
+    within the central :data:`BOX_LAG_FRACTION` of the window.
 
     Parameters
     ----------
     t_earth_tdb_jd : array (n,)
-        When Earth passes each meteoroid's node longitude (TDB JD).
+        When Earth passes closest to each meteoroid's path (TDB JD).
     miss_distance_au : array (n,)
-        Each meteoroid's node distance minus Earth's (au).
-    vz_au_d : array (n,)
-        Heliocentric speed across the ecliptic plane at the node (au/day).
-    vg_km_s : array (n,)
-        Geocentric speed (km/s).
+        Signed distance of each meteoroid's path from Earth's path (au).
+    lag_days : array (n,)
+        Meteoroid arrival minus Earth's passage (days), within +-``window_days``.
+    mass_g : array (n,)
     counts : array (n,)
-        Real meteoroids above the ZHR mass limit each simulated one stands for.
-    window_days : float
-        The meteoroids pierced the plane within +-window_days of Earth's passage.
+        Real meteoroids above the ZHR mass limit each simulated one stands for (0 below it).
+    vg_km_s : array (n,)
+        Geocentric speed (km/s), before Earth's attraction.
+    crossing_speed_au_d : array (n,)
+        Heliocentric speed across the surface spanned by Earth's path and the miss direction
+        (au/day); for crossings of the ecliptic, the speed across the ecliptic.
     earth_speed_au_d : float
-        Earth's heliocentric speed (au/day) at the encounter.
+        Earth's heliocentric speed (au/day).
     population_index : float
+    window_days : float
 
     Returns
     -------
     Profile
-        ZHR(t) on a grid spanning +-5 kernel-broadened standard deviations of the crossings; FWHM
-        and the window (ZHR above both :data:`WINDOW_FRACTION_OF_PEAK` of the peak and
-        :data:`WINDOW_FLOOR_ZHR`); bootstrap replicas of the peak ZHR for its statistical spread.
+        ZHR(t) on a grid spanning +-6 widths of every class; FWHM; window (ZHR above both
+        :data:`WINDOW_FRACTION_OF_PEAK` of the peak and :data:`WINDOW_FLOOR_ZHR`); bootstrap
+        replicas of the peak ZHR (meteoroids resampled); the classes; the box cross-check.
+
+    Limits
+    ------
+    A class is one Gaussian tube: a trail split in two strands is smoothed into one, and a
+    cross-section with heavier tails than a Gaussian is underestimated where Earth passes
+    several widths from the centre (compare ``classes[k].earth_offset_sigmas``).
     """
     te = np.asarray(t_earth_tdb_jd, dtype=float)
     dr = np.asarray(miss_distance_au, dtype=float)
+    lag = np.asarray(lag_days, dtype=float)
+    m = np.asarray(mass_g, dtype=float)
     c = np.asarray(counts, dtype=float)
-    inv_vz = 1.0 / np.abs(np.asarray(vz_au_d, dtype=float))
-    vg = np.asarray(vg_km_s, dtype=float)
-    n = len(te)
-    h_t = _silverman(te, n)
-    h_r = _silverman(dr, n)
-    centre = float(np.median(te))
-    half = 5.0 * math.hypot(np.std(te), h_t) + 1.0 / 24.0
-    grid = np.linspace(centre - half, centre + half, n_grid)
+    fx = (
+        np.asarray(vg_km_s, dtype=float)
+        * gravitational_focusing_factor(vg_km_s)
+        / np.abs(np.asarray(crossing_speed_au_d, dtype=float))
+    )
+    # only meteoroids that count for the ZHR define the classes
+    live = np.flatnonzero(c > 0)
+    norm = 1.0 / (2.0 * window_days * earth_speed_au_d) / AU_KM**3 * 3600.0  # -> km^-2 h^-1
 
-    def density_zhr(idx):
-        # Separable estimate: the trail's structure along Earth's path (time) and across it
-        # (miss distance) are taken as independent, and the mass-selected meteoroids as spread
-        # like all simulated ones. Over a thin trail the two coordinates are uncorrelated, and a
-        # joint estimate would chase the few heavily weighted small grains near Earth's path.
-        f_t = np.exp(-0.5 * ((grid[:, None] - te[idx][None, :]) / h_t) ** 2).sum(axis=1) / (
-            len(idx) * h_t * math.sqrt(2 * math.pi)
-        )
-        g_r = np.exp(-0.5 * (dr[idx] / h_r) ** 2).sum() / (len(idx) * h_r * math.sqrt(2 * math.pi))
-        total = c[idx].sum() * len(te) / len(idx)  # bootstrap replicas keep the total's scale
-        nv = (
-            total
-            * f_t
-            * g_r
-            * np.mean(inv_vz[idx])
-            * np.mean(vg[idx])
-            / (2.0 * window_days * earth_speed_au_d)
-        )
-        flux_km2_h = nv / AU_KM**3 * 3600.0  # (1/au^3)(km/s) -> (1/km^3)(km/s)(s/h)
-        return zhr_from_flux(flux_km2_h, population_index)
+    def fit(idx) -> list[tuple]:
+        out = []
+        for g in mass_classes(m[idx]):
+            k = idx[g]
+            b_t = _drift(lag[k], te[k])
+            b_r = _drift(lag[k], dr[k])
+            lag_ref = float(np.clip(0.0, *np.percentile(lag[k], REFERENCE_LAG_PERCENTILES)))
+            t0 = te[k] - b_t * (lag[k] - lag_ref)
+            r0 = dr[k] - b_r * (lag[k] - lag_ref)
+            out.append(
+                (
+                    k,
+                    float(np.median(t0)),
+                    max(_robust_sigma(t0), MIN_ALONG_WIDTH_DAYS),
+                    b_t,
+                    float(np.median(r0)),
+                    max(_robust_sigma(r0), MIN_CROSS_WIDTH_AU),
+                    b_r,
+                    float(c[k].sum()),
+                    float(np.mean(fx[k])),
+                    lag_ref,
+                )
+            )
+        return out
 
-    zhr = density_zhr(np.arange(n))
+    def zhr_on(grid, fitted, scale=1.0):
+        total = np.zeros_like(grid)
+        per = []
+        for _, mt, st, _, mr, sr, _, ck, fk, _ in fitted:
+            g_t = np.exp(-0.5 * ((grid - mt) / st) ** 2) / (st * math.sqrt(2 * math.pi))
+            g_r = math.exp(-0.5 * (mr / sr) ** 2) / (sr * math.sqrt(2 * math.pi))
+            z = zhr_from_flux(scale * ck * g_t * g_r * fk * norm, population_index)
+            per.append(z)
+            total = total + z
+        return total, per
+
+    fitted = fit(live) if len(live) else []
+    if fitted:
+        lo = min(f[1] - 6.0 * f[2] for f in fitted)
+        hi = max(f[1] + 6.0 * f[2] for f in fitted)
+    else:
+        centre = float(np.median(te)) if len(te) else 0.0
+        lo, hi = centre - 1.0, centre + 1.0
+    grid = np.linspace(lo, hi, n_grid)
+    zhr, per = zhr_on(grid, fitted)
     k = int(np.argmax(zhr))
     peak = float(zhr[k])
     fwhm_h = 0.0
     if peak > 0:
-        lo, hi = _contiguous(zhr >= 0.5 * peak, k)
-        fwhm_h = float((grid[hi] - grid[lo]) * 24.0)
+        a, b = _contiguous(zhr >= 0.5 * peak, k)
+        fwhm_h = float((grid[b] - grid[a]) * 24.0)
     window = None
     if peak >= WINDOW_FLOOR_ZHR:
-        lo, hi = _contiguous(zhr >= max(WINDOW_FRACTION_OF_PEAK * peak, WINDOW_FLOOR_ZHR), k)
-        window = (float(grid[lo]), float(grid[hi]))
-    gen = np.random.default_rng(rng if rng is not None else 0)
-    boots = (
-        np.array([density_zhr(gen.integers(0, n, n)).max() for _ in range(n_boot)])
-        if n > 1
-        else np.array([peak])
+        a, b = _contiguous(zhr >= max(WINDOW_FRACTION_OF_PEAK * peak, WINDOW_FLOOR_ZHR), k)
+        window = (float(grid[a]), float(grid[b]))
+    classes = tuple(
+        MassClass(
+            float(np.log10(m[f[0]].min())),
+            float(np.log10(m[f[0]].max())),
+            len(f[0]),
+            f[7],
+            f[1],
+            f[2],
+            f[3],
+            f[4],
+            f[5],
+            f[6],
+            f[8],
+            float(z.max()),
+            f[9],
+        )
+        for f, z in zip(fitted, per, strict=True)
     )
-    return Profile(grid, zhr, float(grid[k]), peak, fwhm_h, window, boots)
+
+    # cross-check: weighted count in a space-time box around Earth at the peak
+    box_n, box_zhr = 0, 0.0
+    if len(live):
+        half_t = BOX_HALF_SIGMAS * max(_robust_sigma(te[live]), MIN_ALONG_WIDTH_DAYS)
+        half_r = BOX_HALF_SIGMAS * max(_robust_sigma(dr[live]), MIN_CROSS_WIDTH_AU)
+        half_lag = BOX_LAG_FRACTION * window_days
+        inside = live[
+            (np.abs(te[live] - grid[k]) <= half_t)
+            & (np.abs(dr[live]) <= half_r)
+            & (np.abs(lag[live]) <= half_lag)
+        ]
+        box_n = len(inside)
+        area_au2_day = (2.0 * half_t) * (2.0 * half_r)  # along (days, x Earth's speed in norm)
+        q = float((c[inside] * fx[inside]).sum()) * norm / area_au2_day / BOX_LAG_FRACTION
+        box_zhr = float(zhr_from_flux(q, population_index))
+    hi_z = max(peak, box_zhr, CROSS_CHECK_FLOOR_ZHR)
+    lo_z = max(min(peak, box_zhr), CROSS_CHECK_FLOOR_ZHR)
+    disagree = hi_z / lo_z > DISAGREEMENT_FACTOR
+
+    gen = np.random.default_rng(rng if rng is not None else 0)
+    if len(live) > 1:
+        boots = []
+        for _ in range(n_boot):
+            draw = np.sort(live[gen.integers(0, len(live), len(live))])
+            boots.append(float(zhr_on(grid, fit(draw))[0].max()))
+        boots = np.array(boots)
+    else:
+        boots = np.array([peak])
+    return Profile(
+        grid, zhr, float(grid[k]), peak, fwhm_h, window, boots, classes, box_zhr, box_n, disagree
+    )
+
+
+@dataclass(frozen=True)
+class Classification:
+    """What a trail crossing is called, and why (the rule in words, with the numbers)."""
+
+    label: str  # "encounter", "negligible" or "near miss"
+    zhr_level: float
+    reason: str
+
+
+def classify_crossing(
+    peak_zhr: float,
+    miss_distance_au: float,
+    miss_distance_spread_au: float,
+    *,
+    encounter_max_miss_au: float,
+    encounter_sigmas: float,
+    earth_radius_au: float,
+    near_miss_max_au: float,
+    annual_zhr: float | None = None,
+    min_zhr: float = ENCOUNTER_MIN_ZHR,
+) -> Classification | None:
+    """Name a trail crossing by the activity it gives, not only by its distance.
+
+    Rule (common practice, no source): the level is ``min_zhr`` (:data:`ENCOUNTER_MIN_ZHR`), or
+    the annual shower's ZHR when known and higher (an outburst at least doubles the rate).
+
+    - ``encounter``: predicted peak ZHR at or above the level (and the crossing within
+      ``near_miss_max_au``);
+    - ``negligible``: Earth passes close by distance (within ``encounter_max_miss_au`` and
+      within ``encounter_sigmas`` cross-section widths plus Earth's radius, the engine's
+      distance test) but the predicted ZHR is below the level;
+    - ``near miss``: farther, within ``near_miss_max_au``, and below the level;
+    - ``None``: farther than ``near_miss_max_au`` (not reported).
+
+    >>> c = classify_crossing(0.4, 0.0002, 0.0003, encounter_max_miss_au=0.005,
+    ...     encounter_sigmas=3.0, earth_radius_au=4.26e-5, near_miss_max_au=0.05)
+    >>> c.label, c.reason
+    ('negligible', 'passes 0.00020 au from Earth (0.7 widths) but the predicted peak ZHR 0.4 is below 10')
+    """
+    level = float(min_zhr) if annual_zhr is None else max(float(min_zhr), float(annual_zhr))
+    miss = abs(float(miss_distance_au))
+    if miss > near_miss_max_au:
+        return None
+    spread = float(miss_distance_spread_au)
+    widths = miss / spread if spread > 0 else float("inf")
+    where = f"{miss:.5f} au from Earth ({widths:.1f} widths)"
+    z = f"{peak_zhr:.3g}"
+    if peak_zhr >= level:
+        return Classification(
+            "encounter", level, f"predicted peak ZHR {z} at or above {level:g}; passes {where}"
+        )
+    close = miss <= min(encounter_max_miss_au, encounter_sigmas * spread + earth_radius_au)
+    if close:
+        return Classification(
+            "negligible", level, f"passes {where} but the predicted peak ZHR {z} is below {level:g}"
+        )
+    return Classification(
+        "near miss", level, f"passes {where}; predicted peak ZHR {z}, below {level:g}"
+    )

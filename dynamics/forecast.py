@@ -261,10 +261,13 @@ class ForecastResult:
                     "original_inverse_a_per_au": self.history.original_inverse_a_per_au,
                     "notes": list(self.history.notes),
                 },
-                "zhr_method": "kernel density of simulated meteoroids above the +6.5 mag mass "
-                "limit along Earth's path; flux Q = n Vg; ZHR = Q x 37200 km^2 / c(r) "
-                "(Koschack & Rendtel 1990); low/high: bootstrap 16-84 % widened by the model "
-                "factor of the mode",
+                "zhr_method": "per mass decade, a Gaussian tube (median, 16-84 % half-range) "
+                "along and across Earth's path fitted to the simulated meteoroids above the "
+                "+6.5 mag mass limit after removing their drift with arrival time; flux "
+                "Q = n Vg (1 + v_esc^2/Vg^2); ZHR = Q x 37200 km^2 / c(r) (Koschack & Rendtel "
+                "1990); box_count_estimate: weighted meteoroids in a space-time box around Earth "
+                "(after Vaubaillon et al. 2005), estimators_disagree beyond a factor 3; low/high: "
+                "bootstrap 16-84 % widened by the model factor of the mode",
             },
             "conventions": {
                 "times": "UTC, ISO 8601",

@@ -17,9 +17,9 @@ import numpy as np
 from .activity import (
     MODEL_UNCERTAINTY_FACTOR,
     Profile,
-    activity_profile,
     limiting_mass_g,
     meteoroids_per_particle,
+    trail_activity,
 )
 from .crossings import Crossings, circular_median_radec
 from .ejection import population_index_from_mass_index
@@ -135,6 +135,12 @@ class TrailEncounter:
                 "low": zhr_value(self.zhr_low),
                 "high": zhr_value(self.zhr_high),
                 "mode": self.zhr_mode,
+                "box_count_estimate": None
+                if self.profile is None
+                else zhr_value(self.profile.box_zhr),
+                "estimators_disagree": None
+                if self.profile is None
+                else self.profile.estimators_disagree,
             },
             "window": None
             if self.profile is None or self.profile.window_tdb_jd is None
@@ -264,15 +270,17 @@ def summarise(
     ra, dec = circular_median_radec(sub.ra_deg[pick], sub.dec_deg[pick])
     dilution = 1.0 / max(1.0, abs(slope) * tg.revolutions) if np.isfinite(slope) else float("nan")
     _, v_e = heliocentric_state("earth", peak)
-    prof = activity_profile(
+    prof = trail_activity(
         te,
         miss,
-        sub.vz_au_d,
-        sub.vg_km_s,
+        (sub.t_cross_tdb_jd - sub.t_earth_tdb_jd),
+        met.mass_g,
         np.where(visual, counts, 0.0),
-        options.window_days,
-        float(np.linalg.norm(v_e)),
-        r_pop,
+        sub.vg_km_s,
+        sub.vz_au_d,  # speed through the plane of Earth's path (crossings.py)
+        earth_speed_au_d=float(np.linalg.norm(v_e)),
+        population_index=r_pop,
+        window_days=options.window_days,
         rng=options.seed,
     )
     mode = "calibrated" if options.calibration is not None else "absolute"

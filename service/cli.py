@@ -918,6 +918,10 @@ def build_parser() -> argparse.ArgumentParser:
     from . import cli_observing  # `trailcast observe`: sites, Sun, Moon, world maps
 
     cli_observing.add_parser(sub)
+
+    from .hindcast import add_parser as add_hindcast_parser
+
+    add_hindcast_parser(sub, UsageError)
     return parser
 
 
