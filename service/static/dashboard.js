@@ -250,10 +250,10 @@ async function loadUpcoming() {
   $("#upcoming-status").textContent = "Loading…";
   const rows = [];
   try {
-    // all=true: every stored forecast's encounters (a service that lists only the latest
-    // forecast per parent and options by default takes it; one that lists all ignores it).
-    // The page picks the latest itself, so it reads the same from either.
-    let url = `/v1/encounters?${query}&all=true&limit=500`;
+    // include_superseded=true: every stored forecast's encounters (the listing otherwise
+    // keeps only the latest forecast per parent and option set). The page marks the older
+    // ones itself and shows them when asked.
+    let url = `/v1/encounters?${query}&include_superseded=true&limit=500`;
     while (url) {
       const page = await getJson(url);
       rows.push(...page.items);
