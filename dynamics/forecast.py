@@ -44,7 +44,7 @@ from .release import (
     event_of_return,
     model_for_event,
 )
-from .summaries import TrailEncounter, round_sig, summarise, year_of
+from .summaries import MIN_PARTICLES, TrailEncounter, round_sig, summarise, year_of
 from .targeting import (
     BETA_CLASSES,
     NODE_MAX_DISTANCE_AU,
@@ -801,7 +801,7 @@ def _outcome(tg: Target, tr: _Trail, enc, options) -> dict:
             outcome="not reached",
             closest_miss_distance_au=round(float(miss[j]), 6),
             closest_lag_days=round(float(lag[j]), 2),
-            reason=f"fewer than {3} meteoroids within {options.window_days:g} days of Earth's passage",
+            reason=f"fewer than {MIN_PARTICLES} meteoroids within {options.window_days:g} days of Earth's passage",
         )
         return row
     fin = np.isfinite(lag)
