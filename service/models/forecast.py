@@ -112,7 +112,10 @@ class ForecastIn(RequestModel):
         examples=[[2040, 2040]],
     )
     particles: int | None = Field(
-        None, ge=3, le=100_000, description="Shorthand for options.particles"
+        None,
+        ge=BY_NAME["particles"].ge,
+        le=BY_NAME["particles"].le,
+        description="Shorthand for options.particles",
     )
     options: ForecastOptionsIn | None = None
 
