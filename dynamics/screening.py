@@ -175,9 +175,9 @@ class ScreeningRule:
 def screening_forecast_options(first_year: int, last_year: int, **overrides) -> ForecastOptions:
     """The small forecast budget screening uses unless told otherwise.
 
-    30 meteoroids per trail and passage, 20 pilot meteoroids, 50,000 candidates per trail, trails
-    up to 100 years old; every other option at :class:`~dynamics.forecast.ForecastOptions`'s
-    default. ``overrides`` replace any field.
+    30 meteoroids per trail and passage, 20 pilot meteoroids, 50,000 candidates per trail; every
+    other option, the trail age limit included, at :class:`~dynamics.forecast.ForecastOptions`'s
+    default (one age limit for forecasts and screenings). ``overrides`` replace any field.
     """
     base = ForecastOptions(
         first_year=int(first_year),
@@ -185,7 +185,6 @@ def screening_forecast_options(first_year: int, last_year: int, **overrides) -> 
         particles=30,
         pilot_particles=20,
         candidates=50_000,
-        max_trail_age_years=100.0,
     )
     return replace(base, **overrides)
 

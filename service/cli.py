@@ -45,6 +45,10 @@ def load_orbit_file(path: str):
 
 # --- commands -----------------------------------------------------------------------------------
 
+#: Most server processes `serve` starts; no source: each holds its own worker pool, so more than
+#: a few dozen on one machine only adds memory.
+MAX_SERVER_PROCESSES = 64
+
 
 def cmd_serve(args) -> int:
     import uvicorn
@@ -52,11 +56,22 @@ def cmd_serve(args) -> int:
     from .main import create_app
     from .settings import Settings
 
-    if args.workers < 1 or args.workers > 64:
-        raise UsageError("--workers must be between 1 and 64")
+    processes = args.server_processes
+    if args.workers_deprecated is not None:
+        if processes is not None:
+            raise UsageError("give --server-processes only (--workers is its old name)")
+        print(
+            "trailcast serve: --workers is deprecated here (it meant server processes); "
+            "use --server-processes",
+            file=sys.stderr,
+        )
+        processes = args.workers_deprecated
+    processes = 1 if processes is None else processes
+    if not 1 <= processes <= MAX_SERVER_PROCESSES:
+        raise UsageError(f"--server-processes must be between 1 and {MAX_SERVER_PROCESSES}")
     settings = Settings.from_env()
     settings.data_dir.mkdir(parents=True, exist_ok=True)
-    if args.workers == 1:
+    if processes == 1:
         uvicorn.run(create_app(settings), host=args.host, port=args.port, log_level="info")
     else:  # several server processes: each builds its app from the same environment
         uvicorn.run(
@@ -64,7 +79,7 @@ def cmd_serve(args) -> int:
             factory=True,
             host=args.host,
             port=args.port,
-            workers=args.workers,
+            workers=processes,
             log_level="info",
         )
     return 0
@@ -117,26 +132,28 @@ def _token(args) -> str | None:
 
 
 def submit_body_from_args(args) -> dict:
-    """The POST /v1/forecasts body for the CLI arguments (validated locally first)."""
+    """The POST /v1/forecasts body for the CLI arguments (checked locally first): the orbit,
+    the years and every option of the table; ``--event`` joins the orbit's ``ejection_events``
+    (where the API takes them)."""
+    from .options import SUBMIT
+
     load_orbit_file(args.orbit)  # one-line error, exit 2, before any network traffic
     orbit = json.loads(Path(args.orbit).read_text(encoding="utf-8-sig"))
-    args.workers = 1  # not sent: the service decides where the chunks run
-    opts = forecast_options_from_args(args)
-    return {
-        "orbit": orbit,
-        "years": [opts.first_year, opts.last_year],
-        "particles": opts.particles,
-        "options": {
-            "seed": opts.seed,
-            "trails": list(opts.trails) if opts.trails is not None else None,
-            "max_trail_age_years": opts.max_trail_age_years,
-            "integrator": opts.integrator,
-            "speed_law": opts.ejection.speed_law,
-            "mass_index": opts.ejection.mass_index,
-            "meteoroid_density_g_cm3": opts.ejection.meteoroid_density_g_cm3,
-            "nucleus_radius_km": opts.ejection.nucleus_radius_km,
-        },
-    }
+    first, last = _parse_years(args.years)
+    options = checked_options(args, SUBMIT, first, last)
+    events = [_parse_event(t) for t in (args.events or ())]
+    if events:
+        orbit["ejection_events"] = list(orbit.get("ejection_events") or []) + [
+            {
+                "kind": ev.kind,
+                "start": ev.t_tdb_jd,
+                "duration_days": ev.duration_days,
+                "speed_multiplier": ev.speed_multiplier,
+                "source": ev.source,
+            }
+            for ev in events
+        ]
+    return {"orbit": orbit, "years": [first, last], "options": options}
 
 
 def cmd_submit(args) -> int:
@@ -377,70 +394,61 @@ def _parse_years(text: str) -> tuple[int, int]:
     return parts[0], parts[1]
 
 
-def _parse_trails(text: str | None):
-    if text is None:
-        return None
+def checked_options(args, surface: str, first: int, last: int) -> dict:
+    """The API's ``options`` for the parsed arguments, checked by the API's own request model
+    (built from the same option table), so that every command refuses what ``POST /v1/forecasts``
+    (or ``/v1/screenings``) refuses, with the flag's name: one line, exit 2."""
+    from pydantic import ValidationError
+
+    from . import options as table
+    from .models import ForecastIn, ForecastOptionsIn, ScreeningOptionsIn
+
     try:
-        return tuple(int(x) for x in text.split(",") if x.strip())
-    except ValueError:
+        values = table.values_from_args(args, surface)
+    except ValueError as exc:
+        raise UsageError(str(exc)) from None
+    model = ScreeningOptionsIn if surface == table.SCREEN else ForecastOptionsIn
+    try:
+        checked = model(**values)
+        if surface != table.SCREEN:
+            ForecastIn.model_construct(
+                years=[first, last], options=checked, particles=None
+            )._consistent()
+    except ValidationError as exc:
+        e = exc.errors()[0]
+        loc = [str(p) for p in e.get("loc", ())]
+        option = table.BY_NAME.get(loc[0]) if loc else None
+        where = option.flag if option else "an option"
+        if len(loc) > 1 and not loc[1].isdigit():
+            where += f" {'.'.join(loc[1:])}"
         raise UsageError(
-            f"--trails takes perihelion years separated by commas, got {text!r}"
+            f"{where}: {str(e.get('msg', 'invalid')).removeprefix('Value error, ')}"
         ) from None
+    except ValueError as exc:  # what only the whole request shows
+        field, _, msg = str(exc).partition(": ")
+        option = table.BY_NAME.get(field.split(".")[-1])
+        raise UsageError(f"{option.flag if option else field}: {msg or exc}") from None
+    return checked.model_dump()
+
+
+def _workers(args) -> int:
+    from .options import resolve_workers
+
+    try:
+        return resolve_workers(args.workers)
+    except ValueError as exc:
+        raise UsageError(str(exc)) from None
 
 
 def forecast_options_from_args(args):
-    """Build ForecastOptions from parsed CLI arguments (shared with `submit`)."""
-    from dataclasses import replace
-
-    from dynamics.ejection import EJECTION_SPEED_LAWS
-    from dynamics.forecast import ForecastOptions
-    from dynamics.release import EjectionModel
+    """ForecastOptions for the parsed `forecast` arguments: the checked API options turned into
+    the engine's by the same function a service job uses."""
+    from .options import FORECAST, forecast_options
 
     first, last = _parse_years(args.years)
-    if args.particles < 3 or args.particles > 100_000:
-        raise UsageError("--particles must be between 3 and 100000")
-    workers = args.workers
-    if workers is None:
-        from dynamics.executors import default_workers
-
-        workers = default_workers()
-    if workers < 1 or workers > 256:
-        raise UsageError("--workers must be between 1 and 256")
-    if args.speed_law not in EJECTION_SPEED_LAWS:
-        raise UsageError(f"--speed-law must be one of {', '.join(sorted(EJECTION_SPEED_LAWS))}")
-    if not 1.0 < args.mass_index < 3.0:
-        raise UsageError("--mass-index must lie between 1 and 3")
-    if not 0.05 <= args.density <= 8.0:
-        raise UsageError("--density must lie between 0.05 and 8 g/cm^3")
-    if not 0.01 <= args.nucleus_radius <= 100.0:
-        raise UsageError("--nucleus-radius must lie between 0.01 and 100 km")
-    model = replace(
-        EjectionModel(),
-        speed_law=args.speed_law,
-        mass_index=args.mass_index,
-        meteoroid_density_g_cm3=args.density,
-        nucleus_radius_km=args.nucleus_radius,
-    )
-    dust = getattr(args, "dust_mass", None)
-    if dust is not None and not 1.0 <= dust <= 1e20:
-        raise UsageError("--dust-mass must lie between 1 and 1e20 g per return")
-    trails = _parse_trails(args.trails)
-    calibration = _parse_calibration(getattr(args, "calibrate", None))
-    _check_like_the_api(args, first, last, trails, calibration)
-    return ForecastOptions(
-        first_year=first,
-        last_year=last,
-        particles=args.particles,
-        seed=args.seed,
-        trails=trails,
-        max_trail_age_years=args.max_age,
-        integrator=args.integrator,
-        workers=workers,
-        ejection=model,
-        events=tuple(_parse_event(t) for t in (getattr(args, "event", None) or ())),
-        dust_mass_per_return_g=dust,
-        calibration=calibration,
-    )
+    checked = checked_options(args, FORECAST, first, last)
+    events = tuple(_parse_event(t) for t in (args.events or ()))
+    return forecast_options(first, last, checked, _workers(args), events)
 
 
 def _parse_event(text):
@@ -483,74 +491,6 @@ def _is_number(text: str) -> bool:
     except ValueError:
         return False
     return True
-
-
-#: The command-line flag of each option the API's request model checks.
-_FLAGS = {
-    "seed": "--seed",
-    "trails": "--trails",
-    "max_trail_age_years": "--max-age",
-    "calibration": "--calibrate",
-    "years": "--years",
-}
-
-
-def _check_like_the_api(args, first: int, last: int, trails, calibration) -> None:
-    """Check seed, trails, trail age and calibration with the API's own request model, so that
-    the command line refuses what ``POST /v1/forecasts`` refuses (one line, exit 2)."""
-    from pydantic import ValidationError
-
-    from .models import ForecastIn, ForecastOptionsIn
-
-    try:
-        options = ForecastOptionsIn(
-            seed=args.seed,
-            trails=list(trails) if trails else None,
-            max_trail_age_years=args.max_age,
-            calibration=(
-                {
-                    "year": calibration.year,
-                    "trail_year": calibration.trail_year,
-                    "zhr": calibration.zhr,
-                }
-                if calibration is not None
-                else None
-            ),
-        )
-        ForecastIn.model_construct(
-            years=[first, last], options=options, particles=None
-        )._consistent()
-    except ValidationError as exc:
-        e = exc.errors()[0]
-        loc = [str(p) for p in e.get("loc", ())]
-        flag = _FLAGS.get(loc[0] if loc else "", "an option")
-        raise UsageError(
-            f"{flag}: {str(e.get('msg', 'invalid')).removeprefix('Value error, ')}"
-        ) from None
-    except ValueError as exc:
-        field, _, msg = str(exc).partition(": ")
-        flag = _FLAGS.get(field.split(".")[-1], "an option")
-        raise UsageError(f"{flag}: {msg or exc}") from None
-
-
-def _parse_calibration(text):
-    """--calibrate YEAR:TRAIL_YEAR:ZHR -> Calibration (a past observed outburst)."""
-    if text is None:
-        return None
-    from dynamics.forecast import Calibration
-
-    try:
-        year, trail, zhr = text.split(":")
-        cal = Calibration(int(year), int(trail), float(zhr))
-        if not math.isfinite(cal.zhr):
-            raise ValueError
-    except ValueError:
-        raise UsageError(
-            f"--calibrate takes YEAR:TRAIL_YEAR:ZHR, e.g. 2039:1975:350, got {text!r}"
-        ) from None
-    if not 1800 <= cal.year <= 2199 or not cal.zhr > 0 or cal.trail_year >= cal.year:
-        raise UsageError("--calibrate: year within 1800-2199, trail year before it, ZHR > 0")
-    return cal
 
 
 def cmd_forecast(args) -> int:
@@ -655,10 +595,11 @@ def cmd_screen(args) -> int:
     import os
     from datetime import UTC, datetime
 
-    from dynamics.screening import ScreeningRule, screen_batch, screening_forecast_options
+    from dynamics.screening import ScreeningRule, screen_batch
 
     from .batch import read_batch
     from .files import ResultDir
+    from .options import SCREEN, screening_options
     from .runner import make_local_pool
     from .screening_report import ProgressBar, assemble, report_text, write_outputs
 
@@ -666,20 +607,13 @@ def cmd_screen(args) -> int:
         now = datetime.now(UTC).year
         args.years = f"{now}:{now + 9}"
     first, last = _parse_years(args.years)
-    if args.particles < 3 or args.particles > 100_000:
-        raise UsageError("--particles must be between 3 and 100000")
-    if not 0.0 < args.max_age <= 5000.0:
-        raise UsageError("--max-age must lie in (0, 5000] years")
-    workers = args.workers if args.workers is not None else (os.cpu_count() or 1)
-    if workers < 1 or workers > 256:
-        raise UsageError("--workers must be between 1 and 256")
+    checked = checked_options(args, SCREEN, first, last)
+    workers = _workers(args)
     try:
         rule = ScreeningRule(moid_max_au=args.moid_max, node_max_au=args.node_max)
     except ValueError as exc:
         raise UsageError(str(exc)) from None
-    options = screening_forecast_options(
-        first, last, particles=args.particles, seed=args.seed, max_trail_age_years=args.max_age
-    )
+    options = screening_options(first, last, checked)
     path = Path(args.orbits)
     try:
         rows = read_batch(path)
@@ -734,8 +668,25 @@ def cmd_screen(args) -> int:
 # --- parser -------------------------------------------------------------------------------------
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with the project's error form: one line on stderr, exit status 2."""
+
+    def error(self, message):
+        self.exit(2, f"{self.prog}: {message} (see {self.prog} --help)\n")
+
+
+ORBIT_HELP = (
+    "the parent's orbit: a JSON file of heliocentric osculating elements, ecliptic and "
+    "equinox J2000 (README, 'The orbit input'; e.g. examples/demo-comet.json)"
+)
+YEARS_HELP = "calendar years to forecast (UTC), Y or Y1:Y2, within 1800-2199 (DE423 span)"
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(
+    from .options import FORECAST, SCREEN, SUBMIT
+    from .options import add_arguments as add_option_arguments
+
+    parser = _Parser(
         prog="trailcast",
         description="Predict meteor-shower outbursts from the orbits of parent comets.",
         epilog=CAUTION,
@@ -747,12 +698,19 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--host", default="127.0.0.1", help="address to listen on (default 127.0.0.1)")
     p.add_argument("--port", type=int, default=8000, help="port (default 8000)")
     p.add_argument(
-        "--workers", type=int, default=1, help="server processes (default 1; each runs jobs)"
+        "--server-processes",
+        type=int,
+        metavar="N",
+        help=f"web server processes, each running jobs on its own worker pool "
+        f"(TRAILCAST_WORKERS); 1-{MAX_SERVER_PROCESSES} (default 1)",
+    )
+    p.add_argument(  # its old name; deprecated: elsewhere --workers means worker processes
+        "--workers", dest="workers_deprecated", type=int, help=argparse.SUPPRESS
     )
     p.set_defaults(func=cmd_serve)
 
     p = sub.add_parser("check", help="validate an orbit file and summarise it")
-    p.add_argument("orbit", metavar="ORBIT.json")
+    p.add_argument("orbit", metavar="ORBIT.json", help=ORBIT_HELP)
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     p.set_defaults(func=cmd_check)
 
@@ -778,70 +736,16 @@ def build_parser() -> argparse.ArgumentParser:
         "geometry",
         help="quick-look geometry: Earth MOID, nodes, theoretical radiant, similar showers",
     )
-    p.add_argument("orbit", metavar="ORBIT.json")
+    p.add_argument("orbit", metavar="ORBIT.json", help=ORBIT_HELP)
     p.add_argument(
         "--year", type=int, help="calendar year (UTC, 1800-2199) for Earth's passage times"
     )
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     p.set_defaults(func=cmd_geometry)
     p = sub.add_parser("forecast", help="dust-trail encounters of a parent's trails with Earth")
-    p.add_argument("orbit", metavar="ORBIT.json")
-    p.add_argument(
-        "--years", required=True, metavar="Y1[:Y2]", help="calendar years to forecast (UTC)"
-    )
-    p.add_argument(
-        "--particles",
-        type=int,
-        default=300,
-        help="meteoroids per trail and Earth passage (default 300)",
-    )
-    p.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
-    p.add_argument(
-        "--trails", metavar="YEARS", help="only these trails, by perihelion year, e.g. 1899,1932"
-    )
-    p.add_argument(
-        "--max-age", type=float, default=500.0, help="oldest trail in years (default 500)"
-    )
-    p.add_argument(
-        "--workers", type=int, default=None, help="worker processes (default: one per core)"
-    )
-    p.add_argument(
-        "--integrator", choices=("whfast", "ias15"), default="whfast", help="default whfast"
-    )
-    p.add_argument(
-        "--event",
-        action="append",
-        metavar="KIND:START[:MULT[:DAYS]]",
-        help="a break-up or outburst releasing the trail of its return: kind fragmentation or "
-        "outburst, start (ISO date or JD TDB), ejection-speed multiplier (default 1), duration "
-        "in days (default 5); repeatable; e.g. fragmentation:2031-05-02:8:5",
-    )
-    p.add_argument(
-        "--speed-law", default="whipple1951", help="ejection speed law (default whipple1951)"
-    )
-    p.add_argument(
-        "--mass-index", type=float, default=2.0, help="differential mass index s (default 2.0)"
-    )
-    p.add_argument(
-        "--density", type=float, default=1.0, help="meteoroid bulk density, g/cm^3 (default 1.0)"
-    )
-    p.add_argument(
-        "--nucleus-radius", type=float, default=2.0, help="nucleus radius, km (default 2.0)"
-    )
-    p.add_argument(
-        "--clones", type=int, default=5, help="clones drawn from a covariance (default 5)"
-    )
-    p.add_argument(
-        "--dust-mass",
-        type=float,
-        metavar="GRAMS",
-        help="dust mass released per return, g (absolute ZHR; default: 1 m of the nucleus surface)",
-    )
-    p.add_argument(
-        "--calibrate",
-        metavar="YEAR:TRAIL:ZHR",
-        help="scale ZHRs to a past observed outburst of this parent, e.g. 2039:1975:350",
-    )
+    p.add_argument("orbit", metavar="ORBIT.json", help=ORBIT_HELP)
+    p.add_argument("--years", required=True, metavar="Y1[:Y2]", help=YEARS_HELP)
+    add_option_arguments(p, FORECAST)
     p.add_argument("--json", action="store_true", help="print JSON instead of a table")
     p.set_defaults(func=cmd_forecast)
 
@@ -863,12 +767,7 @@ def build_parser() -> argparse.ArgumentParser:
         metavar="DIR",
         help="output folder (default ORBITS-stem-screening); reused to resume",
     )
-    p.add_argument(
-        "--particles", type=int, default=30, help="meteoroids per trail and passage (default 30)"
-    )
-    p.add_argument("--max-age", type=float, default=100.0, help="oldest trail, years (100)")
-    p.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
-    p.add_argument("--workers", type=int, help="local worker processes (default: one per CPU core)")
+    add_option_arguments(p, SCREEN)
     p.add_argument(
         "--moid-max", type=float, default=0.05, help="rule: MOID below this, au (default 0.05)"
     )
@@ -892,21 +791,9 @@ def build_parser() -> argparse.ArgumentParser:
         p.add_argument("--json", action="store_true", help="print JSON instead of a table")
 
     p = sub.add_parser("submit", help="submit a forecast job to a running trailcast service")
-    p.add_argument("orbit", metavar="ORBIT.json")
-    p.add_argument(
-        "--years", required=True, metavar="Y1[:Y2]", help="calendar years to forecast (UTC)"
-    )
-    p.add_argument(
-        "--particles", type=int, default=300, help="meteoroids per trail and passage (300)"
-    )
-    p.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
-    p.add_argument("--trails", metavar="YEARS", help="only these trails, e.g. 1899,1932")
-    p.add_argument("--max-age", type=float, default=500.0, help="oldest trail in years (500)")
-    p.add_argument("--integrator", choices=("whfast", "ias15"), default="whfast")
-    p.add_argument("--speed-law", default="whipple1951", help="ejection speed law")
-    p.add_argument("--mass-index", type=float, default=2.0, help="mass index s (2.0)")
-    p.add_argument("--density", type=float, default=1.0, help="meteoroid density, g/cm^3 (1.0)")
-    p.add_argument("--nucleus-radius", type=float, default=2.0, help="nucleus radius, km (2.0)")
+    p.add_argument("orbit", metavar="ORBIT.json", help=ORBIT_HELP)
+    p.add_argument("--years", required=True, metavar="Y1[:Y2]", help=YEARS_HELP)
+    add_option_arguments(p, SUBMIT)
     add_service_options(p, "wait for the job and print the forecast")
     p.set_defaults(func=cmd_submit)
 

@@ -323,9 +323,12 @@ def cmd_hindcast(args, usage_error=ValueError) -> int:
         rows = [r for r in rows if r["id"] in wanted]
     if args.particles < 10 or args.particles > 100_000:
         raise UsageError("--particles must be between 10 and 100000")
-    workers = args.workers or os.cpu_count() or 1
-    if workers < 1 or workers > 256:
-        raise UsageError("--workers must be between 1 and 256")
+    from .options import resolve_workers
+
+    try:  # the one meaning of --workers: worker processes, default one per core
+        workers = resolve_workers(args.workers)
+    except ValueError as exc:
+        raise UsageError(str(exc)) from None
 
     def progress(k, n, rid):
         if not args.json:
@@ -404,7 +407,9 @@ def add_parser(sub, usage_error=ValueError) -> None:
         help=f"meteoroids per trail (default {DEFAULT_PARTICLES})",
     )
     p.add_argument("--seed", type=int, default=1, help="random seed (default 1)")
-    p.add_argument("--workers", type=int, help="worker processes (default: one per CPU core)")
+    from .options import HINDCAST, add_arguments
+
+    add_arguments(p, HINDCAST)  # --workers, as forecast and screen take it
     p.add_argument("--json", action="store_true", help="print the summaries as JSON")
     p.set_defaults(func=functools.partial(cmd_hindcast, usage_error=usage_error))
 

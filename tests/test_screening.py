@@ -179,6 +179,8 @@ def _screen_cmd(out: Path):
         str(out),
         "--workers",
         "2",
+        "--max-age",  # trails up to 100 years keep this end-to-end run short (README's example)
+        "100",
     ]
 
 

@@ -8,7 +8,6 @@ dashboard's charts.
 import json
 import math
 import sqlite3
-from dataclasses import replace
 
 from ..jobs import Job, format_wall_utc, parse_utc
 from . import JobKind
@@ -20,41 +19,15 @@ MAX_STORED_CROSSINGS_PER_TRAIL = 500
 ZHR_KEYS = ("estimate", "peak", "value", "max", "zhr")
 
 
-def ejection_model(o: dict):
-    """The EjectionModel a canonical request's ``options`` describe (forecasts and screenings)."""
-    from dynamics.release import EjectionModel
-
-    return replace(
-        EjectionModel(),
-        speed_law=o["speed_law"],
-        mass_index=o["mass_index"],
-        meteoroid_density_g_cm3=o["meteoroid_density_g_cm3"],
-        nucleus_radius_km=o["nucleus_radius_km"],
-    )
-
-
 def forecast_inputs(job: Job, workers: int):
     """The (OrbitInput, ForecastOptions) a job's canonical request describes."""
-    from dynamics.forecast import Calibration, ForecastOptions
     from dynamics.orbit_input import parse_orbit
 
+    from ..options import forecast_options
+
     req = job.request
-    o = req["options"]
     orbit = parse_orbit(req["orbit"])
-    options = ForecastOptions(
-        first_year=req["years"][0],
-        last_year=req["years"][1],
-        particles=o["particles"],
-        seed=o["seed"],
-        trails=tuple(o["trails"]) if o["trails"] is not None else None,
-        max_trail_age_years=o["max_trail_age_years"],
-        integrator=o["integrator"],
-        workers=workers,
-        ejection=ejection_model(o),
-        dust_mass_per_return_g=o.get("dust_mass_per_return_g"),
-        calibration=Calibration(**o["calibration"]) if o.get("calibration") else None,
-    )
-    return orbit, options
+    return orbit, forecast_options(req["years"][0], req["years"][1], req["options"], workers)
 
 
 def solution_particle_crossings(computed) -> list[dict]:

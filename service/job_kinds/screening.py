@@ -11,7 +11,6 @@ from ..batch import row_from_mapping
 from ..jobs import Job, format_wall_utc, utc_now
 from ..screening_report import assemble
 from . import JobKind
-from .forecast import ejection_model
 
 
 def canonical_screening_request(
@@ -31,20 +30,13 @@ def canonical_screening_request(
 
 def screening_inputs(request: dict):
     """(rows, rule, options) a screening job's canonical request describes."""
-    from dynamics.screening import ScreeningRule, screening_forecast_options
+    from dynamics.screening import ScreeningRule
+
+    from ..options import screening_options
 
     rows = [row_from_mapping(k, item) for k, item in enumerate(request["orbits"])]
     rule = ScreeningRule(**request["rule"])
-    o = request["options"]
-    options = screening_forecast_options(
-        request["years"][0],
-        request["years"][1],
-        particles=o["particles"],
-        seed=o["seed"],
-        max_trail_age_years=o["max_trail_age_years"],
-        integrator=o["integrator"],
-        ejection=ejection_model(o),
-    )
+    options = screening_options(request["years"][0], request["years"][1], request["options"])
     return rows, rule, options
 
 

@@ -1,6 +1,6 @@
 """What every request model shares: no NaN/Infinity, no unknown keys, years, server limits."""
 
-from typing import Annotated
+from typing import Annotated, Any, Literal
 
 from pydantic import AfterValidator, BaseModel, ConfigDict, Field
 
@@ -52,3 +52,22 @@ def check_years(years: list[int], max_years: int | None = None) -> tuple[int, in
             f"{last - first + 1} years asked; this server takes at most {max_years} per job",
         )
     return first, last
+
+
+def option_field(option, surface: str = "forecast", annotation: Any = None) -> tuple[Any, Any]:
+    """``(annotation, Field)`` of one row of :data:`service.options.OPTIONS`: its type (or
+    ``annotation``), choices, limits, its default on ``surface`` and its help."""
+    default = option.default_for(surface)
+    if annotation is None:
+        annotation = Literal[option.choices] if option.choices else option.type
+        if option.nullable:
+            annotation = annotation | None
+    limits = {
+        k: getattr(option, k) for k in ("ge", "gt", "le", "lt") if getattr(option, k) is not None
+    }
+    if option.max_items is not None:
+        limits.update(min_length=1, max_length=option.max_items)
+    described = option.help[0].upper() + option.help[1:]
+    return annotation, Field(
+        default, description=f"{described} (default {option.default_text(surface)})", **limits
+    )

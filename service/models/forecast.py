@@ -1,22 +1,26 @@
 """``POST /v1/forecasts``: the orbit, the years and the model options, checked and made canonical."""
 
-from typing import Annotated, Literal
+from typing import Annotated
 
-from pydantic import Field, model_validator
+from pydantic import Field, create_model, model_validator
 
-from dynamics.ejection import EJECTION_SPEED_LAWS
 from dynamics.orbit_input import require_epoch_in_ephemeris
 
 from ..jobs import canonical_request
-from .common import FIRST_YEAR, LAST_YEAR, LimitExceeded, RequestModel, Year, check_years
+from ..options import API_OPTIONS, BY_NAME, MAX_TRAIL_AGE_YEARS
+from .common import (
+    FIRST_YEAR,
+    LAST_YEAR,
+    LimitExceeded,
+    RequestModel,
+    Year,
+    check_years,
+    option_field,
+)
 from .orbit import DEMO_ORBIT, OrbitIn
 
-SpeedLaw = Literal[tuple(sorted(EJECTION_SPEED_LAWS))]  # type: ignore[valid-type]
-#: Default meteoroids per trail and Earth passage (the command line's default).
-DEFAULT_PARTICLES = 300
-#: Longest trail age accepted (years); no source: beyond a few thousand years the parent's
-#: history (and its orbit solution) is too uncertain for a trail to mean anything.
-MAX_TRAIL_AGE_YEARS = 5000.0
+#: Default meteoroids per trail and Earth passage (the option table's, i.e. the engine's).
+DEFAULT_PARTICLES = BY_NAME["particles"].default
 #: Oldest trail year accepted: the oldest the age limit allows before the first forecast year.
 OLDEST_TRAIL_YEAR = FIRST_YEAR - int(MAX_TRAIL_AGE_YEARS)
 
@@ -57,53 +61,29 @@ class CalibrationIn(RequestModel):
         return self
 
 
-class ForecastOptionsIn(RequestModel):
+class _ForecastOptionsBase(RequestModel):
     """Model choices; every one optional with the default the command line uses."""
 
     model_config = {"json_schema_extra": {"examples": [_DEMO_OPTIONS]}}
 
-    particles: int | None = Field(
-        None,
-        ge=3,
-        le=100_000,
-        description=f"Meteoroids per trail and Earth passage (default {DEFAULT_PARTICLES}; the "
-        "server may set a lower ceiling)",
-    )
-    seed: int = Field(1, ge=0, le=2**32 - 1, description="Random seed; same seed, same answer")
-    trails: list[TrailYear] | None = Field(
-        None,
-        min_length=1,
-        max_length=100,
-        description="Only these trails, by perihelion year (default: all within the age limit)",
-    )
-    max_trail_age_years: float = Field(
-        500.0,
-        gt=0.0,
-        le=MAX_TRAIL_AGE_YEARS,
-        description="Oldest trail followed (years before the first forecast year)",
-    )
-    integrator: Literal["whfast", "ias15"] = Field("whfast", description="REBOUND integrator")
-    speed_law: SpeedLaw = Field("whipple1951", description="Ejection speed law")  # type: ignore[valid-type]
-    mass_index: float = Field(
-        2.0, gt=1.0, lt=3.0, description="Differential mass index s (1); 1.7-2.2 is typical"
-    )
-    meteoroid_density_g_cm3: float = Field(
-        1.0, ge=0.05, le=8.0, description="Meteoroid bulk density (g/cm^3)"
-    )
-    nucleus_radius_km: float = Field(2.0, ge=0.01, le=100.0, description="Nucleus radius (km)")
-    dust_mass_per_return_g: float | None = Field(
-        None,
-        ge=1.0,
-        le=1e20,
-        description="Dust mass released per return (g) for absolute ZHRs; default: 1 m of the "
-        "nucleus surface per return (a rule of thumb)",
-    )
-    calibration: CalibrationIn | None = Field(
-        None, description="A past observed outburst of this parent: ZHRs are scaled to it"
-    )
-    clones: int = Field(
-        5, ge=0, le=20, description="Clones drawn from the orbit's covariance, when it has one"
-    )
+
+#: The options object, built from the one option table (:data:`service.options.OPTIONS`).
+ForecastOptionsIn = create_model(
+    "ForecastOptionsIn",
+    __base__=_ForecastOptionsBase,
+    __doc__=_ForecastOptionsBase.__doc__,
+    **{
+        o.name: option_field(
+            o,
+            annotation={
+                "trails": list[TrailYear] | None,
+                "calibration": CalibrationIn | None,
+            }.get(o.name),
+        )
+        for o in API_OPTIONS
+    },
+)
+ForecastOptionsIn.__module__ = __name__
 
 
 class ForecastIn(RequestModel):
@@ -132,7 +112,10 @@ class ForecastIn(RequestModel):
         examples=[[2040, 2040]],
     )
     particles: int | None = Field(
-        None, ge=3, le=100_000, description="Shorthand for options.particles"
+        None,
+        ge=BY_NAME["particles"].ge,
+        le=BY_NAME["particles"].le,
+        description="Shorthand for options.particles",
     )
     options: ForecastOptionsIn | None = None
 
@@ -150,6 +133,7 @@ class ForecastIn(RequestModel):
         if (
             self.particles is not None
             and opts is not None
+            and "particles" in opts.model_fields_set
             and opts.particles is not None
             and self.particles != opts.particles
         ):
@@ -170,7 +154,7 @@ class ForecastIn(RequestModel):
         require_epoch_in_ephemeris(orbit, "orbit.")
         first, last = check_years(self.years, max_years)
         opts = self.options or ForecastOptionsIn()
-        particles = self.particles or opts.particles or DEFAULT_PARTICLES
+        particles = self.particles or opts.particles or DEFAULT_PARTICLES  # null: the default
         if particles > max_particles:
             raise LimitExceeded(
                 "particles",

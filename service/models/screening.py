@@ -5,16 +5,16 @@ batch, it is reported in the results with its index (the batch-file reader's rul
 """
 
 import math
-from typing import Any, Literal
+from typing import Any
 
-from pydantic import Field, model_validator
+from pydantic import Field, create_model, model_validator
 
 from dynamics.forecast import NODE_MAX_DISTANCE_AU
 from dynamics.geometry import TRAIL_SIMULATION_MOID_AU
 
 from ..job_kinds.screening import canonical_screening_request
-from .common import LimitExceeded, RequestModel, Year, check_years
-from .forecast import MAX_TRAIL_AGE_YEARS, SpeedLaw
+from ..options import BY_NAME, SCREEN, SCREENING_OPTIONS
+from .common import LimitExceeded, RequestModel, Year, check_years, option_field
 from .orbit import DEMO_ORBIT
 
 #: Deepest nesting accepted inside one orbit object (levels); an orbit needs 3 (covariance).
@@ -51,21 +51,21 @@ class ScreeningRuleIn(RequestModel):
     )
 
 
-class ScreeningOptionsIn(RequestModel):
+class _ScreeningOptionsBase(RequestModel):
     """The small forecast run for each candidate; every field optional."""
 
     model_config = {"json_schema_extra": {"examples": [{"particles": 30}]}}
 
-    particles: int = Field(30, ge=3, le=100_000, description="Meteoroids per trail and passage")
-    seed: int = Field(1, ge=0, le=2**32 - 1, description="Random seed; same seed, same answer")
-    max_trail_age_years: float = Field(
-        100.0, gt=0.0, le=MAX_TRAIL_AGE_YEARS, description="Oldest trail (years)"
-    )
-    integrator: Literal["whfast", "ias15"] = Field("whfast", description="REBOUND integrator")
-    speed_law: SpeedLaw = Field("whipple1951", description="Ejection speed law")  # type: ignore[valid-type]
-    mass_index: float = Field(2.0, gt=1.0, lt=3.0, description="Differential mass index s (1)")
-    meteoroid_density_g_cm3: float = Field(1.0, ge=0.05, le=8.0, description="g/cm^3")
-    nucleus_radius_km: float = Field(2.0, ge=0.01, le=100.0, description="km")
+
+#: The candidates' options, built from the one option table (the options a screening takes,
+#: with the screening budget's defaults where it has its own).
+ScreeningOptionsIn = create_model(
+    "ScreeningOptionsIn",
+    __base__=_ScreeningOptionsBase,
+    __doc__=_ScreeningOptionsBase.__doc__,
+    **{o.name: option_field(o, SCREEN) for o in SCREENING_OPTIONS},
+)
+ScreeningOptionsIn.__module__ = __name__
 
 
 class ScreeningIn(RequestModel):
@@ -123,6 +123,8 @@ class ScreeningIn(RequestModel):
             )
         first, last = check_years(self.years, max_years)
         opts = self.options or ScreeningOptionsIn()
+        if opts.particles is None:  # null: the screening budget's default
+            opts = opts.model_copy(update={"particles": BY_NAME["particles"].default_for(SCREEN)})
         if opts.particles > max_particles:
             raise LimitExceeded(
                 "options.particles",
