@@ -14,6 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .crossings import node_crossings
 from .nbody import MassiveBodies, integrate_particles
 from .workers import die_with_parent
 
@@ -63,11 +64,15 @@ class Task:
     out_t: np.ndarray
     integrator: str
     dt_days: float
+    #: When set ("ascending"/"descending"), the worker also finds where each meteoroid crosses
+    #: Earth's path at that node and returns those crossings instead of the raw states: the
+    #: crossing geometry then runs in parallel, and far less data travels back.
+    node: str | None = None
 
 
 def run_task(task: Task):
     """Integrate one chunk (top-level so that worker processes can run it)."""
-    return integrate_particles(
+    snaps = integrate_particles(
         task.bodies,
         task.release_t,
         task.r,
@@ -77,6 +82,9 @@ def run_task(task: Task):
         integrator=task.integrator,
         dt_days=task.dt_days,
     )
+    if task.node is None:
+        return snaps
+    return node_crossings(snaps, task.beta, task.node)
 
 
 def run_tasks(

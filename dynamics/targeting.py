@@ -84,6 +84,7 @@ class Target:
     cls: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=int))  # beta class
     n_drawn: int = 0  # draws behind ``pool`` (the activity's weights)
     targeted_pool: bool = False
+    stopped: str | None = None  # why no more meteoroids were integrated for it, if it was cut short
 
 
 def parent_node_time(ret: ParentReturn, node: str) -> float:

@@ -244,3 +244,43 @@ def test_perihelia_tens_of_thousands_of_years_back_have_dates(years_back):
     year_text = f"{y:04d}" if y >= 0 else f"-{-y:04d}"
     assert format_iso(t, "TDB") == f"{year_text}-01-01T12:00:00 TDB"
     assert year_of(t) == y
+
+
+def _crossings_at(miss_au, lag_days):
+    from dynamics.crossings import Crossings
+
+    n = len(miss_au)
+    z = np.zeros(n)
+    return Crossings(
+        2451500.5 + np.asarray(lag_days), np.full(n, 2451500.5), z, z + 1.0,
+        np.asarray(miss_au, dtype=float), z, z, z, z, z, z,
+    )  # fmt: skip
+
+
+@pytest.mark.invariant
+def test_targets_stop_only_when_they_cannot_be_an_encounter():
+    # The cost rule that ends a target's rounds early: only when the median miss distance of
+    # its meteoroids at Earth's passage exceeds the encounter limit by 3 standard errors of a
+    # median (sqrt(pi/2) sigma / sqrt(n), a textbook large-sample result), or when a uniform
+    # sample met Earth's passage not at all.
+    from dynamics.forecast import ENCOUNTER_MAX_MISS_AU, PROBE_MIN_HITS, _enough_said
+
+    opts = ForecastOptions(1999, 1999, workers=1)
+    tg = Target(0, 1999, "descending", 2451500.5, 3, 2451500.0, 12000.0, 12000.0)
+    rng = np.random.default_rng(3)
+    lag = rng.uniform(-5, 5, 75)
+    far = _crossings_at(0.02 + 0.003 * rng.standard_normal(75), lag)
+    assert "beyond the encounter limit" in _enough_said(tg, [far], opts)
+    # a trail centred just outside the limit, wide: the median is not sure enough to stop
+    edge = _crossings_at(ENCOUNTER_MAX_MISS_AU + 0.001 + 0.01 * rng.standard_normal(75), lag)
+    assert _enough_said(tg, [edge], opts) is None
+    # an encounter-like trail never stops
+    near = _crossings_at(0.0005 + 0.001 * rng.standard_normal(75), lag)
+    assert _enough_said(tg, [near], opts) is None
+    # too few meteoroids at Earth's passage to judge: go on
+    few = _crossings_at(np.full(75, 0.03), np.r_[np.zeros(PROBE_MIN_HITS - 1), np.full(66, 60.0)])
+    assert _enough_said(tg, [few], opts) is None
+    # a uniform fallback sample that met Earth's passage not at all: said, and stopped
+    tg.selection_mode = "uniform fallback (shooting found no arrival at Earth's passage)"
+    none = _crossings_at(np.full(75, 0.03), np.full(75, 90.0))
+    assert "none within" in _enough_said(tg, [none], opts)
