@@ -27,6 +27,7 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
+from scipy.optimize import minimize_scalar
 
 from .constants import AU_KM, EARTH_ESCAPE_KM_S
 
@@ -48,6 +49,9 @@ DEFAULT_DUST_MASS_RANGE_G = (1e-12, 1e3)
 #: production is uncertain by an order of magnitude; a calibration on a past outburst of the
 #: same parent leaves about a factor of two).
 MODEL_UNCERTAINTY_FACTOR = {"absolute": 5.0, "calibrated": 2.0}
+#: The time of the profile's maximum is refined between its grid points to this tolerance
+#: (days; 1 s, far finer than any observed peak time; a grid step can be several minutes).
+PEAK_TIME_TOLERANCE_DAYS = 1.0 / 86400.0
 #: Activity window: where the profile exceeds this fraction of its peak ...
 WINDOW_FRACTION_OF_PEAK = 0.1
 #: ... and this absolute ZHR (below it, no window is reported).
@@ -463,6 +467,19 @@ def trail_activity(
     zhr, per = zhr_on(grid, fitted)
     k = int(np.argmax(zhr))
     peak = float(zhr[k])
+    t_peak = float(grid[k])
+    if peak > 0 and 0 < k < len(grid) - 1:
+        # the grid holds the maximum to a grid step (minutes for wide trails): refine it
+        # (in days from the grid point: the optimiser's relative tolerance on a Julian date
+        # would be ~0.04 d)
+        best = minimize_scalar(
+            lambda u: -zhr_on(np.array([t_peak + u]), fitted)[0][0],
+            bounds=(float(grid[k - 1] - t_peak), float(grid[k + 1] - t_peak)),
+            method="bounded",
+            options={"xatol": PEAK_TIME_TOLERANCE_DAYS},
+        )
+        if -best.fun > peak:
+            t_peak, peak = t_peak + float(best.x), float(-best.fun)
     fwhm_h = 0.0
     if peak > 0:
         a, b = _contiguous(zhr >= 0.5 * peak, k)
@@ -497,7 +514,7 @@ def trail_activity(
         half_r = BOX_HALF_SIGMAS * max(_robust_sigma(dr[live]), MIN_CROSS_WIDTH_AU)
         half_lag = BOX_LAG_FRACTION * window_days
         inside = live[
-            (np.abs(te[live] - grid[k]) <= half_t)
+            (np.abs(te[live] - t_peak) <= half_t)
             & (np.abs(dr[live]) <= half_r)
             & (np.abs(lag[live]) <= half_lag)
         ]
@@ -519,7 +536,7 @@ def trail_activity(
     else:
         boots = np.array([peak])
     return Profile(
-        grid, zhr, float(grid[k]), peak, fwhm_h, window, boots, classes, box_zhr, box_n, disagree
+        grid, zhr, t_peak, peak, fwhm_h, window, boots, classes, box_zhr, box_n, disagree
     )
 
 

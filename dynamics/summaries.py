@@ -1,13 +1,18 @@
 """Trail-level numbers from the meteoroids that met Earth's passage: peak, miss, width, radiant.
 
-The headline peak of an encounter is taken from the meteoroids that make *visual* meteors:
-those above the mass that gives a +6.5 mag meteor at their speed (the definition of the ZHR;
-:func:`dynamics.activity.limiting_mass_g`): the median of each decade of mass, combined with
-the number of real meteoroids in each decade as weights (:func:`_stratified_centre`).
-Small, high-beta grains reach their node later (radiation pressure changes their orbits) and far
-outnumber the visual ones in a log-uniform draw; an unweighted median over all sizes is dragged
-by them. Per mass class (decades of mass) the peak, miss distance and width are reported too,
-with the sensitivity of the peak time to beta (a weighted least-squares slope).
+The headline peak of an encounter is the time of the maximum of its modelled ZHR profile
+(:func:`dynamics.activity.trail_activity`), which counts only the meteoroids that make *visual*
+meteors: those above the mass that gives a +6.5 mag meteor at their speed (the definition of
+the ZHR; :func:`dynamics.activity.limiting_mass_g`). The profile takes each decade of mass at
+zero arrival lag and weights it by its density at Earth's path, so a trail that crosses Earth's
+path at a slant peaks where it passes closest to Earth, not at its middle. The middle is
+reported too (``trail_centre_utc``): the median of each decade of mass, combined with the
+number of real meteoroids in each decade as weights (:func:`_stratified_centre`); it is the
+headline when the modelled ZHR is 0. Small, high-beta grains reach their node later (radiation
+pressure changes their orbits) and far outnumber the visual ones in a log-uniform draw; an
+unweighted median over all sizes is dragged by them. Per mass class (decades of mass) the peak,
+miss distance and width are reported too, with the sensitivity of the peak time to beta (a
+weighted least-squares slope).
 """
 
 from dataclasses import dataclass, field
@@ -37,6 +42,9 @@ MIN_PARTICLES = 3
 SAME_PASSAGE_DAYS = 30.0
 #: Limiting magnitude of the meteoroids that set the headline peak (the ZHR's definition).
 VISUAL_LIMITING_MAGNITUDE = 6.5
+PEAK_BASIS_PROFILE = "maximum of the modelled ZHR profile (visual-size meteoroids)"
+PEAK_BASIS_CENTRE = "centre of the visual-size meteoroids (their modelled ZHR is 0)"
+PEAK_BASIS_ALL = "centre of all sizes (too few visual-size meteoroids)"
 VISUAL_SIZE_SOURCE = (
     "meteoroids above the mass of a +6.5 mag meteor at their speed (ZHR definition; "
     "mass-magnitude-speed relation of Jenniskens 1994 after Verniani 1973)"
@@ -99,7 +107,10 @@ class TrailEncounter:
     zhr_low: float = 0.0
     zhr_high: float = 0.0
     zhr_mode: str = "absolute"
-    peak_basis: str = "visual"
+    peak_basis: str = PEAK_BASIS_PROFILE
+    #: Centre of the visual-size meteoroids' crossings (stratified median over mass decades):
+    #: the trail's middle, which the peak leaves when the trail passes Earth at a slant.
+    centre_tdb_jd: float = float("nan")
     mass_classes: tuple = ()
     beta_sensitivity_min_per_milli: float = float("nan")
     event: str | None = None
@@ -116,6 +127,9 @@ class TrailEncounter:
             "node": self.node,
             "peak_utc": format_utc(self.peak_tdb_jd),
             "peak_basis": self.peak_basis,
+            "trail_centre_utc": format_utc(self.centre_tdb_jd)
+            if np.isfinite(self.centre_tdb_jd)
+            else None,
             "solar_longitude_deg": round(self.solar_longitude_deg, 4),
             "miss_distance_au": round(self.miss_distance_au, 6),
             "miss_distance_spread_au": round(self.miss_distance_spread_au, 6),
@@ -255,21 +269,21 @@ def summarise(
     visual = met.mass_g >= limiting_mass_g(sub.vinf_km_s, VISUAL_LIMITING_MAGNITUDE)
     te, miss = sub.t_earth_tdb_jd, sub.miss_distance_au
     if visual.sum() >= MIN_PARTICLES:
-        basis = "visual"
-        peak, miss_c = _stratified_centre(
+        basis = PEAK_BASIS_CENTRE
+        centre, miss_c = _stratified_centre(
             te[visual], miss[visual], met.mass_g[visual], counts[visual]
         )
         pick = visual
     else:  # too few visual-size meteoroids behind the estimate: every size, said so
-        basis = "all sizes (too few visual-size meteoroids)"
-        peak = float(np.median(te))
+        basis = PEAK_BASIS_ALL
+        centre = float(np.median(te))
         miss_c = float(np.median(miss))
         pick = np.ones(n, dtype=bool)
     q16, q84 = np.percentile(miss[pick], [16, 84])
-    sigma_t = 1.4826 * float(np.median(np.abs(te[pick] - peak)))
+    sigma_t = 1.4826 * float(np.median(np.abs(te[pick] - centre)))
     ra, dec = circular_median_radec(sub.ra_deg[pick], sub.dec_deg[pick])
     dilution = 1.0 / max(1.0, abs(slope) * tg.revolutions) if np.isfinite(slope) else float("nan")
-    _, v_e = heliocentric_state("earth", peak)
+    _, v_e = heliocentric_state("earth", centre)
     prof = trail_activity(
         te,
         miss,
@@ -283,6 +297,12 @@ def summarise(
         window_days=options.window_days,
         rng=options.seed,
     )
+    peak = centre
+    if basis == PEAK_BASIS_CENTRE and prof.peak_zhr > 0:
+        # the peak observers see: where the modelled rate is highest. Each mass class is taken
+        # at zero arrival lag and weighted by its density at Earth, so a trail crossing Earth's
+        # path at a slant peaks where it passes closest, not at its middle
+        basis, peak = PEAK_BASIS_PROFILE, prof.peak_tdb_jd
     mode = "calibrated" if options.calibration is not None else "absolute"
     factor = MODEL_UNCERTAINTY_FACTOR[mode]
     b16, b84 = np.percentile(prof.boot_peak_zhr, [16, 84])
@@ -313,6 +333,7 @@ def summarise(
         zhr_high=max(b84, prof.peak_zhr) * factor,
         zhr_mode=mode,
         peak_basis=basis,
+        centre_tdb_jd=centre,
         mass_classes=tuple(_mass_classes(te, miss, met.mass_g, counts, visual)),
         beta_sensitivity_min_per_milli=_beta_slope_min_per_milli(te, met.beta, counts),
         event=event,

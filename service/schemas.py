@@ -85,7 +85,17 @@ class EncounterOut(BaseModel):
     year: int = Field(..., description="Calendar year (UTC) of the encounter")
     trail: TrailOut
     node: str = Field(..., description="`ascending` or `descending`: where the trail meets Earth")
-    peak_utc: str = Field(..., description="Time Earth passes the trail's centre (UTC, ISO 8601)")
+    peak_utc: str = Field(
+        ...,
+        description="Time of the highest modelled ZHR (UTC, ISO 8601); `peak_basis` says how "
+        "it was found",
+    )
+    peak_basis: str | None = Field(None, description="How the peak time was found")
+    trail_centre_utc: str | None = Field(
+        None,
+        description="Time Earth passes the middle of the visual-size meteoroids' crossings "
+        "(UTC); differs from the peak when the trail crosses Earth's path at a slant",
+    )
     solar_longitude_deg: float = Field(..., description="At the peak; geometric, J2000 (deg)")
     miss_distance_au: float = Field(
         ..., description="Trail centre minus Earth at the node, signed (au; > 0: outside)"
@@ -93,7 +103,7 @@ class EncounterOut(BaseModel):
     miss_distance_spread_au: float = Field(
         ..., description="Half the 16-84 % range of the meteoroids' miss distances (au)"
     )
-    fwhm_hours: float = Field(..., description="FWHM of the simulated Earth passage times (h)")
+    fwhm_hours: float = Field(..., description="FWHM of the modelled ZHR profile (h)")
     radiant: RadiantOut
     vg_km_s: float = Field(..., description="Geocentric speed (km/s)")
     vinf_km_s: float = Field(..., description="Speed at the top of the atmosphere (km/s)")

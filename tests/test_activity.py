@@ -355,3 +355,29 @@ def test_absolute_zhr_scales_with_stated_production(leonids_1999):
     b = next(e for e in doubled.encounters if e.revolutions == 3)
     assert b.zhr_estimate == pytest.approx(2.0 * a.zhr_estimate, rel=1e-9)
     assert iso_to_tdb_jd(b.to_json()["peak_utc"]) == pytest.approx(a.peak_tdb_jd, abs=1e-3)
+
+
+@pytest.mark.invariant
+def test_profile_peaks_where_the_denser_class_meets_earth_between_grid_points():
+    # Two decades of mass with equal counts: the first passes 4 widths from Earth's path, the
+    # second through it, 72 min later. The density at Earth of the first is exp(-8) = 3e-4 of
+    # the second's (analytic), so the modelled rate peaks at the second class's centre; the
+    # profile grid (801 points over both classes, ~0.5 min apart) does not hold that time, the
+    # refined maximum must (1 s: PEAK_TIME_TOLERANCE_DAYS, plus the first class's negligible
+    # pull, analytic: < 0.1 s).
+    rng = np.random.default_rng(16)
+    sig, shift_d = 3e-4, 0.05
+    parts = []
+    for mass, mu, dt in ((2e-5, 4.0 * sig, 0.0), (2e-2, 0.0, shift_d)):
+        t_e, y, lag, n0, vg, vz = _tube(rng, N_TUBE // 2, sig, mu, 30.0 / 1440.0)
+        parts.append((t_e + dt, y, lag, np.full(len(t_e), mass), np.ones(len(t_e))))
+    t_e, y, lag, mass, counts = (np.concatenate(a) for a in zip(*parts, strict=True))
+    prof = _estimate(t_e, y, lag, mass, counts, vg, vz)
+    far, near = prof.classes
+    assert near.peak_zhr > 1e3 * far.peak_zhr
+    assert abs(prof.peak_tdb_jd - near.t_centre_tdb_jd) * 86400.0 < 2.0
+    step_s = (prof.t_tdb_jd[1] - prof.t_tdb_jd[0]) * 86400.0
+    off_grid_s = np.min(np.abs(prof.t_tdb_jd - near.t_centre_tdb_jd)) * 86400.0
+    assert off_grid_s > 2.0 and step_s > 20.0  # the check can fail without the refinement
+    # the counts-weighted middle of the two classes would sit with the far class, 72 min early
+    assert abs(near.t_centre_tdb_jd - far.t_centre_tdb_jd) * 1440.0 == pytest.approx(72.0, abs=2)

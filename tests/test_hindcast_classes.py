@@ -117,13 +117,6 @@ def test_split_comet_trail_is_reached_from_its_break_up(split_comet):
 
 @pytest.mark.reference
 @pytest.mark.slow
-@pytest.mark.xfail(
-    reason="known weakness, not tuned: with 10x Whipple speeds released over 1995 September the "
-    "model's visual-size (>= 10 mg at 12 km/s) meteoroids cross Earth's path about an hour after "
-    "the observed 04:17 UT peak (seen: +57 to +68 min); the trail is wide and its crossing time "
-    "correlates with its miss distance, so the release model of the break-up sets the answer",
-    strict=False,
-)
 def test_split_comet_within_the_catalogued_tolerance(split_comet):
     _check(*split_comet)
 
