@@ -46,6 +46,9 @@ DEFAULT_PARTICLES = 300
 #: Rows whose catalogue names no trail run every trail this many years old at most (a compute
 #: budget, not physics; no source: two centuries hold the trails of the outbursts seen so far).
 UNATTRIBUTED_TRAIL_AGE_YEARS = 200.0
+#: Parents with a (two-body) period longer than this many years are long-period (the usual
+#: division between short- and long-period comets, 200 years).
+LONG_PERIOD_YEARS = 200.0
 #: Crossings of other named trails within this time of the chosen one add to its ZHR (days;
 #: no source: beyond a day two trails are separate events for an observer).
 BLEND_DAYS = 1.0
@@ -74,6 +77,23 @@ def row_trails(row) -> tuple[int, ...] | None:
     return tuple(years) or None
 
 
+def row_revolutions(row, orbit) -> tuple[int, ...] | None:
+    """Revolution counts that identify a row's trails, for a long-period parent (None: by year).
+
+    A long-period parent's previous perihelion is known to decades at best (the published
+    years of one return differ by a century), and the engine computes its own from the orbit:
+    a row about such a parent's recent dust therefore names its trails by revolutions, which
+    do not depend on that date. Short-period rows name trails by perihelion year.
+    """
+    trails = row.get("trails") or []
+    revs = [t.get("revolutions") for t in trails]
+    o = parse_orbit(orbit)
+    long_period = not (o.period_days < LONG_PERIOD_YEARS * 365.25)
+    if not trails or not long_period or any(r is None for r in revs):
+        return None
+    return tuple(int(r) for r in revs)
+
+
 def is_outburst(row) -> bool:
     """False for the catalogue's no-outburst rows (a trail came near and nothing was seen)."""
     return "no-outburst" not in (row.get("kind") or [])
@@ -91,7 +111,7 @@ def _zhr_at(enc, t_tdb_jd) -> float:
     return float(np.interp(t_tdb_jd, p.t_tdb_jd, p.zhr, left=0.0, right=0.0))
 
 
-def _pick(row, res):
+def _pick(row, res, revolutions=None):
     """The crossing the observation refers to, and the ZHR there; (None, 0) if there is none.
 
     Candidates: crossings of the row's named trails (all crossings when it names none), inside
@@ -103,7 +123,11 @@ def _pick(row, res):
     cands = [
         e
         for e in res.encounters + res.near_misses
-        if trails is None or year_of(e.trail_perihelion_tdb_jd) in trails
+        if (
+            e.revolutions in revolutions
+            if revolutions is not None
+            else trails is None or year_of(e.trail_perihelion_tdb_jd) in trails
+        )
     ]
     window = _check_window(row)
     if window is not None:
@@ -139,7 +163,11 @@ def run_row(
     cross-check, FWHM (hours), the crossing's label by :func:`classify_crossing`, and ``notes``.
     """
     year = int(row["year"])
-    trails = row_trails(row)
+    revolutions = row_revolutions(row, orbit)
+    # by revolutions: the default scope, which always holds the parent's previous return
+    trails = None if revolutions is not None else row_trails(row)
+    if row.get("ejection_events"):  # a break-up or outburst the row's source describes
+        orbit = dict(orbit, ejection_events=list(row["ejection_events"]))
     options = ForecastOptions(
         year,
         year,
@@ -156,7 +184,7 @@ def run_row(
         out["error"] = f"{type(exc).__name__}: {exc}"
         return out
     out["notes"] = list(res.notes)
-    enc, zhr = _pick(row, res)
+    enc, zhr = _pick(row, res, revolutions)
     if enc is None:
         return out
     label = classify_crossing(

@@ -11,7 +11,7 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 
-from dynamics.hindcast import STORM_ZHR, _pick, calibration_rows, score
+from dynamics.hindcast import STORM_ZHR, _pick, calibration_rows, row_revolutions, score
 from dynamics.timescales import iso_to_tdb_jd
 from service.hindcast import CatalogueError, load_catalogue
 
@@ -135,9 +135,10 @@ def test_cli_refuses_a_bad_catalogue_in_one_line_and_writes_nothing(tmp_path):
 
 # --- quick rows: the real pipeline on a few past outbursts --------------------------------------
 
-# The two catalogue rows with the youngest trails (65 and 100 years of integration), chosen for
-# speed: a fast and a slow shower, a Halley-type and a Jupiter-family parent.
-QUICK_ROWS = ("leo-1999-1899", "dra-2018-1953")
+# The catalogue rows with the youngest trails (65, 100 and 27 years of integration), chosen for
+# speed: a fast and a slow shower, a Halley-type and a Jupiter-family parent, and a split comet
+# whose trail exists only through the row's ejection event (the 1995 break-up).
+QUICK_ROWS = ("leo-1999-1899", "dra-2018-1953", "tah-2022-1995")
 QUICK_PARTICLES = 150  # few meteoroids: the timing of a young trail is set by its median
 
 
@@ -165,6 +166,18 @@ def test_quick_row_peak_within_its_tolerance(quick_report, rid):
     row = next(r for r in report["scores"]["absolute"]["rows"] if r["id"] == rid)
     assert row["offset_min"] is not None, "no crossing predicted for an observed outburst"
     assert abs(row["offset_min"]) <= row["tolerance_min"]
+
+
+@pytest.mark.invariant
+def test_long_period_rows_name_their_trail_by_revolutions():
+    # The one-revolution row of a long-period parent is matched by revolutions (its published
+    # previous perihelion, "around 4 A.D. +/- 40 yr", is not the engine's own); short-period
+    # rows by perihelion year.
+    rows, orbits, _ = load_catalogue(CATALOGUE)
+    by_id = {r["id"]: r for r in rows}
+    aur, leo = by_id["aur-2007-1rev"], by_id["leo-1999-1899"]
+    assert row_revolutions(aur, orbits[aur["parent"]]) == (1,)
+    assert row_revolutions(leo, orbits[leo["parent"]]) is None
 
 
 @pytest.mark.slow

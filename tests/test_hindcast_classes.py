@@ -21,28 +21,17 @@ import pytest
 
 from dynamics.forecast import ForecastOptions, forecast
 from dynamics.orbit_input import parse_orbit
-from dynamics.release import EjectionEvent
 from dynamics.summaries import year_of
 from dynamics.timescales import iso_to_tdb_jd
 
 CATALOGUE = Path(__file__).resolve().parents[1] / "validation" / "hindcasts.json"
 
-# The 1995 break-up of 73P: the nucleus split around its 1995 September perihelion, with an
-# outburst seen from early September (Crovisier et al. 1996, from memory); dust from such
-# break-ups left at several times the gas-drag speeds (Wiegert et al. 2005, MNRAS 361, 638, used
-# ~10x for this comet, from memory). Modelled as 30 days of release from 1995-09-01 (JD TDB
-# 2449961.5) at 10x the Whipple speeds: set before the run, not fitted.
-BREAK_UP_1995 = EjectionEvent(
-    "fragmentation",
-    2449961.5,
-    duration_days=30.0,
-    speed_multiplier=10.0,
-    source="1995 Sep break-up of 73P (Crovisier et al. 1996; Wiegert et al. 2005; from memory)",
-)
 
 CASES = {
     # row id: (trail perihelion year, options beyond the defaults)
-    "tah-2022-1995": (1995, {"trails": (1995,), "events": (BREAK_UP_1995,)}),
+    # the 1995 break-up as the catalogue row's ejection event (30 days of release from
+    # 1995-09-01 at 10x the Whipple speeds, with its sources there; set before any run)
+    "tah-2022-1995": (1995, {"trails": (1995,)}),
     "dra-2011-1900": (1900, {"trails": (1900,)}),
     "aur-2007-1rev": (None, {}),  # default scope: the previous return is always in it
     "leo-1998-1333": (1333, {"trails": (1333,)}),
@@ -65,6 +54,8 @@ def _row_and_orbit(row_id):
     }
     if o.get("nongrav_au_d2"):
         data["nongrav"] = o["nongrav_au_d2"]
+    if row.get("ejection_events"):  # a break-up the row's source describes
+        data["ejection_events"] = row["ejection_events"]
     return row, parse_orbit(data)
 
 
