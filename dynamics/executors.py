@@ -87,10 +87,16 @@ def run_task(task: Task):
     return node_crossings(snaps, task.beta, task.node)
 
 
+def task_cost(task: Task) -> float:
+    """Rough cost of a chunk: meteoroids times days integrated (the step count's scale)."""
+    return float(len(task.beta)) * float(task.out_t[-1] - task.bodies.t_tdb_jd)
+
+
 def run_tasks(
     tasks: Sequence[Task], executor=None, on_done: Callable[[int, int], None] | None = None
 ):
-    """Run integration chunks and return their results in submission order.
+    """Run integration chunks and return their results in the order given (the costliest are
+    started first).
 
     ``executor`` is anything with ``submit`` (a process pool from :func:`make_executor`, a Dask
     client's executor) or None (this process). ``on_done(k, n)`` is called after each chunk; an
@@ -104,7 +110,12 @@ def run_tasks(
             out.append(run_task(t))
             report(k + 1, n)
         return out
-    futures = [executor.submit(run_task, t) for t in tasks]
+    # longest first (the LPT rule of scheduling, Graham 1969): the last chunks to start are
+    # the short ones, so workers wait least for each other at the end of a round
+    order = sorted(range(n), key=lambda k: -task_cost(tasks[k]))
+    futures = [None] * n
+    for k in order:
+        futures[k] = executor.submit(run_task, tasks[k])
     try:
         for k, _ in enumerate(cf.as_completed(futures)):
             report(k + 1, n)
