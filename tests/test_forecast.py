@@ -97,6 +97,7 @@ def test_hindcast_json_carries_the_documented_keys(hindcast_1999):
         "particles",
         "dilution",
     } <= set(enc)
+    assert enc["classification"]["label"] == "encounter"  # a storm is far above the level
     assert enc["peak_utc"].endswith("Z") and enc["trail"]["perihelion_tdb"].endswith("TDB")
     assert enc["trail"]["perihelion_tdb"].startswith("1899-07")
     assert out["model"]["ejection_model"]["speed_law"] == "whipple1951"
