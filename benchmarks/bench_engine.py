@@ -96,8 +96,10 @@ def run():
 
     # 3. two worker processes vs one, same forecast and seed
     t2, res2 = _clock(lambda: forecast(orbit, replace(opts, workers=2)))
-    same = res1.to_json()["encounters"] == res2.to_json()["encounters"]
-    yield f"2 workers vs 1, whole pipeline: speed-up {t1 / t2:.2f}x, identical encounters: {same}"
+    one, two = res1.to_json(), res2.to_json()
+    # every reported crossing: the 1932 trail's may be a near miss or negligible, not an encounter
+    same = (one["encounters"], one["near_misses"]) == (two["encounters"], two["near_misses"])
+    yield f"2 workers vs 1, whole pipeline: speed-up {t1 / t2:.2f}x, identical crossings: {same}"
     from dynamics.executors import Task, make_executor, run_tasks
 
     chunks = [cand.take(np.arange(k, k + 250)) for k in range(0, 1000, 250)]

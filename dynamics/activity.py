@@ -548,6 +548,9 @@ class Classification:
     zhr_level: float
     reason: str
 
+    def to_json(self) -> dict:
+        return {"label": self.label, "zhr_level": self.zhr_level, "reason": self.reason}
+
 
 def classify_crossing(
     peak_zhr: float,
@@ -560,11 +563,17 @@ def classify_crossing(
     near_miss_max_au: float,
     annual_zhr: float | None = None,
     min_zhr: float = ENCOUNTER_MIN_ZHR,
+    zhr_range: tuple[float, float] | None = None,
+    zhr_mode: str | None = None,
 ) -> Classification | None:
     """Name a trail crossing by the activity it gives, not only by its distance.
 
     Rule (common practice, no source): the level is ``min_zhr`` (:data:`ENCOUNTER_MIN_ZHR`), or
     the annual shower's ZHR when known and higher (an outburst at least doubles the rate).
+    ``zhr_range`` (low, high) and ``zhr_mode`` (``absolute`` or ``calibrated``), when given, go
+    into the reason: in absolute mode the ZHR is uncertain by a factor of several, so a crossing
+    below the level whose high end reaches it is said to be possibly noticeable (and an
+    encounter whose low end falls below it, possibly not). They never change the label.
 
     - ``encounter``: predicted peak ZHR at or above the level (and the crossing within
       ``near_miss_max_au``);
@@ -578,6 +587,10 @@ def classify_crossing(
     ...     encounter_sigmas=3.0, earth_radius_au=4.26e-5, near_miss_max_au=0.05)
     >>> c.label, c.reason
     ('negligible', 'passes 0.00020 au from Earth (0.7 widths) but the predicted peak ZHR 0.4 is below 10')
+    >>> classify_crossing(0.4, 0.0002, 0.0003, encounter_max_miss_au=0.005,
+    ...     encounter_sigmas=3.0, earth_radius_au=4.26e-5, near_miss_max_au=0.05,
+    ...     zhr_range=(0.02, 11.0), zhr_mode="absolute").reason.split("; ")[-1]
+    'at the high end of its range it reaches 10 and could be noticeable'
     """
     level = float(min_zhr) if annual_zhr is None else max(float(min_zhr), float(annual_zhr))
     miss = abs(float(miss_distance_au))
@@ -586,16 +599,37 @@ def classify_crossing(
     spread = float(miss_distance_spread_au)
     widths = miss / spread if spread > 0 else float("inf")
     where = f"{miss:.5f} au from Earth ({widths:.1f} widths)"
-    z = f"{peak_zhr:.3g}"
+    z = _zhr_text(peak_zhr)
     if peak_zhr >= level:
-        return Classification(
-            "encounter", level, f"predicted peak ZHR {z} at or above {level:g}; passes {where}"
-        )
-    close = miss <= min(encounter_max_miss_au, encounter_sigmas * spread + earth_radius_au)
-    if close:
-        return Classification(
-            "negligible", level, f"passes {where} but the predicted peak ZHR {z} is below {level:g}"
-        )
-    return Classification(
-        "near miss", level, f"passes {where}; predicted peak ZHR {z}, below {level:g}"
-    )
+        label = "encounter"
+        reason = f"predicted peak ZHR {z} at or above {level:g}; passes {where}"
+    elif miss <= min(encounter_max_miss_au, encounter_sigmas * spread + earth_radius_au):
+        label = "negligible"
+        reason = f"passes {where} but the predicted peak ZHR {z} is below {level:g}"
+    else:
+        label = "near miss"
+        reason = f"passes {where}; predicted peak ZHR {z}, below {level:g}"
+    return Classification(label, level, reason + _range_words(label, level, zhr_range, zhr_mode))
+
+
+def _zhr_text(x: float) -> str:
+    """A ZHR to three significant figures without an exponent (``1290``, ``0.4``)."""
+    v = float(f"{float(x):.3g}")
+    return f"{v:.0f}" if abs(v) >= 100 else f"{v:g}"
+
+
+def _range_words(label: str, level: float, zhr_range, zhr_mode) -> str:
+    """The stated ZHR range in words, and whether its far end crosses the level."""
+    if zhr_range is None:
+        return ""
+    lo, hi = (float(x) for x in zhr_range)
+    how = {
+        "absolute": "absolute mode, uncertain by a factor of several",
+        "calibrated": "calibrated on a past outburst",
+    }.get(zhr_mode or "", zhr_mode or "stated range")
+    text = f"; range {_zhr_text(lo)}-{_zhr_text(hi)} ({how})"
+    if label != "encounter" and hi >= level:
+        text += f"; at the high end of its range it reaches {level:g} and could be noticeable"
+    elif label == "encounter" and lo < level:
+        text += f"; at the low end of its range it stays below {level:g}"
+    return text

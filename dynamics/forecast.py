@@ -7,8 +7,16 @@ history (:mod:`~dynamics.history`) -> targets (:mod:`~dynamics.targeting`) -> re
 
 :func:`forecast` is the Python API the CLI and the service call. It returns a
 :class:`ForecastResult` whose :meth:`~ForecastResult.to_json` gives the documented JSON. Every
-trail in scope ends with a stated outcome (``trails`` in the JSON): encounter, near miss,
-distant crossing, or not reached, with the closest approach found and what was tried.
+trail in scope ends with a stated outcome (``trails`` in the JSON): encounter, negligible,
+near miss, distant crossing, or not reached, with the closest approach found and what was tried.
+
+A crossing is named by its predicted activity at Earth, not by its distance alone
+(:func:`dynamics.activity.classify_crossing`): an *encounter* gives a predicted peak ZHR at or
+above :data:`~dynamics.activity.ENCOUNTER_MIN_ZHR`; a trail that passes close (the distance test
+of :data:`ENCOUNTER_MAX_MISS_AU` and :data:`ENCOUNTER_SIGMAS`) but gives less is *negligible*, a
+farther one within :data:`NEAR_MISS_MAX_AU` a *near miss*. The level is that minimum only: the
+forecast knows no annual shower's ZHR (neither its options nor the built-in shower table carry
+one), so the rule's "or the annual shower's ZHR" never applies here.
 
 Reproducibility: every random draw comes from ``numpy.random.SeedSequence([seed, trail])``, and
 particles are split into chunks of a fixed size in a fixed order, so the result does not depend
@@ -26,6 +34,8 @@ from .activity import (
     DEFAULT_DUST_MASS_RANGE_G,
     DEFAULT_DUST_TO_GAS,
     DEFAULT_EROSION_M_PER_RETURN,
+    ENCOUNTER_MIN_ZHR,
+    classify_crossing,
     default_dust_mass_per_return_g,
 )
 from .constants import DAYS_PER_JULIAN_YEAR, GM_SUN_AU3_D2
@@ -44,7 +54,7 @@ from .release import (
     event_of_return,
     model_for_event,
 )
-from .summaries import MIN_PARTICLES, TrailEncounter, round_sig, summarise, year_of
+from .summaries import MIN_PARTICLES, TrailEncounter, round_sig, summarise, year_of, zhr_value
 from .targeting import (
     BETA_CLASSES,
     NODE_MAX_DISTANCE_AU,
@@ -63,7 +73,8 @@ from .targeting import (
 )
 from .timescales import TIME_SCALE_NOTES, calendar_year_tdb_jd, format_iso
 
-#: |median miss distance| below which a trail crossing can be an encounter (au).
+#: |median miss distance| below which a trail crossing counts as passing close to Earth (au):
+#: an encounter if its predicted ZHR reaches the level, else negligible (classify_crossing).
 #: Common practice, no source: trails passing within ~0.005 au have given outbursts.
 ENCOUNTER_MAX_MISS_AU = 0.005
 #: ... and Earth's path must lie within this many standard deviations of the trail's
@@ -110,6 +121,18 @@ PROBE_MIN_HITS = 10
 PROBE_STOP_SE = 3.0
 #: Crossings farther than NEAR_MISS_MAX_AU are "distant"; no meteoroid within the window of
 #: Earth's passage at all: "not reached".
+
+
+CLASSIFICATION_RULE = (
+    f"encounter: predicted peak ZHR at or above {ENCOUNTER_MIN_ZHR:g} (common practice, no "
+    "source; no annual shower's ZHR is known to the forecast), within "
+    f"{NEAR_MISS_MAX_AU:g} au; negligible: the trail passes close (within "
+    f"{ENCOUNTER_MAX_MISS_AU:g} au and {ENCOUNTER_SIGMAS:g} cross-section widths plus Earth's "
+    "radius) but its predicted peak ZHR is below that level; near miss: farther, within "
+    f"{NEAR_MISS_MAX_AU:g} au, below the level. encounters lists the first, near_misses the "
+    "other two; in absolute mode the ZHR is uncertain by a factor of several (see each "
+    "reason's range)"
+)
 
 
 class CalibrationFailed(TrailcastError):
@@ -240,6 +263,16 @@ class ForecastOptions:
 
 @dataclass(frozen=True)
 class ForecastResult:
+    """What a forecast found, in the order of the JSON.
+
+    ``encounters`` are the crossings classified ``encounter`` (predicted peak ZHR at or above the
+    level); ``near_misses`` every other reported crossing: ``negligible`` ones (close to Earth's
+    path, too little activity) and ``near miss`` ones (farther, below the level). Each carries its
+    :class:`~dynamics.activity.Classification` (``classification`` in the JSON: label, level and
+    the reason with the numbers). ``trails`` holds one stated outcome per trail passage with the
+    same labels.
+    """
+
     parent: OrbitInput
     options: ForecastOptions
     encounters: tuple[TrailEncounter, ...]
@@ -292,6 +325,7 @@ class ForecastResult:
                 "(mass of a +6.5 mag meteor or more at their speed): median per decade of mass, "
                 "combined weighted by the real meteoroids of each decade",
                 "time_scale_notes": list(TIME_SCALE_NOTES),
+                "classification": CLASSIFICATION_RULE,
             },
             "encounters": [e.to_json() for e in self.encounters],
             "near_misses": [e.to_json() for e in self.near_misses],
@@ -469,14 +503,16 @@ def _forecast(
                 slope,
                 event=None if tr.event is None else tr.event.kind,
             )
-        outcome = _outcome(tg, tr, enc, options)
-        outcomes.append(outcome)
+        if enc is not None:
+            enc = _classified(enc)
+        outcomes.append(_outcome(tg, tr, enc, options))
         if enc is None:
             continue
         contributing += enc.particles
-        if outcome["outcome"] == "encounter":
+        label = None if enc.classification is None else enc.classification.label
+        if label == "encounter":
             encounters.append(enc)
-        elif outcome["outcome"] == "near miss":
+        elif label in ("negligible", "near miss"):  # reported with their number, not dropped
             near.append(enc)
     outcomes = _one_row_per_passage(outcomes, targets)
     if trail_ids and targets and not encounters:
@@ -859,19 +895,19 @@ def _outcome(tg: Target, tr: _Trail, enc, options) -> dict:
         "tried": tried,
     }
     if enc is not None:
-        m = abs(enc.miss_distance_au)
-        reach = ENCOUNTER_SIGMAS * enc.miss_distance_spread_au + EARTH_RADIUS_AU
-        if m <= min(ENCOUNTER_MAX_MISS_AU, reach):
-            kind = "encounter"
-        elif m <= NEAR_MISS_MAX_AU:
-            kind = "near miss"
-        else:
-            kind = "distant"
+        c = enc.classification
         row.update(
-            outcome=kind,
+            outcome="distant" if c is None else c.label,
             miss_distance_au=round(enc.miss_distance_au, 6),
             peak_tdb=format_iso(enc.peak_tdb_jd, "TDB"),
             meteoroids_at_earth=enc.particles,
+            peak_zhr=zhr_value(enc.zhr_estimate),
+            zhr_range=[zhr_value(enc.zhr_low), zhr_value(enc.zhr_high)],
+            zhr_level=ENCOUNTER_MIN_ZHR if c is None else c.zhr_level,
+            reason=f"passes {abs(enc.miss_distance_au):.5f} au from Earth, beyond the "
+            f"{NEAR_MISS_MAX_AU:g} au within which crossings are reported"
+            if c is None
+            else c.reason,
         )
         return row
     if inside.any():
@@ -921,7 +957,31 @@ def _one_row_per_passage(outcomes, targets) -> list[dict]:
     return [outcomes[k] for k in sorted(keep)]
 
 
+def _classified(enc: TrailEncounter) -> TrailEncounter:
+    """``enc`` with its :class:`~dynamics.activity.Classification` (None: farther than
+    :data:`NEAR_MISS_MAX_AU`, not reported).
+
+    Classified on the ZHR numbers as reported (:func:`dynamics.summaries.zhr_value`), so that
+    the label and the number shown beside it never disagree at the level's edge.
+    """
+    c = classify_crossing(
+        zhr_value(enc.zhr_estimate),
+        enc.miss_distance_au,
+        enc.miss_distance_spread_au,
+        encounter_max_miss_au=ENCOUNTER_MAX_MISS_AU,
+        encounter_sigmas=ENCOUNTER_SIGMAS,
+        earth_radius_au=EARTH_RADIUS_AU,
+        near_miss_max_au=NEAR_MISS_MAX_AU,
+        min_zhr=ENCOUNTER_MIN_ZHR,  # no annual shower's ZHR is known here (module docstring)
+        zhr_range=(zhr_value(enc.zhr_low), zhr_value(enc.zhr_high)),
+        zhr_mode=enc.zhr_mode,
+    )
+    return replace(enc, classification=c)
+
+
 def _nothing_found_note(outcomes) -> str:
+    """The note of a forecast without encounters: what became of every trail passage, and the
+    close passes that gave too little activity, each with its numbers."""
     counts: dict[str, int] = {}
     for o in outcomes:
         counts[o["outcome"]] = counts.get(o["outcome"], 0) + 1
@@ -932,8 +992,21 @@ def _nothing_found_note(outcomes) -> str:
     ]
     best = min(closest) if closest else np.inf
     tail = f"; the closest simulated approach was {best:.4f} au" if np.isfinite(best) else ""
+    weak = [o for o in outcomes if o["outcome"] == "negligible"]
+    close = ""
+    if weak:
+        close = (
+            f"; {len(weak)} passed close to Earth's path but with negligible activity "
+            f"(predicted peak ZHR below {weak[0]['zhr_level']:g}): "
+            + ", ".join(
+                f"the {o['trail']['perihelion_year']} trail in {o['year']} at "
+                f"{abs(o['miss_distance_au']):.5f} au, ZHR {o['peak_zhr']:.3g} "
+                f"({o['zhr_range'][0]:.3g}-{o['zhr_range'][1]:.3g})"
+                for o in weak
+            )
+        )
     return (
-        f"no encounter: {len(outcomes)} trail passages were followed ({said}){tail}; "
+        f"no encounter: {len(outcomes)} trail passages were followed ({said}){tail}{close}; "
         "see 'trails' for each one and what was tried"
     )
 

@@ -80,12 +80,16 @@ __all__ = [
 ]
 
 #: Version of the screening record layout and verdict rules; part of every result key.
-SCREENING_VERSION = 1
+#: 2: "encounter predicted" needs a crossing classified encounter by its predicted activity
+#: (dynamics.activity.classify_crossing), no longer a close crossing alone.
+SCREENING_VERSION = 2
 
 #: Every verdict a screened orbit can get, with its meaning.
 VERDICTS = {
-    "encounter predicted": "candidate; the trail forecast finds at least one trail encounter",
-    "near misses only": "candidate; trails pass near Earth's path but none is an encounter",
+    "encounter predicted": "candidate; the trail forecast finds at least one trail encounter "
+    "(predicted peak ZHR at or above the encounter level)",
+    "near misses only": "candidate; trails pass near Earth's path (close passes with negligible "
+    "activity included) but none is an encounter",
     "no encounter": "candidate; no trail passes within the near-miss distance in these years",
     "no trails": "candidate; first passage or no active return in the span: no dust trails",
     "not a candidate": "fails the screening rule: no trail forecast run",

@@ -21,6 +21,7 @@ import numpy as np
 
 from .activity import (
     MODEL_UNCERTAINTY_FACTOR,
+    Classification,
     Profile,
     limiting_mass_g,
     meteoroids_per_particle,
@@ -114,6 +115,9 @@ class TrailEncounter:
     mass_classes: tuple = ()
     beta_sensitivity_min_per_milli: float = float("nan")
     event: str | None = None
+    #: What the crossing is called by its predicted activity (set by the forecast's conductor
+    #: with :func:`dynamics.activity.classify_crossing`; None before that).
+    classification: Classification | None = None
 
     def to_json(self) -> dict:
         return {
@@ -156,6 +160,9 @@ class TrailEncounter:
                 if self.profile is None
                 else self.profile.estimators_disagree,
             },
+            "classification": None
+            if self.classification is None
+            else self.classification.to_json(),
             "window": None
             if self.profile is None or self.profile.window_tdb_jd is None
             else {

@@ -560,28 +560,49 @@ def forecast_table(res: dict) -> str:
         "RA     Dec    Vg    n     ZHR (low-high)"
     )
 
+    from dynamics.activity import ENCOUNTER_MIN_ZHR
+
+    from .exports import kind_of
+
     def rows(items):
         out = []
         for e in items:
             z = e["zhr"]
             sol = f"{e['solution']:<12}  " if multi else ""
+            c = e.get("classification") or {}
+            level = c.get("zhr_level") or ENCOUNTER_MIN_ZHR
+            high = (
+                f"  high end reaches {level:g}"
+                if c.get("label") != "encounter" and z["high"] >= level
+                else ""
+            )
             out.append(
                 f"  {sol}{e['year']}  {e['trail']['perihelion_year']:>5}  {e['trail']['revolutions']:>3}  "
                 f"{e['peak_utc']:<20}  {e['solar_longitude_deg']:>9.4f}  {e['miss_distance_au']:+.5f}  "
                 f"{e['miss_distance_spread_au']:.5f}  {e['fwhm_hours']:6.2f}  {e['radiant']['ra_deg']:5.1f}  "
                 f"{e['radiant']['dec_deg']:+5.1f}  {e['vg_km_s']:4.1f}  {e['particles']:>4}  "
-                f"{z['estimate']:.3g} ({z['low']:.3g}-{z['high']:.3g})"
+                f"{z['estimate']:.3g} ({z['low']:.3g}-{z['high']:.3g}){high}"
             )
         return out
 
-    lines.append("Encounters (trail within the encounter distance of Earth's path)")
-    lines += [header] + (rows(res["encounters"]) or ["  none"])
-    lines += [
-        "",
-        "Near misses (trail passes near but misses: no outburst expected from it)",
-        header,
-    ]
-    lines += rows(res["near_misses"]) or ["  none"]
+    reported = [(k, e) for k in ("encounters", "near_misses") for e in res[k]]
+    level = f"{ENCOUNTER_MIN_ZHR:g}"
+    sections = (
+        ("encounter", f"Encounters (predicted peak ZHR at or above {level})"),
+        (
+            "negligible",
+            "Negligible (trail passes close to Earth's path, but the predicted peak ZHR stays "
+            f"below {level})",
+        ),
+        (
+            "near_miss",
+            f"Near misses (trail passes farther; predicted peak ZHR below {level}: no outburst "
+            "expected from it)",
+        ),
+    )
+    for n, (kind, title) in enumerate(sections):
+        picked = [e for k, e in reported if kind_of(e, k) == kind]
+        lines += ([""] if n else []) + [title, header] + (rows(picked) or ["  none"])
     if multi and res["solution_summary"]:
         lines += ["", "How the solutions differ"]
         lines += [f"  {row['explanation']}" for row in res["solution_summary"]]

@@ -7,6 +7,10 @@ encounters later appear without a change here; nested objects become dotted colu
 (:func:`profiles_csv`). An object that is ``null`` in some rows (``window`` when the predicted ZHR
 stays below the window's floor) never becomes a column of its own beside its dotted columns.
 
+Each crossing's ``kind`` is its classification by predicted activity (``encounter``,
+``negligible``, ``near_miss``; :func:`kind_of`), and calendars hold encounters only: a stored
+crossing labelled otherwise (stored before crossings were classified by activity) gets no event.
+
 The calendar event's window: an encounter's own activity ``window`` (``start_utc``/``end_utc``)
 when the forecast gives one; otherwise the peak time plus and minus half the FWHM of the
 simulated meteoroids' Earth passage times, which each event's description says in words.
@@ -53,6 +57,7 @@ _LEADING_COLUMNS = (
     "zhr.low",
     "zhr.high",
     "zhr.mode",
+    "classification.reason",
     "window.start_utc",
     "window.end_utc",
 )
@@ -68,6 +73,23 @@ PROFILE_COLUMNS = (
     "time_utc",
     "zhr",
 )
+
+
+def kind_of(encounter: dict, listed_as: str) -> str:
+    """A crossing's ``kind`` column: its classification label with ``_`` for spaces
+    (``encounter``, ``negligible``, ``near_miss``); without one, the list it is in
+    (``listed_as``: ``encounters`` or ``near_misses``).
+
+    >>> kind_of({"classification": {"label": "near miss"}}, "near_misses")
+    'near_miss'
+    >>> kind_of({}, "encounters")
+    'encounter'
+    """
+    c = encounter.get("classification")
+    label = c.get("label") if isinstance(c, dict) else None
+    if not label:
+        label = "encounter" if listed_as == "encounters" else "near miss"
+    return label.replace(" ", "_")
 
 
 def flatten(obj: dict, prefix: str = "") -> dict:
@@ -274,7 +296,8 @@ def encounters_ics(
     cautions: list[str],
     site=None,
 ) -> bytes:
-    """An iCalendar of ``(forecast_id, index, parent, encounter, finished_utc)`` items.
+    """An iCalendar of ``(forecast_id, index, parent, encounter, finished_utc)`` items: one
+    event per item that is an encounter (:func:`kind_of`); others get none.
 
     With a ``site`` (:class:`dynamics.observing.Site`) each description ends with
     :func:`site_lines`.
@@ -290,6 +313,8 @@ def encounters_ics(
         "Predicted meteor-shower encounters with comet dust trails. " + " ".join(cautions),
     )
     for forecast_id, idx, parent, e, finished_utc in items:
+        if kind_of(e, "encounters") != "encounter":
+            continue  # no outburst expected: no event in anyone's calendar
         parent = one_line(parent)
         start, end, note = event_window(e)
         ev = Event()

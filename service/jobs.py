@@ -22,7 +22,7 @@ import secrets
 import socket
 import sqlite3
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import UTC, datetime, timedelta
 
 from .storage import Store
@@ -203,16 +203,20 @@ class JobStore:
     """Job operations on a :class:`service.storage.Store`; every write is one transaction.
 
     ``result_hooks`` maps a kind to what it stores beside its result (default: the hooks of
-    :mod:`service.job_kinds`).
+    :mod:`service.job_kinds`); results are read through their kind's ``read_result`` (results
+    stored by older versions stay readable as today's readers expect them).
     """
 
     def __init__(self, store: Store, result_hooks: dict[str, ResultHook] | None = None):
+        from .job_kinds import read_hooks
+
         self.store = store
         if result_hooks is None:
             from .job_kinds import result_hooks as default_hooks
 
             result_hooks = default_hooks()
         self.result_hooks = result_hooks
+        self.read_hooks = read_hooks()
 
     # --- submitting and reading -------------------------------------------------------------
 
@@ -302,7 +306,11 @@ class JobStore:
         if not rows or (kind is not None and rows[0]["kind"] != kind):
             raise JobNotFound(job_id)
         row = rows[0]
-        return Job.from_row(row, row["result_json"] if with_result else None)
+        job = Job.from_row(row, row["result_json"] if with_result else None)
+        hook = self.read_hooks.get(job.kind)
+        if job.result is not None and hook is not None:
+            job = replace(job, result=hook(job.result))
+        return job
 
     def cancel(self, job_id: str, kind: str | None = None) -> Job:
         """Cancel a queued job at once, or ask the runner of a running job to stop.

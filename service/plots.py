@@ -19,7 +19,9 @@ Every trail keeps one style (colour, marker, line dash) in every chart of a fore
 that trails stay apart in greyscale too. SVG groups carry stable ids (``trail-<year>``,
 ``radiants-<year>``, ``radiant-<year>``, ``profile-<year>``, ``band-<year>``, ``window-<year>``,
 ``peak-<year>``, ``peak-line-<year>``, ``earth-path``) so that pages and tests can find the
-plotted elements; one ``<use>`` element per plotted point.
+plotted elements; one ``<use>`` element per plotted point. Legends name each crossing by its
+classification by predicted activity (encounter, negligible, near miss), as the numbers table
+does; only encounters are drawn with filled markers.
 
 Time axes name the date (:class:`UtcDayFormatter`: the month and day under the first tick and
 at every change of UTC day) and mark each encounter's peak with a dotted line labelled to the
@@ -129,10 +131,18 @@ def _items(result: dict, year: int) -> list[tuple[str, dict, dict | None]]:
     return out
 
 
+def _what(kind: str, e: dict) -> str:
+    """The crossing's classification by predicted activity (``encounter``, ``negligible``,
+    ``near miss``); without one (hand-made results), the list it is in."""
+    c = e.get("classification")
+    if isinstance(c, dict) and c.get("label"):
+        return c["label"]
+    return "encounter" if kind == "encounter" else "near miss"
+
+
 def _label(kind: str, e: dict) -> str:
     t = e["trail"]
-    what = "encounter" if kind == "encounter" else "near miss"
-    return f"{t['perihelion_year']} trail ({t['revolutions']} rev), {what}"
+    return f"{t['perihelion_year']} trail ({t['revolutions']} rev), {_what(kind, e)}"
 
 
 def _utc(text: str) -> datetime:
@@ -185,7 +195,7 @@ def _mark_peaks(ax, items, styles) -> None:
     The label runs up the line (rotated 90 degrees) so that it needs no width: it fits the
     narrow layout and never pushes the axes aside (it takes no part in the layout).
     """
-    encounters = [(k, e) for k, e, _c in items if k == "encounter"]
+    encounters = [(k, e) for k, e, _c in items if _what(k, e) == "encounter"]
     chosen = encounters or sorted(
         ((k, e) for k, e, _c in items), key=lambda ke: abs(ke[1]["miss_distance_au"])
     )
@@ -260,7 +270,7 @@ def crossings_figure(result: dict, year: int, size: str = "wide") -> Figure:
             linestyle="none",
             marker=style["marker"],
             markersize=5,
-            markerfacecolor=style["color"] if kind == "encounter" else "none",
+            markerfacecolor=style["color"] if _what(kind, e) == "encounter" else "none",
             markeredgecolor=style["color"],
             markeredgewidth=1.0,
             alpha=0.85,

@@ -29,6 +29,13 @@ EXAMPLE_ENCOUNTER = {
     "dilution": 0.9958,
     "population_index": 2.512,
     "zhr": {"estimate": 12.0, "low": 3.0, "high": 40.0, "mode": "absolute"},
+    "classification": {
+        "label": "encounter",
+        "zhr_level": 10.0,
+        "reason": "predicted peak ZHR 12 at or above 10; passes 0.00435 au from Earth (5.6 "
+        "widths); range 3-40 (absolute mode, uncertain by a factor of several); at the low end "
+        "of its range it stays below 10",
+    },
     "window": {"start_utc": "2040-04-11T07:40:00Z", "end_utc": "2040-04-11T09:30:00Z"},
     "profile": [{"time_utc": "2040-04-11T08:32:43Z", "zhr": 12.0}],
 }
@@ -77,6 +84,28 @@ class ProfilePointOut(BaseModel):
     zhr: float = Field(..., description="ZHR at that time (meteors per hour)")
 
 
+class ClassificationOut(BaseModel):
+    """What a crossing is called by its predicted activity at Earth, and why
+    (:func:`dynamics.activity.classify_crossing`)."""
+
+    model_config = ConfigDict(extra="allow")
+    label: str = Field(
+        ...,
+        description="`encounter` (predicted peak ZHR at or above `zhr_level`), `negligible` "
+        "(passes close to Earth's path but the predicted ZHR stays below the level) or "
+        "`near miss` (farther, below the level)",
+        examples=["negligible"],
+    )
+    zhr_level: float | None = Field(
+        None,
+        description="The ZHR an encounter must reach (meteors per hour); null for a crossing "
+        "stored without a ZHR",
+    )
+    reason: str = Field(
+        ..., description="The rule applied, in words, with the distance and the ZHR range"
+    )
+
+
 class EncounterOut(BaseModel):
     """One trail crossing Earth's path; extra keys pass through."""
 
@@ -117,6 +146,9 @@ class EncounterOut(BaseModel):
         None, description="Population index r (dimensionless) used for the ZHR"
     )
     zhr: ZhrOut | None = Field(None, description="Expected ZHR at the peak (meteors per hour)")
+    classification: ClassificationOut | None = Field(
+        None, description="Encounter, negligible or near miss, by the predicted activity"
+    )
     window: WindowOut | None = Field(
         None, description="Activity window (UTC); null when the profile gives none"
     )
@@ -133,9 +165,14 @@ class ForecastOut(BaseModel):
     parent: dict[str, Any]
     model: dict[str, Any] = Field(..., description="Model choices, versions, provenance")
     conventions: dict[str, Any]
-    encounters: list[EncounterOut]
+    encounters: list[EncounterOut] = Field(
+        ...,
+        description="Crossings classified `encounter`: predicted peak ZHR at or above the level",
+    )
     near_misses: list[EncounterOut] = Field(
-        ..., description="Trails that pass near but miss: no outburst expected from them"
+        ...,
+        description="Every other reported crossing: `negligible` ones (close to Earth's path, "
+        "predicted ZHR below the level) and `near miss` ones (farther); no outburst expected",
     )
     notes: list[str]
     cautions: list[str]

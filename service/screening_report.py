@@ -150,7 +150,13 @@ def report_text(result: dict, every_orbit: bool = True) -> str:
                 f"{e['zhr']['estimate']:.3g} ({e['zhr']['low']:.3g}-{e['zhr']['high']:.3g})"
             )
         if f.get("near_misses"):
-            lines.append(f"      near misses: {len(f['near_misses'])} (see the JSON)")
+            weak = sum(
+                1
+                for e in f["near_misses"]
+                if (e.get("classification") or {}).get("label") == "negligible"
+            )
+            close = f", {weak} of them close with negligible activity" if weak else ""
+            lines.append(f"      near misses: {len(f['near_misses'])}{close} (see the JSON)")
         if r.get("error"):
             lines.append(f"      error: {r['error']['message']}")
     if not cands:

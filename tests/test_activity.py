@@ -284,6 +284,32 @@ def test_classification_follows_the_activity_not_only_the_distance():
     assert c.label == "negligible" and c.zhr_level == 100.0
 
 
+def test_the_reason_states_the_range_and_never_changes_the_label():
+    # Same rule (level 10, common practice, no source). An absolute-mode range is uncertain by a
+    # factor of several: a negligible crossing whose high end reaches the level says it could be
+    # noticeable; an encounter whose low end falls below it says so too; the label is the
+    # estimate's.
+    weak = classify_crossing(
+        0.4, 0.0002, 0.0003, zhr_range=(0.07, 12.0), zhr_mode="absolute", **ENGINE_DISTANCES
+    )
+    assert weak.label == "negligible"
+    assert "range 0.07-12 (absolute mode, uncertain by a factor of several)" in weak.reason
+    assert weak.reason.endswith(
+        "at the high end of its range it reaches 10 and could be noticeable"
+    )
+    strong = classify_crossing(
+        12.0, 0.0002, 0.0003, zhr_range=(3.0, 40.0), zhr_mode="absolute", **ENGINE_DISTANCES
+    )
+    assert strong.label == "encounter"
+    assert strong.reason.endswith("at the low end of its range it stays below 10")
+    calibrated = classify_crossing(
+        1290.0, 0.0002, 0.0003, zhr_range=(650.0, 2600.0), zhr_mode="calibrated", **ENGINE_DISTANCES
+    )
+    assert "predicted peak ZHR 1290 at or above 10" in calibrated.reason
+    assert "range 650-2600 (calibrated on a past outburst)" in calibrated.reason
+    assert not calibrated.reason.endswith("below 10")
+
+
 # 1999 Leonid storm (observer-organisation reports, 1999; from memory): ZHR about 3,700 (final
 # analysis), peak 1999-11-18 02:02-02:05 UT, profile FWHM about an hour (from memory).
 OBSERVED_ZHR_1999 = 3700.0

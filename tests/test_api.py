@@ -347,7 +347,7 @@ def test_encounters_listing_filters_and_pages(tmp_path):
     store = Store(tmp_path / "trailcast.sqlite3")
     jobs = JobStore(store)
     pine = "P/2026 W3 (Hollow Pine) [invented demo comet]"
-    _stored_forecast(
+    pine_id = _stored_forecast(
         jobs,
         1,
         [
@@ -395,10 +395,33 @@ def test_encounters_listing_filters_and_pages(tmp_path):
 
         import icalendar
 
+        # Stored without a classification (as before crossings were classified by activity):
+        # labelled on reading by today's rule (dynamics.activity.classify_crossing; level 10,
+        # common practice, no source). ZHR 5 at 0.004 au, 4 widths out: a near miss; ZHR 50:
+        # an encounter; no ZHR: still the encounter it was stored as, said to be by distance.
+        body = client.get("/v1/encounters", params={"parent": "hollow"}).json()
+        labels = [i["encounter"]["classification"] for i in body["items"]]
+        assert [c["label"] for c in labels] == ["near miss", "encounter"]
+        assert all("labelled on reading" in c["reason"] for c in labels)
+        assert "predicted peak ZHR 5, below 10" in labels[0]["reason"]
+        (bare,) = client.get("/v1/encounters", params={"parent": "X/2"}).json()["items"][:1]
+        assert bare["encounter"]["classification"]["label"] == "encounter"
+        assert "distance alone" in bare["encounter"]["classification"]["reason"]
+        # The stored result reads the same way, and is not rewritten.
+        result = app.state.jobs.get(pine_id, with_result=True).result
+        assert [e["classification"]["label"] for e in result["encounters"]] == [
+            "near miss",
+            "encounter",
+        ]
+        (raw,) = app.state.jobs.store.query(
+            "SELECT result_json FROM job_results WHERE job_id = ?", (pine_id,)
+        )
+        assert "classification" not in raw["result_json"]
+
         r = client.get("/v1/encounters.ics", params={"parent": "hollow"})
         events = list(icalendar.Calendar.from_ical(r.content).walk("VEVENT"))
-        assert len(events) == 2
-        assert "ZHR" in str(events[0].get("description"))
+        assert len(events) == 1  # the near miss gets no calendar event
+        assert "ZHR about 50" in str(events[0].get("summary"))
 
 
 def _examples_everywhere(spec: dict) -> list[str]:

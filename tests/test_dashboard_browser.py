@@ -35,8 +35,10 @@ ARTIFACTS = Path(__file__).resolve().parents[1] / "test-artifacts" / "dashboard"
 #: Longest wait for anything on the page (ms): a forecast on 2 shared cores, generously.
 WAIT_MS = int(WAIT_S * 1000)
 
-#: What the page submits: the invented demo comet, 2040 only, two trails, 30 meteoroids each.
-FORM = {"first_year": "2040", "last_year": "2040", "particles": "30", "trails": "2026, 2013"}
+#: What the page submits: the invented demo comet, 2039 only, two trails, 30 meteoroids each.
+#: In 2039 its 1975 trail gives an encounter (predicted peak ZHR far above the level) and its
+#: 1988 trail passes close with a predicted ZHR below it (negligible): both labels on the page.
+FORM = {"first_year": "2039", "last_year": "2039", "particles": "30", "trails": "1975, 1988"}
 FORM_MAX_AGE = "100"
 
 #: Invalid submissions (as the page's JSON box takes them) whose message the page must show
@@ -242,13 +244,13 @@ def test_dashboard_end_to_end_in_chromium(server, browser):
         job = httpx.get(f"{server.url}/v1/forecasts/{job_id}", timeout=30.0).json()
         result = job["result"]
         assert result["parent"]["name"] == DEMO_ORBIT["name"]
-        assert job["options"]["trails"] == [2013, 2026] and job["options"]["particles"] == 30
+        assert job["options"]["trails"] == [1975, 1988] and job["options"]["particles"] == 30
 
         # --- the charts: trails and meteoroids counted against the stored result ----------
         for chart in ("crossings", "profile", "radiants"):
-            page.wait_for_selector(f"#chart-{chart}[data-loaded-year='2040'] svg")
-        stored = [c for c in result["particle_crossings"] if c["year"] == 2040]
-        assert stored, "the 2026 and 2013 trails pass Earth in 2040"
+            page.wait_for_selector(f"#chart-{chart}[data-loaded-year='2039'] svg")
+        stored = [c for c in result["particle_crossings"] if c["year"] == 2039]
+        assert stored, "the 1975 and 1988 trails pass Earth in 2039"
         trail_groups = page.locator("#chart-crossings g[id^='trail-']")
         assert trail_groups.count() == len(stored)
         for c in stored:
@@ -261,9 +263,9 @@ def test_dashboard_end_to_end_in_chromium(server, browser):
             legend = f"{trail} trail ({c['revolutions']} rev)"
             assert legend in page.locator("#chart-crossings svg").text_content()
         assert page.locator("#chart-crossings #earth-path").count() == 1
-        encounters_2040 = [e for e in result["encounters"] if e["year"] == 2040]
-        assert encounters_2040, "the 2026 trail meets Earth in 2040 (README example)"
-        for e in encounters_2040:
+        encounters_2039 = [e for e in result["encounters"] if e["year"] == 2039]
+        assert encounters_2039, "the 1975 trail meets Earth in 2039 (README example)"
+        for e in encounters_2039:
             if e["zhr"]["estimate"] > 0:
                 trail = e["trail"]["perihelion_year"]
                 assert page.locator(f"#chart-profile #profile-{trail}").count() == 1
@@ -277,7 +279,7 @@ def test_dashboard_end_to_end_in_chromium(server, browser):
         # the first tick (issue 14: a peak at 23:20 on 11 April must read "Apr 11").
         for chart in ("crossings", "profile"):
             text = page.locator(f"#chart-{chart} svg").text_content()
-            for e in encounters_2040:
+            for e in encounters_2039:
                 label, day = _peak_words(e["peak_utc"])
                 if chart == "crossings" or (e["zhr"]["estimate"] > 0 and e["profile"]):
                     assert label in text and day in text, (chart, label, day)
@@ -295,9 +297,21 @@ def test_dashboard_end_to_end_in_chromium(server, browser):
 
         # The numbers and the cautions of this forecast.
         rows = page.locator("#fc-table tbody tr")
-        n_2040 = len(encounters_2040) + sum(1 for e in result["near_misses"] if e["year"] == 2040)
-        assert rows.count() == n_2040
-        first = encounters_2040[0]
+        n_2039 = len(encounters_2039) + sum(1 for e in result["near_misses"] if e["year"] == 2039)
+        assert rows.count() == n_2039
+        # Each row names its crossing as the result classifies it (by predicted activity), with
+        # the reason on hover; the ZHR beside the word is the result's.
+        shown = [e for k in ("encounters", "near_misses") for e in result[k] if e["year"] == 2039]
+        for k, e in enumerate(shown):
+            kind = rows.nth(k).locator("td").first
+            assert kind.inner_text() == e["classification"]["label"]
+            assert kind.get_attribute("title") == e["classification"]["reason"]
+        # Regression (what the engine gives today for these 30 meteoroids): the 1975 trail an
+        # encounter, the 1988 trail a negligible close pass, not called an encounter.
+        labels = {e["trail"]["perihelion_year"]: e["classification"]["label"] for e in shown}
+        assert labels == {1975: "encounter", 1988: "negligible"}, labels
+        assert "negligible = passes close" in page.inner_text("#fc-table caption")
+        first = encounters_2039[0]
         assert first["peak_utc"].replace("T", " ").replace("Z", "") in page.inner_text("#fc-table")
         assert page.locator("#fc-cautions").is_visible()
         assert "Spacecraft operators" in page.inner_text("#fc-cautions")
@@ -312,9 +326,9 @@ def test_dashboard_end_to_end_in_chromium(server, browser):
             download = info.value
             saved = ARTIFACTS / download.suggested_filename
             download.save_as(saved)
-            assert saved.name == f"trailcast-{job_id}-crossings-2040.{fmt}"
+            assert saved.name == f"trailcast-{job_id}-crossings-2039.{fmt}"
             assert saved.read_bytes().startswith(magic)
-        assert b"trail-2026" in (ARTIFACTS / f"trailcast-{job_id}-crossings-2040.svg").read_bytes()
+        assert b"trail-1975" in (ARTIFACTS / f"trailcast-{job_id}-crossings-2039.svg").read_bytes()
 
         # --- upcoming: the new encounter is listed, sortable, with its calendar -----------
         page.click("#nav-upcoming")
@@ -350,7 +364,7 @@ def test_dashboard_end_to_end_in_chromium(server, browser):
 
         # Following a row's link opens the same forecast view.
         page.click(f"#upcoming-table a[href='#/forecasts/{job_id}'] >> nth=0")
-        page.wait_for_selector("#chart-crossings[data-loaded-year='2040'] svg")
+        page.wait_for_selector("#chart-crossings[data-loaded-year='2039'] svg")
 
         # --- phone size: the same views, usable without sideways scrolling ---------------
         page.set_viewport_size({"width": 390, "height": 844})
@@ -364,7 +378,7 @@ def test_dashboard_end_to_end_in_chromium(server, browser):
         smallest = _smallest_chart_text(page)
         assert smallest[0] >= MIN_CHART_TEXT_PX, smallest
         text = page.locator("#chart-crossings svg").text_content()
-        assert all(w in text for w in _peak_words(encounters_2040[0]["peak_utc"]))
+        assert all(w in text for w in _peak_words(encounters_2039[0]["peak_utc"]))
         # The numbers become cards that fit the screen; each value keeps its heading.
         assert _tables_that_overflow(page) == []
         first_cell = page.locator("#fc-table tbody tr").first.locator("td").first
@@ -411,16 +425,16 @@ def test_upcoming_lists_the_latest_forecast_per_parent_and_options(server, brows
     # with another number of clones is another option set, listed beside them with the option
     # named. The clones only matter for an orbit with a covariance, which the demo comet has
     # not, so all three share the physics (and the encounter) of the walk-through's forecast.
-    base = {"orbit": DEMO_ORBIT, "particles": 30, "options": {"trails": [2026, 2013]}}
+    base = {"orbit": DEMO_ORBIT, "particles": 30, "options": {"trails": [1975, 1988]}}
     ids = []
-    for years, clones in (([2039, 2040], 4), ([2040, 2040], 4), ([2040, 2040], 3)):
+    for years, clones in (([2039, 2040], 4), ([2039, 2039], 4), ([2039, 2039], 3)):
         body = {**base, "years": years, "options": {**base["options"], "clones": clones}}
         r = httpx.post(f"{server.url}/v1/forecasts", json=body, timeout=30)
         assert r.status_code in (200, 202), r.text
         ids.append(r.json()["id"])
         job = _wait_done(server, ids[-1])  # one after the other: each finishes after the last
-        # The 2026 trail meets Earth in 2040 (README example): each has rows to list.
-        assert any(e["year"] == 2040 for e in job["result"]["encounters"]), job["result"]
+        # The 1975 trail meets Earth in 2039 (README example): each has rows to list.
+        assert any(e["year"] == 2039 for e in job["result"]["encounters"]), job["result"]
     older, latest, other_clones = ids
     context = browser.new_context(viewport={"width": 1280, "height": 800})
     requests = Requests(context, server.url)

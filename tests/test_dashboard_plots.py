@@ -190,6 +190,11 @@ def test_plot_routes_serve_svg_png_and_problems(client_with_jobs):
     r = client.get(link["links"]["svg"])
     assert r.status_code == 200 and r.headers["content-type"].startswith("image/svg+xml")
     assert len(_group(_svg(r.content), "trail-2026").findall(f".//{SVG_NS}use")) == N_2026
+    # The stored hand-made result has no classification: it is labelled on reading by today's
+    # rule (dynamics.activity.classify_crossing, level ZHR 10, common practice, no source). The
+    # 2013 trail passes 0.0002 au out with a spread of 0.0004 au (close) at ZHR 0.5: negligible.
+    text = _texts(_svg(r.content))
+    assert "2026 trail (1 rev), encounter" in text and "2013 trail (2 rev), negligible" in text
     r = client.get(link["links"]["png"] + "&download=true")
     assert r.status_code == 200 and r.headers["content-type"] == "image/png"
     assert r.headers["content-disposition"].startswith("attachment;")

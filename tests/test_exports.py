@@ -26,8 +26,8 @@ from service.screening import table_csv
 
 def _rows(result: dict) -> list[dict]:
     return [
-        {"forecast_id": "f" * 32, "parent": PARENT, "kind": kind, **e}
-        for kind, key in (("encounter", "encounters"), ("near_miss", "near_misses"))
+        {"forecast_id": "f" * 32, "parent": PARENT, "kind": exports.kind_of(e, key), **e}
+        for key in ("encounters", "near_misses")
         for e in result[key]
     ]
 
@@ -77,6 +77,19 @@ def test_calendar_events_read_in_words():
     assert "(1 revolution ago)" in text and "1 revolutions" not in text
 
 
+def test_calendars_hold_encounters_only():
+    # A stored crossing whose classification is not "encounter" (an older result labelled on
+    # reading) gets no event: a calendar entry promises an outburst.
+    result = _result()
+    weak = dict(result["encounters"][1], classification={"label": "negligible", "reason": "r"})
+    items = [
+        ("f" * 32, 0, PARENT, result["encounters"][0], None),
+        ("f" * 32, 1, PARENT, weak, None),
+    ]
+    cal = icalendar.Calendar.from_ical(exports.encounters_ics(items, "t", []))
+    assert [str(ev.get("summary")).split(", ")[1] for ev in cal.walk("VEVENT")] == ["1975 trail"]
+
+
 def test_calendar_window_without_an_activity_window_says_why():
     e = _result()["near_misses"][0]  # ZHR 0.5: below the window's floor, window null
     start, end, note = exports.event_window(e)
@@ -99,7 +112,8 @@ def test_encounters_csv_has_one_value_per_column():
     for row in rows:
         for key, value in row.items():
             assert not value.startswith(("[", "{")), (key, value)
-    near = next(r for r in rows if r["kind"] == "near_miss")
+    near = next(r for r in rows if r["trail.perihelion_year"] == "2013")
+    assert near["kind"] == "near_miss"  # no classification in the hand-made result: its list
     assert near["window.start_utc"] == "" and float(near["zhr.estimate"]) == 0.5
     enc = next(r for r in rows if r["trail.perihelion_year"] == "2026")
     assert enc["window.start_utc"] == "2040-04-11T07:30:00Z"
@@ -130,6 +144,12 @@ def test_profiles_csv_route(client_with_jobs):  # noqa: F811 - the imported fixt
     )
     assert "profile" not in rows[0]
     assert sorted(int(r["particles"]) for r in rows) == sorted([N_2026, N_2013, 11])
+    # Read through the store, each crossing is labelled by today's rule (level ZHR 10, common
+    # practice, no source): the 2013 trail, 0.5 widths out at ZHR 0.5, is negligible, and says so.
+    kinds = {r["trail.perihelion_year"]: r["kind"] for r in rows}
+    assert kinds == {"1975": "encounter", "2026": "encounter", "2013": "negligible"}
+    weak = next(r for r in rows if r["kind"] == "negligible")
+    assert "predicted peak ZHR 0.5 is below 10" in weak["classification.reason"]
 
 
 def test_screening_csv_numbers_orbits_from_one():

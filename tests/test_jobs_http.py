@@ -27,8 +27,10 @@ from processes import alive, children
 EXAMPLES = Path(__file__).resolve().parents[1] / "examples"
 DEMO_ORBIT = json.loads((EXAMPLES / "demo-comet.json").read_text(encoding="utf-8"))
 
-#: A tiny forecast of the invented demo comet: one trail, one year, 20 meteoroids (~1-3 s).
-TINY = {"orbit": DEMO_ORBIT, "years": [2040, 2040], "particles": 20, "options": {"trails": [2026]}}
+#: A tiny forecast of the invented demo comet: one trail, one year, 20 meteoroids (~1-3 s). Its
+#: 1975 trail meets Earth on 2039 April 11 with a predicted peak ZHR far above the encounter
+#: level (about a thousand, the README's example): an encounter, by activity.
+TINY = {"orbit": DEMO_ORBIT, "years": [2039, 2039], "particles": 20, "options": {"trails": [1975]}}
 #: Longest wait for a server to answer or a job to finish (s): generous for 2 shared cores.
 WAIT_S = 180.0
 POLL_S = 0.2
@@ -130,7 +132,7 @@ def test_submit_follow_and_export_over_http(server):
     assert seen_states <= {"queued", "running", "done"}
     result = job["result"]
     assert result["parent"]["name"] == DEMO_ORBIT["name"]
-    assert result["model"]["options"]["trails"] == [2026]
+    assert result["model"]["options"]["trails"] == [1975]
     assert job["progress"] == {
         "fraction": 1.0,
         "stage": "done",
@@ -149,6 +151,7 @@ def test_submit_follow_and_export_over_http(server):
     encounter_rows = [row for row in rows if row["kind"] == "encounter"]
     for row, e in zip(encounter_rows, result["encounters"], strict=True):
         assert row["peak_utc"] == e["peak_utc"]
+        assert row["classification.reason"] == e["classification"]["reason"]
         assert float(row["radiant.ra_deg"]) == e["radiant"]["ra_deg"]
         assert row["forecast_id"] == accepted["id"]
 
@@ -157,7 +160,7 @@ def test_submit_follow_and_export_over_http(server):
     assert r.status_code == 200 and r.headers["content-type"].startswith("text/calendar")
     cal = icalendar.Calendar.from_ical(r.content)
     events = list(cal.walk("VEVENT"))
-    assert len(events) == len(result["encounters"]) >= 1  # the 2026 trail meets Earth in 2040
+    assert len(events) == len(result["encounters"]) >= 1  # the 1975 trail meets Earth in 2039
     for ev, e in zip(events, result["encounters"], strict=True):
         start, end = ev.decoded("dtstart"), ev.decoded("dtend")
         peak = datetime.fromisoformat(e["peak_utc"].replace("Z", "+00:00"))
@@ -238,13 +241,15 @@ def test_cli_submit_and_status_talk_to_the_server(server, tmp_path):
     assert len(proc.stderr.strip().splitlines()) == 1
 
 
-#: A forecast long enough (~10 s on one core) to be killed in the middle: three trails of the
-#: invented demo comet over four years, 150 meteoroids each, in many integration chunks.
+#: A forecast long enough (~10 s on one core) to be killed in the middle: two trails of the
+#: invented demo comet over three years, 150 meteoroids each, in many integration chunks. Its
+#: 1975 trail gives the 2039 encounter (predicted peak ZHR far above the level), so the
+#: encounters index has a row to lose or double.
 LONGER = {
     "orbit": DEMO_ORBIT,
-    "years": [2040, 2043],
+    "years": [2039, 2041],
     "particles": 150,
-    "options": {"trails": [2000, 2013, 2026]},
+    "options": {"trails": [1975, 2013]},
 }
 
 

@@ -23,6 +23,9 @@ class JobKind:
     store_result: Callable | None = None
     #: Title of the problem when a run fails unexpectedly.
     failure_title: str = "Job failed"
+    #: ``read_result(result) -> dict``: a stored result as readers expect it today (fields an
+    #: older version did not store, derived from what it did); never written back (or None).
+    read_result: Callable | None = None
 
 
 def kinds() -> dict[str, JobKind]:
@@ -35,3 +38,8 @@ def kinds() -> dict[str, JobKind]:
 def result_hooks() -> dict:
     """``store_result`` of every kind that has one, by name."""
     return {name: k.store_result for name, k in kinds().items() if k.store_result is not None}
+
+
+def read_hooks() -> dict:
+    """``read_result`` of every kind that has one, by name."""
+    return {name: k.read_result for name, k in kinds().items() if k.read_result is not None}

@@ -100,6 +100,76 @@ def particle_crossings(computed, result_json: dict) -> list[dict]:
     return out
 
 
+def classification_of(encounter: dict, listed_as: str) -> dict:
+    """An encounter's ``classification`` (label, zhr_level, reason), also for stored results.
+
+    Results stored before crossings were classified by their predicted activity carry none:
+    the label is then derived from the stored numbers by today's rule
+    (:func:`dynamics.activity.classify_crossing`, the engine's distance constants), and the
+    reason says so. Without a stored ZHR the crossing keeps the list it was stored in
+    (``listed_as``: ``encounters`` or ``near_misses``), said to rest on distance alone.
+    """
+    c = encounter.get("classification")
+    if isinstance(c, dict) and c.get("label"):
+        return c
+    from dynamics.activity import ENCOUNTER_MIN_ZHR, classify_crossing
+    from dynamics.forecast import (
+        EARTH_RADIUS_AU,
+        ENCOUNTER_MAX_MISS_AU,
+        ENCOUNTER_SIGMAS,
+        NEAR_MISS_MAX_AU,
+    )
+
+    zhr = encounter.get("zhr") if isinstance(encounter.get("zhr"), dict) else {}
+    number = zhr_number(encounter)
+    miss = encounter.get("miss_distance_au")
+    spread = encounter.get("miss_distance_spread_au")
+    if number is None or not isinstance(miss, int | float) or not isinstance(spread, int | float):
+        label = "encounter" if listed_as == "encounters" else "near miss"
+        return {
+            "label": label,
+            "zhr_level": None,
+            "reason": f"stored without a predicted ZHR: called {label} by its distance alone",
+        }
+    lo, hi = zhr.get("low"), zhr.get("high")
+    found = classify_crossing(
+        number,
+        miss,
+        spread,
+        encounter_max_miss_au=ENCOUNTER_MAX_MISS_AU,
+        encounter_sigmas=ENCOUNTER_SIGMAS,
+        earth_radius_au=EARTH_RADIUS_AU,
+        near_miss_max_au=max(NEAR_MISS_MAX_AU, abs(float(miss))),  # it was reported: keep it
+        min_zhr=ENCOUNTER_MIN_ZHR,
+        zhr_range=(lo, hi) if all(isinstance(x, int | float) for x in (lo, hi)) else None,
+        zhr_mode=zhr.get("mode"),
+    )
+    out = found.to_json()
+    out["reason"] += (
+        "; labelled on reading: stored before crossings were classified by predicted activity"
+    )
+    return out
+
+
+def stored_encounter(row) -> dict:
+    """The encounter JSON of an ``encounters`` index row, with its ``classification``."""
+    e = json.loads(row["encounter_json"])
+    return dict(e, classification=classification_of(e, "encounters"))
+
+
+def read_result(result: dict) -> dict:
+    """A stored forecast result with a ``classification`` on every encounter and near miss
+    (see :func:`classification_of`); results that have them come back unchanged."""
+    keys = ("encounters", "near_misses")
+    if all(isinstance(e.get("classification"), dict) for k in keys for e in result.get(k) or []):
+        return result
+    out = dict(result)
+    for k in keys:
+        if k in result:
+            out[k] = [dict(e, classification=classification_of(e, k)) for e in result[k]]
+    return out
+
+
 def run(job: Job, ctx) -> dict:
     """The forecast (or every orbit solution's) for ``job``, as stored JSON."""
     from dynamics.forecast import forecast
@@ -214,4 +284,6 @@ def list_encounters(
     return store.query(sql, (*params, int(limit)))
 
 
-KIND = JobKind("forecast", run, store_result, failure_title="Forecast failed")
+KIND = JobKind(
+    "forecast", run, store_result, failure_title="Forecast failed", read_result=read_result
+)

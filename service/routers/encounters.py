@@ -2,7 +2,10 @@
 ``/v1/encounters.ics`` (a calendar to subscribe to), for dashboards and observers.
 
 Only encounters of finished (``done``) forecasts are listed, ordered by peak time; near misses
-are not (no outburst is expected from them: fetch a forecast's CSV for those). ``min_zhr`` filters
+and negligible close passes are not (no outburst is expected from them: fetch a forecast's CSV
+for those). Each carries its ``classification``; encounters stored before crossings were
+classified by predicted activity get it on reading, and those it calls negligible or near miss
+stay listed with that label but get no calendar event. ``min_zhr`` filters
 only encounters that carry a ``zhr`` (added by the activity stage); encounters without one are
 always kept, because nothing says they are weak.
 """
@@ -20,7 +23,7 @@ from pydantic import BaseModel, ConfigDict, Field
 from dynamics.forecast import CAUTIONS
 
 from ..exports import encounters_ics
-from ..job_kinds.forecast import ZHR_KEYS
+from ..job_kinds.forecast import ZHR_KEYS, stored_encounter
 from ..job_kinds.forecast import list_encounters as stored_encounters
 from ..jobs import format_wall_utc
 from ..problems import TYPE_BASE, ProblemError, problem_responses
@@ -248,7 +251,7 @@ def list_encounters(
             EncounterItemOut(
                 forecast_id=r["job_id"],
                 parent_name=r["parent_name"],
-                encounter=json.loads(r["encounter_json"]),
+                encounter=stored_encounter(r),
                 links=EncounterLinksOut(forecast=f"/v1/forecasts/{r['job_id']}"),
             )
             for r in rows
@@ -275,7 +278,8 @@ def list_encounters(
     summary="Predicted encounters across stored forecasts as an iCalendar to subscribe to",
     description=(
         "The selection of `GET /v1/encounters` (same filters; the first `limit` by peak time) as "
-        "RFC 5545 events: one per encounter, spanning its activity window when the forecast "
+        "RFC 5545 events: one per encounter (stored crossings whose `classification` is not "
+        "`encounter` get none), spanning its activity window when the forecast "
         "gives one, until then peak +/- FWHM/2, as each description says, with the radiant, "
         "speed and the cautions. " + ZHR_NOTE + SITE_ICS_NOTE
     ),
@@ -312,7 +316,7 @@ def list_encounters_ics(
             r["job_id"],
             r["idx"],
             r["parent_name"],
-            json.loads(r["encounter_json"]),
+            stored_encounter(r),
             r["finished_utc"],
         )
         for r in rows

@@ -11,7 +11,7 @@ from pydantic import ConfigDict, Field
 
 from dynamics.forecast import CAUTIONS
 
-from ..exports import encounters_csv, encounters_ics
+from ..exports import encounters_csv, encounters_ics, kind_of
 from ..jobs import Job
 from ..models import ForecastIn
 from ..schemas import ForecastOut
@@ -121,7 +121,9 @@ _CSV_EXAMPLE = (
 def _encounters_csv(job: Job):
     """A done forecast's encounters and near misses as CSV
 
-    One row per trail crossing (`kind` = encounter or near_miss), one value per column:
+    One row per reported trail crossing (`kind` = its classification by predicted activity:
+    encounter, negligible or near_miss; `classification.reason` says why, with the numbers),
+    one value per column:
     nested keys flattened with dots (`radiant.ra_deg`, `zhr.estimate`, `window.start_utc`);
     every scalar key the forecast has becomes a column. The activity profiles have their own
     CSV (`/v1/forecasts/{id}/profiles.csv`). Times UTC; solar longitude geometric J2000. Text
@@ -131,8 +133,8 @@ def _encounters_csv(job: Job):
     """
     parent = job.result["parent"].get("name", job.label)
     rows = [
-        {"forecast_id": job.id, "parent": parent, "kind": kind, **e}
-        for kind, key in (("encounter", "encounters"), ("near_miss", "near_misses"))
+        {"forecast_id": job.id, "parent": parent, "kind": kind_of(e, key), **e}
+        for key in ("encounters", "near_misses")
         for e in job.result.get(key, [])
     ]
     headers = {"Trailcast-Cautions": " ".join(CAUTIONS)}
@@ -155,8 +157,8 @@ _ICS_EXAMPLE = (
     response_class=Response,
     summary="A done forecast's encounters as an iCalendar (RFC 5545)",
     description=(
-        "One event per predicted encounter (near misses are left out: no outburst is expected "
-        "from them). The event spans the forecast's activity window when it gives one, until "
+        "One event per predicted encounter (near misses and negligible close passes are left "
+        "out: no outburst is expected from them). The event spans the forecast's activity window when it gives one, until "
         "then the peak +/- FWHM/2 (at least 5 minutes either side), which the description "
         "says; the description gives the peak, solar longitude, radiant, speed, miss distance "
         "and the cautions."

@@ -12,7 +12,7 @@ from pydantic import BaseModel, ConfigDict, Field
 from dynamics.forecast import CAUTIONS
 
 from .. import plots
-from ..exports import PROFILE_COLUMNS, profiles_csv
+from ..exports import PROFILE_COLUMNS, kind_of, profiles_csv
 from ..jobs import Job
 from ..problems import TYPE_BASE, ProblemError, problem_responses
 from ._jobs import Jobs
@@ -177,8 +177,8 @@ def get_profiles_csv(job_id: JobId, jobs: Jobs) -> Response:
     job = _done_job(jobs, job_id)
     parent = job.result["parent"].get("name", job.parent_name)
     rows = [
-        {"forecast_id": job.id, "parent": parent, "kind": kind, **e}
-        for kind, key in (("encounter", "encounters"), ("near_miss", "near_misses"))
+        {"forecast_id": job.id, "parent": parent, "kind": kind_of(e, key), **e}
+        for key in ("encounters", "near_misses")
         for e in job.result.get(key, [])
     ]
     return Response(

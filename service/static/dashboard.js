@@ -360,9 +360,11 @@ function renderUpcoming() {
   const shown = upcoming.rows.filter((r) => showOlder || !r.older);
   const hidden = upcoming.rows.length - shown.length;
   const { from, to } = upcomingRange();
-  const n = shown.length;
+  const weak = shown.filter((r) => classification(r.encounter, "encounters").label !== "encounter").length;
+  const n = shown.length - weak;
   $("#upcoming-status").textContent = upcoming.rows.length
     ? `${n} predicted encounter${n === 1 ? "" : "s"} from ${from} to ${to}` +
+      (weak ? ` and ${weak} stored crossing${weak === 1 ? "" : "s"} that today's rule calls negligible or near miss (marked)` : "") +
       (hidden ? `; ${hidden} more from older forecasts (tick “Include older forecasts” to list them).` : ".")
     : `No predicted encounters stored from ${from} to ${to}. Submit a forecast to add some.`;
   const rows = shown.sort((a, b) => {
@@ -379,6 +381,7 @@ function renderUpcoming() {
   tbody.replaceChildren(
     ...rows.map((r) => {
       const e = r.encounter;
+      const c = classification(e, "encounters");
       return el(
         "tr",
         {},
@@ -387,7 +390,12 @@ function renderUpcoming() {
         el("td", {}, r.parent_name),
         el("td", {}, `${e.trail.perihelion_year} (${e.trail.revolutions} rev)`),
         el("td", { class: "num" }, `${e.miss_distance_au >= 0 ? "+" : ""}${fmt(e.miss_distance_au, 5)}`),
-        el("td", { class: "num" }, zhrText(e.zhr)),
+        el(
+          "td",
+          { class: "num" },
+          zhrText(e.zhr),
+          c.label !== "encounter" ? el("span", { class: "badge label", title: c.reason }, c.label) : "",
+        ),
         el("td", { class: "num" }, `${fmt(e.radiant.ra_deg, 1)}, ${e.radiant.dec_deg >= 0 ? "+" : ""}${fmt(e.radiant.dec_deg, 1)}`),
         el(
           "td",
@@ -570,10 +578,11 @@ function addPointTitles(svg, chart, job, year) {
     });
   }
   if (chart === "radiants" || chart === "profile") {
-    for (const [kind, key] of [["encounter", "encounters"], ["near miss", "near_misses"]]) {
+    for (const key of ["encounters", "near_misses"]) {
       for (const e of res[key]) {
         if (e.year !== year) continue;
         const ty = e.trail.perihelion_year;
+        const kind = classification(e, key).label;
         const text = `${ty} trail (${kind}): peak ${utcText(e.peak_utc)} UTC, ZHR ${zhrText(e.zhr)}, ` +
           `radiant α ${fmt(e.radiant.ra_deg, 1)}°, δ ${signed(e.radiant.dec_deg, 1)}°`;
         const g = svg.querySelector(chart === "radiants" ? `#radiant-${ty}` : `#profile-${ty}`);
@@ -595,16 +604,29 @@ function onResize() {
   }, 200);
 }
 
+/**
+ * What a crossing is called by its predicted activity (encounter, negligible, near miss) and
+ * why, from its `classification`; a crossing without one keeps the list it is in.
+ */
+function classification(e, key) {
+  const c = e.classification;
+  if (c && c.label) return c;
+  return { label: key === "encounters" ? "encounter" : "near miss", zhr_level: null, reason: "" };
+}
+
 function renderNumbers(job, year) {
   const rows = [];
-  for (const [kind, key] of [["encounter", "encounters"], ["near miss", "near_misses"]]) {
+  let level = null;
+  for (const key of ["encounters", "near_misses"]) {
     for (const e of job.result[key]) {
       if (e.year !== year) continue;
+      const c = classification(e, key);
+      if (c.zhr_level != null) level = c.zhr_level;
       rows.push(
         el(
           "tr",
-          { class: key === "encounters" ? "encounter" : "near_miss" },
-          el("td", {}, kind),
+          { class: c.label.replace(" ", "_") },
+          el("td", { title: c.reason }, c.label),
           el("td", {}, `${e.trail.perihelion_year} (${e.trail.revolutions} rev)`),
           el("td", {}, utcText(e.peak_utc)),
           el("td", { class: "num" }, fmt(e.solar_longitude_deg, 4)),
@@ -622,6 +644,8 @@ function renderNumbers(job, year) {
   if (!rows.length) {
     rows.push(el("tr", {}, el("td", { colspan: 11 }, `No trail passes near Earth's path in ${year}: no outburst expected from the simulated trails.`)));
   }
+  $("#fc-rule").textContent = level == null ? "" :
+    ` Kind by predicted activity: encounter = peak ZHR ${fmt(level, 0)} or more; negligible = passes close to Earth's path but below that; near miss = farther and below. Hover a kind for the reason.`;
   $("#fc-table tbody").replaceChildren(...rows);
   labelCells($("#fc-table"));
 }
