@@ -321,9 +321,12 @@ class ForecastResult:
                 "solar_longitude": "geometric, equinox J2000",
                 "radiant": "RA/Dec, equinox J2000, geocentric, without zenith attraction",
                 "miss_distance": MISS_DISTANCE_CONVENTION,
-                "peak": "Earth's closest-point times of the meteoroids that give visual meteors "
-                "(mass of a +6.5 mag meteor or more at their speed): median per decade of mass, "
-                "combined weighted by the real meteoroids of each decade",
+                "peak": "time of the highest modelled ZHR, from the meteoroids that give visual "
+                "meteors (mass of a +6.5 mag meteor or more at their speed), each decade of mass "
+                "taken at zero arrival lag and weighted by its density at Earth's path; "
+                "trail_centre_utc: Earth's closest-point times of those meteoroids, median per "
+                "decade of mass, combined weighted by the real meteoroids of each decade (the "
+                "peak when the modelled ZHR is 0)",
                 "time_scale_notes": list(TIME_SCALE_NOTES),
                 "classification": CLASSIFICATION_RULE,
             },
@@ -680,6 +683,10 @@ def _targeted_pools(targets, trails, options) -> None:
         xs = np.sort(tg.x_seen[np.isfinite(tg.x_seen)])
         ys = amap(xs, np.full(len(xs), -1))
         near = xs[np.abs(ys) <= options.window_days]
+        # and every pilot meteoroid that itself met Earth's passage: the running median
+        # smooths away structure narrower than the pilot's spacing (a resonance's plateau)
+        hit = np.isfinite(tg.y_seen) & (np.abs(tg.y_seen) <= options.window_days)
+        near = np.union1d(near, tg.x_seen[hit & np.isfinite(tg.x_seen)])
         if len(near) == 0:
             continue  # no branch through Earth's passage: the uniform fallback handles it
         x_lo, x_hi = near.min() - TARGETED_MARGIN_DAYS, near.max() + TARGETED_MARGIN_DAYS
@@ -786,6 +793,8 @@ def _main_rounds(targets, trails, options, executor, say, integrated):
                 tg.selection_mode = (
                     "uniform fallback (shooting found no arrival at Earth's passage)"
                 )
+            if len(pick) == 0 and round_ >= 1:
+                pick, eligible, frac = _around_hits(tg, options, taken[ti], budget)
             if len(pick) == 0:
                 continue
             tg.keep_prob[eligible] *= 1.0 - frac
@@ -829,6 +838,42 @@ def _main_rounds(targets, trails, options, executor, say, integrated):
         if round_ >= 1:
             active = [ti for ti in active if _needs_refinement(per_target.get(ti, []), options)]
     return per_target, picked, integrated
+
+
+def _around_hits(tg: Target, options, taken: np.ndarray, budget: int):
+    """Candidates next to the meteoroids that did meet Earth's passage, when the arrival map
+    offers no new ones: (picked, eligible, fraction) as :func:`select_for_window` gives them.
+
+    A running median through sparse pilot pairs cannot follow structure finer than their
+    spacing: a mean-motion resonance holds a narrow range of periods at one arrival time (a
+    plateau of the map a few pilot points wide), and old trails fold. Each meteoroid that met
+    Earth's passage marks such a place; the candidates of its beta class whose predicted
+    offsets lie closer to it than its nearest integrated neighbour (the unresolved gap) are
+    eligible, and a random subset of them is integrated with its inclusion probability.
+    """
+    lag = tg.y_seen
+    hits = np.flatnonzero(np.isfinite(lag) & (np.abs(lag) <= options.window_days))
+    if len(hits) == 0:
+        return np.zeros(0, dtype=int), np.zeros(0, dtype=int), 0.0
+    xs = tg.x_seen
+    near = np.zeros(len(tg.x_pool), dtype=bool)
+    for h in hits:
+        others = np.abs(xs - xs[h])
+        others[h] = np.inf
+        gap = float(np.min(others[np.isfinite(others)], initial=np.inf))
+        if not np.isfinite(gap) or gap <= 0:
+            continue
+        near |= (np.abs(tg.x_pool - xs[h]) < gap) & (tg.cls == tg.c_seen[h])
+    eligible = np.flatnonzero(near & ~taken & np.isfinite(tg.x_pool))
+    if len(eligible) == 0:
+        return eligible, eligible, 0.0
+    pick = eligible[:budget]
+    n = len(hits)
+    tg.selection_mode = (
+        f"shooting, then around the {n} meteoroid{'s' if n != 1 else ''} that met Earth's "
+        "passage (the arrival map is unresolved there)"
+    )
+    return pick, eligible, len(pick) / len(eligible)
 
 
 def _enough_said(tg: Target, parts, options) -> str | None:

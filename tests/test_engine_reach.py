@@ -283,3 +283,32 @@ def test_targets_stop_only_when_they_cannot_be_an_encounter():
     tg.selection_mode = "uniform fallback (shooting found no arrival at Earth's passage)"
     none = _crossings_at(np.full(75, 0.03), np.full(75, 90.0))
     assert "none within" in _enough_said(tg, [none], opts)
+
+
+@pytest.mark.invariant
+def test_a_plateau_finer_than_the_pilot_is_sampled_around_its_hits():
+    # A resonance holds a narrow range of periods at one arrival time: in predicted offset the
+    # map has a plateau narrower than the pilot's spacing (here 100 d), which a running median
+    # through the pilot pairs smooths away. One pilot meteoroid at x = 0 arrived 5 d after
+    # Earth's passage; its neighbours 100 d early and late. Candidates of its beta class
+    # closer to it than its nearest neighbour (|x| < 100 d) are the eligible ones, picked at
+    # random in pool order with their inclusion probability; other classes are not.
+    from dynamics.forecast import _around_hits
+
+    opts = ForecastOptions(1999, 1999, workers=1)
+    tg = Target(0, 1999, "descending", 2451500.5, 20, 2451500.0, 12000.0, 12000.0)
+    tg.x_seen = np.array([-100.0, 0.0, 100.0])
+    tg.y_seen = np.array([-300.0, 5.0, 310.0])
+    tg.c_seen = np.zeros(3, dtype=int)
+    tg.x_pool = np.linspace(-150.0, 150.0, 301)
+    tg.cls = np.r_[np.zeros(151, dtype=int), np.ones(150, dtype=int)]  # x > 0: another class
+    taken = np.zeros(301, dtype=bool)
+    pick, eligible, frac = _around_hits(tg, opts, taken, budget=40)
+    assert np.all(np.abs(tg.x_pool[eligible]) < 100.0) and np.all(tg.cls[eligible] == 0)
+    assert len(eligible) == 100  # x = -99 .. 0, class 0
+    assert len(pick) == 40 and frac == pytest.approx(0.4)
+    assert "around the 1 meteoroid that" in tg.selection_mode
+    # no meteoroid met Earth's passage: nothing to sample around
+    tg.y_seen = np.array([-300.0, 50.0, 310.0])
+    pick, eligible, frac = _around_hits(tg, opts, taken, budget=40)
+    assert len(pick) == 0 and frac == 0.0
