@@ -1009,19 +1009,39 @@ def _classified(enc: TrailEncounter) -> TrailEncounter:
     Classified on the ZHR numbers as reported (:func:`dynamics.summaries.zhr_value`), so that
     the label and the number shown beside it never disagree at the level's edge.
     """
-    c = classify_crossing(
+    c = classify(
         zhr_value(enc.zhr_estimate),
         enc.miss_distance_au,
         enc.miss_distance_spread_au,
-        encounter_max_miss_au=ENCOUNTER_MAX_MISS_AU,
-        encounter_sigmas=ENCOUNTER_SIGMAS,
-        earth_radius_au=EARTH_RADIUS_AU,
-        near_miss_max_au=NEAR_MISS_MAX_AU,
-        min_zhr=ENCOUNTER_MIN_ZHR,  # no annual shower's ZHR is known here (module docstring)
         zhr_range=(zhr_value(enc.zhr_low), zhr_value(enc.zhr_high)),
         zhr_mode=enc.zhr_mode,
     )
     return replace(enc, classification=c)
+
+
+def classify(
+    zhr,
+    miss_distance_au,
+    miss_distance_spread_au,
+    *,
+    zhr_range=None,
+    zhr_mode=None,
+    near_miss_max_au=NEAR_MISS_MAX_AU,
+):
+    """:func:`dynamics.activity.classify_crossing` with the engine's distance rule and level
+    (the forecast and the hindcast report name crossings alike)."""
+    return classify_crossing(
+        zhr,
+        miss_distance_au,
+        miss_distance_spread_au,
+        encounter_max_miss_au=ENCOUNTER_MAX_MISS_AU,
+        encounter_sigmas=ENCOUNTER_SIGMAS,
+        earth_radius_au=EARTH_RADIUS_AU,
+        near_miss_max_au=near_miss_max_au,
+        min_zhr=ENCOUNTER_MIN_ZHR,  # no annual shower's ZHR is known here (module docstring)
+        zhr_range=zhr_range,
+        zhr_mode=zhr_mode,
+    )
 
 
 def _nothing_found_note(outcomes) -> str:

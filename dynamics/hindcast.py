@@ -19,7 +19,7 @@ from collections.abc import Callable, Sequence
 
 import numpy as np
 
-from .activity import ENCOUNTER_MIN_ZHR, classify_crossing
+from .activity import ENCOUNTER_MIN_ZHR
 from .api import (
     ForecastOptions,
     TrailcastError,
@@ -29,7 +29,7 @@ from .api import (
     parse_orbit,
 )
 from .executors import process_pool
-from .forecast import EARTH_RADIUS_AU, ENCOUNTER_MAX_MISS_AU, ENCOUNTER_SIGMAS, NEAR_MISS_MAX_AU
+from .forecast import classify
 from .summaries import year_of
 
 #: Peak offsets within this many minutes count as a timing success in the summary (the issue's
@@ -160,7 +160,7 @@ def run_row(
 
     Returns a dict: ``predicted`` (None when the trail gives no crossing near Earth) with peak
     time (UTC and TDB JD), miss distance (au), peak ZHR (absolute mode), the box-count
-    cross-check, FWHM (hours), the crossing's label by :func:`classify_crossing`, and ``notes``.
+    cross-check, FWHM (hours), the crossing's label by :func:`dynamics.forecast.classify`, and ``notes``.
     """
     year = int(row["year"])
     revolutions = row_revolutions(row, orbit)
@@ -187,15 +187,7 @@ def run_row(
     enc, zhr = _pick(row, res, revolutions)
     if enc is None:
         return out
-    label = classify_crossing(
-        zhr,
-        enc.miss_distance_au,
-        enc.miss_distance_spread_au,
-        encounter_max_miss_au=ENCOUNTER_MAX_MISS_AU,
-        encounter_sigmas=ENCOUNTER_SIGMAS,
-        earth_radius_au=EARTH_RADIUS_AU,
-        near_miss_max_au=NEAR_MISS_MAX_AU,
-    )
+    label = classify(zhr, enc.miss_distance_au, enc.miss_distance_spread_au)
     prof = enc.profile
     out["predicted"] = {
         "peak_utc": format_utc(enc.peak_tdb_jd),
@@ -334,13 +326,10 @@ def _row_score(row, result, factor):
         predicted_peak_utc=pred["peak_utc"],
         miss_distance_au=pred["miss_distance_au"],
         predicted_zhr=zhr,
-        label=classify_crossing(
+        label=classify(
             zhr,
             pred["miss_distance_au"],
             pred["miss_distance_spread_au"],
-            encounter_max_miss_au=ENCOUNTER_MAX_MISS_AU,
-            encounter_sigmas=ENCOUNTER_SIGMAS,
-            earth_radius_au=EARTH_RADIUS_AU,
             near_miss_max_au=math.inf,
         ).label,
         estimators_disagree=pred.get("estimators_disagree"),
