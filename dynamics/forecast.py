@@ -684,9 +684,12 @@ def _targeted_pools(targets, trails, options) -> None:
         ys = amap(xs, np.full(len(xs), -1))
         near = xs[np.abs(ys) <= options.window_days]
         # and every pilot meteoroid that itself met Earth's passage: the running median
-        # smooths away structure narrower than the pilot's spacing (a resonance's plateau)
+        # smooths away structure narrower than the pilot's spacing (a resonance's plateau);
+        # and the candidates the map puts in the window: a steep branch (an old trail) can
+        # pass through it between two pilot points
         hit = np.isfinite(tg.y_seen) & (np.abs(tg.y_seen) <= options.window_days)
         near = np.union1d(near, tg.x_seen[hit & np.isfinite(tg.x_seen)])
+        near = np.union1d(near, tg.x_pool[eligible])
         if len(near) == 0:
             continue  # no branch through Earth's passage: the uniform fallback handles it
         x_lo, x_hi = near.min() - TARGETED_MARGIN_DAYS, near.max() + TARGETED_MARGIN_DAYS
