@@ -599,7 +599,7 @@ def classify_crossing(
     spread = float(miss_distance_spread_au)
     widths = miss / spread if spread > 0 else float("inf")
     where = f"{miss:.5f} au from Earth ({widths:.1f} widths)"
-    z = _zhr_text(peak_zhr)
+    z = zhr_text(peak_zhr)
     if peak_zhr >= level:
         label = "encounter"
         reason = f"predicted peak ZHR {z} at or above {level:g}; passes {where}"
@@ -612,7 +612,7 @@ def classify_crossing(
     return Classification(label, level, reason + _range_words(label, level, zhr_range, zhr_mode))
 
 
-def _zhr_text(x: float) -> str:
+def zhr_text(x: float) -> str:
     """A ZHR to three significant figures without an exponent (``1290``, ``0.4``)."""
     v = float(f"{float(x):.3g}")
     return f"{v:.0f}" if abs(v) >= 100 else f"{v:g}"
@@ -627,7 +627,7 @@ def _range_words(label: str, level: float, zhr_range, zhr_mode) -> str:
         "absolute": "absolute mode, uncertain by a factor of several",
         "calibrated": "calibrated on a past outburst",
     }.get(zhr_mode or "", zhr_mode or "stated range")
-    text = f"; range {_zhr_text(lo)}-{_zhr_text(hi)} ({how})"
+    text = f"; range {zhr_text(lo)}-{zhr_text(hi)} ({how})"
     if label != "encounter" and hi >= level:
         text += f"; at the high end of its range it reaches {level:g} and could be noticeable"
     elif label == "encounter" and lo < level:

@@ -560,7 +560,7 @@ def forecast_table(res: dict) -> str:
         "RA     Dec    Vg    n     ZHR (low-high)"
     )
 
-    from dynamics.activity import ENCOUNTER_MIN_ZHR
+    from dynamics.activity import ENCOUNTER_MIN_ZHR, zhr_text
 
     from .exports import kind_of
 
@@ -581,7 +581,7 @@ def forecast_table(res: dict) -> str:
                 f"{e['peak_utc']:<20}  {e['solar_longitude_deg']:>9.4f}  {e['miss_distance_au']:+.5f}  "
                 f"{e['miss_distance_spread_au']:.5f}  {e['fwhm_hours']:6.2f}  {e['radiant']['ra_deg']:5.1f}  "
                 f"{e['radiant']['dec_deg']:+5.1f}  {e['vg_km_s']:4.1f}  {e['particles']:>4}  "
-                f"{z['estimate']:.3g} ({z['low']:.3g}-{z['high']:.3g}){high}"
+                f"{zhr_text(z['estimate'])} ({zhr_text(z['low'])}-{zhr_text(z['high'])}){high}"
             )
         return out
 

@@ -407,3 +407,15 @@ def test_profile_peaks_where_the_denser_class_meets_earth_between_grid_points():
     assert off_grid_s > 2.0 and step_s > 20.0  # the check can fail without the refinement
     # the counts-weighted middle of the two classes would sit with the far class, 72 min early
     assert abs(near.t_centre_tdb_jd - far.t_centre_tdb_jd) * 1440.0 == pytest.approx(72.0, abs=2)
+
+
+@pytest.mark.invariant
+@pytest.mark.parametrize(
+    ("zhr", "text"),
+    [(1287.4, "1290"), (8104.0, "8100"), (466.2, "466"), (12.34, "12.3"), (0.4, "0.4"), (0, "0")],
+)
+def test_zhr_text_has_three_figures_and_no_exponent(zhr, text):
+    # What observers read in tables and reasons: "1290", never "1.29e+03".
+    from dynamics.activity import zhr_text
+
+    assert zhr_text(zhr) == text
