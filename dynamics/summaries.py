@@ -4,8 +4,9 @@ The headline peak of an encounter is the time of the maximum of its modelled ZHR
 (:func:`dynamics.activity.trail_activity`), which counts only the meteoroids that make *visual*
 meteors: those above the mass that gives a +6.5 mag meteor at their speed (the definition of
 the ZHR; :func:`dynamics.activity.limiting_mass_g`). The profile takes each decade of mass at
-zero arrival lag and weights it by its density at Earth's path, so a trail that crosses Earth's
-path at a slant peaks where it passes closest to Earth, not at its middle. The middle is
+zero arrival lag (the trail as Earth meets it, where its crossings drift with arrival time) and
+weights it by its density at Earth's path, so the sizes that pass closest to Earth set the
+peak, not the middle of all crossings. The middle is
 reported too (``trail_centre_utc``): the median of each decade of mass, combined with the
 number of real meteoroids in each decade as weights (:func:`_stratified_centre`); it is the
 headline when the modelled ZHR is 0. Small, high-beta grains reach their node later (radiation
@@ -110,7 +111,8 @@ class TrailEncounter:
     zhr_mode: str = "absolute"
     peak_basis: str = PEAK_BASIS_PROFILE
     #: Centre of the visual-size meteoroids' crossings (stratified median over mass decades):
-    #: the trail's middle, which the peak leaves when the trail passes Earth at a slant.
+    #: the trail's middle, which the peak leaves when sizes pass at different distances or the
+    #: crossings drift with arrival time.
     centre_tdb_jd: float = float("nan")
     mass_classes: tuple = ()
     beta_sensitivity_min_per_milli: float = float("nan")
@@ -307,8 +309,8 @@ def summarise(
     peak = centre
     if basis == PEAK_BASIS_CENTRE and prof.peak_zhr > 0:
         # the peak observers see: where the modelled rate is highest. Each mass class is taken
-        # at zero arrival lag and weighted by its density at Earth, so a trail crossing Earth's
-        # path at a slant peaks where it passes closest, not at its middle
+        # at zero arrival lag and weighted by its density at Earth, so the sizes that pass
+        # closest set the peak, not the middle of all crossings
         basis, peak = PEAK_BASIS_PROFILE, prof.peak_tdb_jd
     mode = "calibrated" if options.calibration is not None else "absolute"
     factor = MODEL_UNCERTAINTY_FACTOR[mode]

@@ -123,7 +123,8 @@ class EncounterOut(BaseModel):
     trail_centre_utc: str | None = Field(
         None,
         description="Time Earth passes the middle of the visual-size meteoroids' crossings "
-        "(UTC); differs from the peak when the trail crosses Earth's path at a slant",
+        "(UTC); differs from the peak when sizes pass at different distances from Earth or the "
+        "crossings drift with arrival time",
     )
     solar_longitude_deg: float = Field(..., description="At the peak; geometric, J2000 (deg)")
     miss_distance_au: float = Field(
