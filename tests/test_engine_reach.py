@@ -312,3 +312,21 @@ def test_a_plateau_finer_than_the_pilot_is_sampled_around_its_hits():
     tg.y_seen = np.array([-300.0, 50.0, 310.0])
     pick, eligible, frac = _around_hits(tg, opts, taken, budget=40)
     assert len(pick) == 0 and frac == 0.0
+
+
+@pytest.mark.invariant
+@pytest.mark.parametrize(("n", "workers"), [(750, 2), (1000, 2), (7, 2), (1, 2), (750, 1), (5, 8)])
+def test_chunks_keep_every_worker_busy_and_every_meteoroid_once(n, workers):
+    # 750 meteoroids in chunks of at most 250 on 2 workers: 4 chunks, not 3 (one worker idle a
+    # third of the time); every meteoroid in exactly one chunk, in order.
+    from dynamics.forecast import _chunks
+
+    opts = ForecastOptions(1999, 1999, workers=workers, chunk_size=250)
+    pick = np.arange(n) * 3
+    chunks = _chunks(pick, opts)
+    assert np.array_equal(np.concatenate([c for _, c in chunks]), pick)
+    assert all(len(c) <= 250 for _, c in chunks)
+    if n >= workers:
+        assert len(chunks) % workers == 0
+    else:
+        assert len(chunks) == n
