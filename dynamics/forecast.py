@@ -765,6 +765,9 @@ def _main_rounds(targets, trails, options, executor, say, integrated):
     for round_ in range(2 + REFINEMENT_ROUNDS):  # 0: probe, 1: the rest of the budget
         budget = probe if round_ == 0 else options.particles - probe if round_ == 1 else None
         budget = options.particles if budget is None else budget
+        if budget <= 0:  # the probe took the whole (tiny) budget: on to the refinement
+            active = [ti for ti in active if _needs_refinement(per_target.get(ti, []), options)]
+            continue
         lo, span = (
             (0.3, 0.1)
             if round_ == 0
@@ -777,8 +780,6 @@ def _main_rounds(targets, trails, options, executor, say, integrated):
         for ti in active:
             tg = targets[ti]
             tr = trails[tg.trail]
-            if budget <= 0:
-                continue
             amap = ArrivalMap(tg.x_seen, tg.y_seen, tg.c_seen, BETA_CLASSES)
             pick, eligible, frac = select_for_window(
                 amap, tg.x_pool, tg.cls, options.window_days, taken[ti], budget
