@@ -28,6 +28,7 @@ from .api import (
     iso_to_tdb_jd,
     parse_orbit,
 )
+from .constants import DAYS_PER_JULIAN_YEAR
 from .executors import process_pool
 from .forecast import classify
 from .summaries import year_of
@@ -88,7 +89,7 @@ def row_revolutions(row, orbit) -> tuple[int, ...] | None:
     trails = row.get("trails") or []
     revs = [t.get("revolutions") for t in trails]
     o = parse_orbit(orbit)
-    long_period = not (o.period_days < LONG_PERIOD_YEARS * 365.25)
+    long_period = not (o.period_days < LONG_PERIOD_YEARS * DAYS_PER_JULIAN_YEAR)
     if not trails or not long_period or any(r is None for r in revs):
         return None
     return tuple(int(r) for r in revs)

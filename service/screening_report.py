@@ -8,6 +8,8 @@ import sys
 import time
 from pathlib import Path
 
+from dynamics.activity import zhr_text
+
 from .batch import BatchRow
 from .exports import csv_cell
 from .files import write_atomic
@@ -147,7 +149,8 @@ def report_text(result: dict, every_orbit: bool = True) -> str:
                 f"trail {e['trail']['perihelion_year']} ({e['trail']['revolutions']} rev)  miss "
                 f"{e['miss_distance_au']:+.5f}  RA {e['radiant']['ra_deg']:.1f} Dec "
                 f"{e['radiant']['dec_deg']:+.1f}  Vg {e['vg_km_s']:.1f} km/s  ZHR "
-                f"{e['zhr']['estimate']:.3g} ({e['zhr']['low']:.3g}-{e['zhr']['high']:.3g})"
+                f"{zhr_text(e['zhr']['estimate'])} "
+                f"({zhr_text(e['zhr']['low'])}-{zhr_text(e['zhr']['high'])})"
             )
         if f.get("near_misses"):
             weak = sum(
