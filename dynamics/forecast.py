@@ -112,7 +112,9 @@ REFINE_BELOW_HIT_FRACTION = 0.5
 #: it and after every later round a target stops when its meteoroids at Earth's passage (at
 #: least PROBE_MIN_HITS of them) cross, on median, farther than ENCOUNTER_MAX_MISS_AU from
 #: Earth's path by more than PROBE_STOP_SE standard errors of that median (it cannot be an
-#: encounter), or when a uniform-fallback sample has no meteoroid at Earth's passage at all.
+#: encounter) and either none of them came within NEAR_MISS_MAX_AU or the trail is compact
+#: (median beyond the limit by more than PROBE_STOP_SE of its 16-84 % half-widths: a scattered
+#: old trail's tail can reach Earth when its median does not), or when a uniform-fallback sample has no meteoroid at Earth's passage at all.
 #: Old trails that pass far away then cost a quarter of the budget instead of up to four.
 #: No source: a cost rule, not a physical one.
 PROBE_FRACTION = 0.25
@@ -425,9 +427,11 @@ def _forecast(
     _, y_end = calendar_year_tdb_jd(options.last_year)
     say(0.0, "parent history")
     t_min = y_start - options.max_trail_age_years * DAYS_PER_JULIAN_YEAR
-    if options.trails:  # only the named trails: no need to go further back than the oldest
-        t_min = min(t_min, calendar_year_tdb_jd(min(options.trails))[0] - 400.0)
     period = orbit.period_days if np.isfinite(orbit.period_days) else 0.0
+    if options.trails:  # only the named trails: no need to go further back than the oldest
+        # (and the return it may stand for: up to a quarter of a period before it)
+        reach = TRAIL_YEAR_MATCH_FRACTION * min(period, 300 * DAYS_PER_JULIAN_YEAR) + 400.0
+        t_min = min(t_min, calendar_year_tdb_jd(min(options.trails))[0] - reach)
     t_max = y_end + min(1.3 * period, 300 * DAYS_PER_JULIAN_YEAR) + 60.0
     try:
         history = cached_parent_history(
@@ -551,9 +555,9 @@ def _trails_in_scope(returns, options, t_min, y_start, y_end):
             f"{options.ejection.active_r_max_au} au: no active arc, no trail"
         )
     if options.trails is not None:
-        ids = [k for k in active if year_of(returns[k].tp_tdb_jd) in options.trails]
-        found = {year_of(returns[k].tp_tdb_jd) for k in ids}
-        missing = sorted(set(options.trails) - found)
+        matched, missing, match_notes = match_trail_years(returns, active, options.trails)
+        ids = sorted(set(matched.values()))
+        notes += match_notes
         if missing:
             have = ", ".join(str(year_of(returns[k].tp_tdb_jd)) for k in active) or "none"
             notes.append(
@@ -572,6 +576,68 @@ def _trails_in_scope(returns, options, t_min, y_start, y_end):
     if not ids:
         notes.append("no parent return in scope has an active arc: no trails")
     return ids, notes
+
+
+#: A named trail year without a return of its own stands for the nearest return when it lies
+#: within this fraction of the spacing of returns (its period) from it: clearly nearer to one
+#: return than to its neighbours (3:1 or better). Published trail years come from other
+#: integrations of the parent and can differ by one year (decades, thousands of years back).
+#: No source.
+TRAIL_YEAR_MATCH_FRACTION = 0.25
+
+
+def match_trail_years(returns, candidates, years):
+    """Which return each named perihelion year stands for.
+
+    Parameters
+    ----------
+    returns : sequence of ParentReturn
+        The parent's returns in time order.
+    candidates : sequence of int
+        Indices of the returns that may be matched (those with an active arc).
+    years : iterable of int
+        Perihelion years as named by the user or a source.
+
+    Returns
+    -------
+    (matched, missing, notes): ``matched`` maps each matched year to a return index (a return
+    in that calendar year, else the nearest one within :data:`TRAIL_YEAR_MATCH_FRACTION` of the
+    spacing of returns around it); ``missing`` lists the years matched to none; ``notes`` says
+    which years were taken as a return of another year.
+    """
+    matched: dict[int, int] = {}
+    missing: list[int] = []
+    notes: list[str] = []
+    cands = list(candidates)
+    tps = np.array([r.tp_tdb_jd for r in returns])
+    for y in sorted(set(int(v) for v in years)):
+        exact = [k for k in cands if year_of(returns[k].tp_tdb_jd) == y]
+        if exact:
+            matched[y] = exact[0]
+            continue
+        if not cands:
+            missing.append(y)
+            continue
+        a, b = calendar_year_tdb_jd(y)
+        mid = 0.5 * (a + b)
+        k = min(cands, key=lambda j: abs(returns[j].tp_tdb_jd - mid))
+        gaps = np.abs(np.diff(tps))[max(k - 1, 0) : k + 1]
+        spacing = float(gaps.min()) if len(gaps) else float(returns[k].period_days)
+        if not np.isfinite(spacing):
+            missing.append(y)
+            continue
+        off = abs(returns[k].tp_tdb_jd - mid)
+        if off <= TRAIL_YEAR_MATCH_FRACTION * spacing:
+            matched[y] = k
+            notes.append(
+                f"the {y} trail was taken as the return of "
+                f"{format_iso(returns[k].tp_tdb_jd, 'TDB')[:10]} (TDB), the nearest in this "
+                f"integration of the parent ({off / DAYS_PER_JULIAN_YEAR:.1f} years from mid-{y}; "
+                "trail years from other integrations can differ)"
+            )
+        else:
+            missing.append(y)
+    return matched, missing, notes
 
 
 def _no_target_note(returns, trail_ids) -> str:
@@ -899,7 +965,13 @@ def _enough_said(tg: Target, parts, options) -> str | None:
     q16, q84 = np.percentile(miss, [16, 84])
     # standard error of a median: sqrt(pi/2) sigma / sqrt(n)
     se = np.sqrt(np.pi / 2.0) * 0.5 * float(q84 - q16) / np.sqrt(k)
-    if m - PROBE_STOP_SE * se > ENCOUNTER_MAX_MISS_AU:
+    sigma = 0.5 * float(q84 - q16)
+    # a scattered trail (its median no farther than a few spreads) whose tail already reached
+    # Earth's neighbourhood can still hold an encounter: the median says nothing of its tail
+    tail_near = bool(np.any(np.abs(miss) <= NEAR_MISS_MAX_AU)) and (
+        m - ENCOUNTER_MAX_MISS_AU <= PROBE_STOP_SE * sigma
+    )
+    if m - PROBE_STOP_SE * se > ENCOUNTER_MAX_MISS_AU and not tail_near:
         return (
             f"{k} of {n} meteoroids met Earth's passage {m:.4f} au (+-{se:.4f}) from Earth's path "
             f"on median, beyond the encounter limit of {ENCOUNTER_MAX_MISS_AU:g} au"

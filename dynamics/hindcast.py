@@ -30,7 +30,7 @@ from .api import (
 )
 from .constants import DAYS_PER_JULIAN_YEAR
 from .executors import process_pool
-from .forecast import classify
+from .forecast import classify, match_trail_years
 from .summaries import year_of
 
 #: Peak offsets within this many minutes count as a timing success in the summary (the issue's
@@ -121,13 +121,19 @@ def _pick(row, res, revolutions=None):
     within :data:`BLEND_DAYS` (two trails observed as one outburst).
     """
     trails = row_trails(row)
+    wanted = None
+    if trails is not None:  # the named years, and the returns the engine took them as
+        rets = res.history.returns
+        active = [k for k, r in enumerate(rets) if len(r.arc_t_tdb_jd)]
+        taken = match_trail_years(rets, active, trails)[0].values()
+        wanted = set(trails) | {year_of(rets[k].tp_tdb_jd) for k in taken}
     cands = [
         e
         for e in res.encounters + res.near_misses
         if (
             e.revolutions in revolutions
             if revolutions is not None
-            else trails is None or year_of(e.trail_perihelion_tdb_jd) in trails
+            else wanted is None or year_of(e.trail_perihelion_tdb_jd) in wanted
         )
     ]
     window = _check_window(row)

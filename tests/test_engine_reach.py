@@ -57,6 +57,26 @@ def test_long_period_parent_keeps_its_previous_return_in_scope():
 
 
 @pytest.mark.invariant
+def test_a_named_trail_year_finds_the_nearest_return_and_says_so():
+    # Published trail years come from other integrations of the parent: one return may be dated
+    # a year (or, thousands of years back, decades) apart. A named year with no return of its
+    # own is the nearest return within half the spacing of returns, with a note; a year far
+    # from every return is not matched.
+    y0, _ = calendar_year_tdb_jd(2000)
+    _, y1 = calendar_year_tdb_jd(2000)
+    tp = [calendar_year_tdb_jd(y)[0] + 340.0 for y in (1364, 1377, 1391, 1405)]  # ~13.6 yr
+    returns = tuple(_ret(t) for t in tp)
+    opts = ForecastOptions(2000, 2000, trails=(1392, 1405), workers=1)
+    ids, notes = _trails_in_scope(returns, opts, y0 - 700 * 365.25, y0, y1)
+    assert ids == [2, 3]
+    assert any("1392" in n and "1391" in n for n in notes)
+    far = ForecastOptions(2000, 2000, trails=(1384,), workers=1)  # 7 yr from 1377 and 1391
+    ids, notes = _trails_in_scope(returns, far, y0 - 700 * 365.25, y0, y1)
+    assert ids == []
+    assert any("no active parent return" in n for n in notes)
+
+
+@pytest.mark.invariant
 def test_crossing_point_lies_in_earths_plane_and_closest_to_earths_path():
     # A 55P-like orbit near its descending node in 1999: the returned crossing lies in the
     # osculating plane of Earth's path, the miss vector is perpendicular to Earth's velocity,
@@ -276,6 +296,13 @@ def test_targets_stop_only_when_they_cannot_be_an_encounter():
     # an encounter-like trail never stops
     near = _crossings_at(0.0005 + 0.001 * rng.standard_normal(75), lag)
     assert _enough_said(tg, [near], opts) is None
+    # an old, scattered trail: the median is 2 au away, but the spread reaches Earth's path and
+    # one meteoroid crossed 0.006 au from it: its tail can still give an encounter, go on
+    spread = np.r_[2.0 + 1.5 * rng.standard_normal(74), 0.006]
+    assert _enough_said(tg, [_crossings_at(spread, lag)], opts) is None
+    # ... but the same scatter with no meteoroid within the near-miss distance stops
+    empty = np.where(np.abs(spread) < 0.06, 0.06, spread)
+    assert "beyond the encounter limit" in _enough_said(tg, [_crossings_at(empty, lag)], opts)
     # too few meteoroids at Earth's passage to judge: go on
     few = _crossings_at(np.full(75, 0.03), np.r_[np.zeros(PROBE_MIN_HITS - 1), np.full(66, 60.0)])
     assert _enough_said(tg, [few], opts) is None

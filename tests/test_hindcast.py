@@ -215,7 +215,7 @@ def test_two_named_trails_seen_as_one_outburst_add_up():
     a = _crossing(float(iso_to_tdb_jd("1699-06-01T00:00:00Z")), t0 + 0.001, 1000.0)
     b = _crossing(float(iso_to_tdb_jd("1866-01-11T00:00:00Z")), t0 + 0.021, 2000.0)
     c = _crossing(float(iso_to_tdb_jd("1932-07-12T00:00:00Z")), t0, 5000.0)  # not named
-    res = SimpleNamespace(encounters=(a, b, c), near_misses=())
+    res = SimpleNamespace(encounters=(a, b, c), near_misses=(), history=SimpleNamespace(returns=()))
     row = _row("x", 2001, zhr=3000, peak="2001-11-18T18:15:00Z")
     row["trails"] = [{"perihelion_year": 1699}, {"perihelion_year": 1866}]
     enc, zhr = _pick(row, res)
