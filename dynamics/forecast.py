@@ -36,6 +36,7 @@ from .activity import (
     ENCOUNTER_MIN_ZHR,
     classify_crossing,
     default_dust_mass_per_return_g,
+    dust_mass_from_magnitude_g,
 )
 from .constants import DAYS_PER_JULIAN_YEAR, GM_SUN_AU3_D2
 from .crossings import MISS_DISTANCE_CONVENTION, Crossings
@@ -225,6 +226,7 @@ class ForecastOptions:
     ejection: EjectionModel = field(default_factory=EjectionModel)
     events: tuple[EjectionEvent, ...] = ()
     dust_mass_per_return_g: float | None = None
+    dust_mass_basis: str | None = None  # how a production the engine derived was obtained
     calibration: Calibration | None = None
     zhr_scale: float = 1.0  # set by the calibration; 1 in absolute mode
 
@@ -242,7 +244,7 @@ class ForecastOptions:
             "chunk_size": self.chunk_size,
             "events": [e.describe() for e in self.events],
             "dust_mass_per_return_g": self.dust_mass(),
-            "dust_mass_rule": None
+            "dust_mass_rule": self.dust_mass_basis
             if self.dust_mass_per_return_g is not None
             else (
                 f"default: {DEFAULT_EROSION_M_PER_RETURN} m of the surface of a "
@@ -421,6 +423,7 @@ def _forecast(
     if orbit.ejection_events:  # events of the orbit file join those of the options
         extra = tuple(ev for ev in orbit.ejection_events if ev not in options.events)
         options = replace(options, events=tuple(options.events) + extra)
+    options = with_dust_production(orbit, options)
     if options.calibration is not None:
         calibration, options = _calibrate(orbit, options, executor)
     y_start, _ = calendar_year_tdb_jd(options.first_year)
@@ -584,6 +587,29 @@ def _trails_in_scope(returns, options, t_min, y_start, y_end):
 #: integrations of the parent and can differ by one year (decades, thousands of years back).
 #: No source.
 TRAIL_YEAR_MATCH_FRACTION = 0.25
+
+
+def with_dust_production(orbit: OrbitInput, options: ForecastOptions) -> ForecastOptions:
+    """The options with the parent's dust production per return, when its brightness gives it.
+
+    A stated production wins; else a parent with a total absolute magnitude M1 releases the dust
+    that goes with its water production (Jorda et al. 2008, :func:`dust_mass_from_magnitude_g`)
+    over its active arc on the input orbit; else the nucleus rule of
+    :func:`~dynamics.activity.default_dust_mass_per_return_g` stays.
+    """
+    if options.dust_mass_per_return_g is not None or orbit.m1 is None:
+        return options
+    mass = dust_mass_from_magnitude_g(
+        orbit.m1, orbit.k1, orbit.q_au, orbit.e, options.ejection.active_r_max_au
+    )
+    basis = (
+        f"from the parent's total absolute magnitude M1 = {orbit.m1:g} (K1 = {orbit.k1:g}): "
+        "water production log10 Q = 30.675 - 0.2453 m_h (Jorda, Crovisier & Green 2008) "
+        f"integrated over the input orbit inside {options.ejection.active_r_max_au:g} au, "
+        f"dust/gas {DEFAULT_DUST_TO_GAS}, spread over {DEFAULT_DUST_MASS_RANGE_G[0]:g}-"
+        f"{DEFAULT_DUST_MASS_RANGE_G[1]:g} g"
+    )
+    return replace(options, dust_mass_per_return_g=mass, dust_mass_basis=basis)
 
 
 def match_trail_years(returns, candidates, years):

@@ -8,6 +8,8 @@ JSON form (keys kept stable; units fixed)::
      "i": 71.4, "node": 141.2, "peri": 196.8,   # deg, ecliptic and equinox J2000
      "tp": "2031-09-14T06:00:00 TDB",   # perihelion time, JD TDB or ISO 8601 with a scale
      "nongrav": {"a1": 1e-9, "a2": 1e-10, "a3": 0.0},   # optional, au/day^2 (Marsden et al. 1973)
+     "m1": 11.5, "k1": 10.0,             # optional total absolute magnitude m = M1 + 5 log D
+                                         # + K1 log r (K1 defaults to 10): sets the dust production
      "covariance": [[...6 x 6...]],      # optional, over (q, e, i, node, peri, tp) in
                                          # (au, 1, deg, deg, deg, day)
      "solutions": [{...}, ...]}          # optional alternative orbit fits, same keys
@@ -38,6 +40,8 @@ ORBIT_KEYS = (
     "peri",
     "tp",
     "nongrav",
+    "m1",
+    "k1",
     "covariance",
     "solutions",
     "ejection_events",
@@ -66,6 +70,11 @@ MAX_PERIHELION_AU = 1000.0
 EPOCH_SPAN_TDB_JD = (2_378_480.5, 2_524_624.5)
 #: Longest name accepted.
 MAX_NAME_LENGTH = 200
+#: Total absolute magnitudes accepted (mag): the brightest comets on record reach M1 of about
+#: -2, the faintest catalogued nuclei about 20 (no source; a wide guard against typing errors).
+MAGNITUDE_RANGE = (-5.0, 25.0)
+#: Largest K1 accepted (2.5 n with n up to 20; catalogued values rarely exceed 30; no source).
+MAX_K1 = 50.0
 #: Most alternative solutions accepted in one input.
 MAX_SOLUTIONS = 64
 
@@ -104,6 +113,8 @@ class OrbitInput:
     covariance: np.ndarray | None = field(default=None, compare=False)
     solutions: tuple["OrbitInput", ...] = ()
     ejection_events: tuple = ()  # dynamics.release.EjectionEvent: break-ups, outbursts
+    m1: float | None = None  # total absolute magnitude (mag), None when not given
+    k1: float = 10.0  # its heliocentric slope: m = M1 + 5 log10 Delta + K1 log10 r
 
     @property
     def a_au(self) -> float:
@@ -139,6 +150,9 @@ class OrbitInput:
                 "a2": self.nongrav.a2_au_d2,
                 "a3": self.nongrav.a3_au_d2,
             }
+        if self.m1 is not None:
+            out["m1"] = self.m1
+            out["k1"] = self.k1
         if self.covariance is not None:
             out["covariance"] = self.covariance.tolist()
         if self.solutions:
@@ -162,7 +176,9 @@ class OrbitInput:
         return out
 
 
-def parse_orbit(data, *, path: str = "", allow_solutions: bool = True) -> OrbitInput:
+def parse_orbit(
+    data, *, path: str = "", allow_solutions: bool = True, _inherit: dict | None = None
+) -> OrbitInput:
     """Validate an orbit mapping (parsed JSON) and return an :class:`OrbitInput`.
 
     Parameters
@@ -275,6 +291,21 @@ def parse_orbit(data, *, path: str = "", allow_solutions: bool = True) -> OrbitI
                 )
         nongrav = NonGravParams(*vals)
 
+    inherit = _inherit or {}
+    m1, k1 = inherit.get("m1"), inherit.get("k1", 10.0)
+    if data.get("m1") is not None:
+        m1 = _number(data, "m1", path)
+        if not MAGNITUDE_RANGE[0] <= m1 <= MAGNITUDE_RANGE[1]:
+            raise InvalidOrbit(
+                path + "m1",
+                f"total absolute magnitude {m1!r} is outside {MAGNITUDE_RANGE[0]:g} to "
+                f"{MAGNITUDE_RANGE[1]:g}",
+            )
+    if data.get("k1") is not None:
+        k1 = _number(data, "k1", path)
+        if not 0.0 <= k1 <= MAX_K1:
+            raise InvalidOrbit(path + "k1", f"K1 must be in [0, {MAX_K1:g}], got {k1!r}")
+
     covariance = None
     if data.get("covariance") is not None:
         covariance = _covariance(data["covariance"], path + "covariance")
@@ -288,8 +319,13 @@ def parse_orbit(data, *, path: str = "", allow_solutions: bool = True) -> OrbitI
             raise InvalidOrbit(path + "solutions", "expected a non-empty list of orbit objects")
         if len(sols) > MAX_SOLUTIONS:
             raise InvalidOrbit(path + "solutions", f"at most {MAX_SOLUTIONS} alternative solutions")
-        solutions = tuple(
-            parse_orbit(s, path=f"{path}solutions.{k}.", allow_solutions=False)
+        solutions = tuple(  # a solution without its own magnitudes shares the parent's
+            parse_orbit(
+                s,
+                path=f"{path}solutions.{k}.",
+                allow_solutions=False,
+                _inherit={"m1": m1, "k1": k1},
+            )
             for k, s in enumerate(sols)
         )
 
@@ -310,6 +346,8 @@ def parse_orbit(data, *, path: str = "", allow_solutions: bool = True) -> OrbitI
         covariance=covariance,
         solutions=solutions,
         ejection_events=events,
+        m1=m1,
+        k1=k1,
     )
 
 

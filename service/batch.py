@@ -20,8 +20,9 @@ from dynamics.orbit_input import ORBIT_KEYS
 #: for the optional non-gravitational parameters. Covariances and alternative solutions need the
 #: JSON-lines form.
 _NONGRAV_COLUMNS = ("nongrav.a1", "nongrav.a2", "nongrav.a3")
-CSV_COLUMNS = (*ORBIT_KEYS[: ORBIT_KEYS.index("nongrav")], *_NONGRAV_COLUMNS)
-_CSV_NUMBERS = ("q", "e", "i", "node", "peri", *_NONGRAV_COLUMNS)
+#: ``m1`` and ``k1``, the total magnitude that sets the dust production, are optional columns.
+CSV_COLUMNS = (*ORBIT_KEYS[: ORBIT_KEYS.index("nongrav")], *_NONGRAV_COLUMNS, "m1", "k1")
+_CSV_NUMBERS = ("q", "e", "i", "node", "peri", *_NONGRAV_COLUMNS, "m1", "k1")
 
 
 @dataclass(frozen=True)

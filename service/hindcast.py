@@ -55,6 +55,10 @@ def orbit_json(name: str, entry: dict) -> dict:
     ng = entry.get("nongrav_au_d2")
     if ng:
         out["nongrav"] = {k: ng[k] for k in ("a1", "a2", "a3") if k in ng}
+    mag = entry.get("magnitude")
+    if mag:  # the parent's brightness sets its dust production (absolute mode)
+        out["m1"] = mag["m1"]
+        out["k1"] = mag.get("k1", 10.0)
     return out
 
 
@@ -150,7 +154,8 @@ def markdown(report: dict) -> str:
         else f"**Partial: {report['rows_run']} of {report['rows_requested']} rows run so far.**",
         "",
         "Offsets are predicted minus observed peak (minutes); ratios are predicted/observed. "
-        "ZHR in absolute mode comes from the default dust production; calibrated: "
+        "ZHR in absolute mode comes from the parent's total magnitude where the catalogue gives one "
+        "(Jorda et al. 2008 water production, dust/gas 1), else the nucleus rule; calibrated: "
         + report["scores"]["rule"],
         "",
     ]

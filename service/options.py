@@ -153,7 +153,7 @@ class Option:
             return {
                 "workers": "one per core",
                 "trails": "all within the age limit",
-                "dust_mass_per_return_g": "1 m of the nucleus surface per return",
+                "dust_mass_per_return_g": "from the orbit's M1, else 1 m of the nucleus surface",
                 "calibration": "none: absolute ZHRs",
                 "events": "none",
             }[self.name]

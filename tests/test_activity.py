@@ -12,6 +12,7 @@ from reference_cases import PARENT_55P
 from dynamics.activity import (
     classify_crossing,
     default_dust_mass_per_return_g,
+    dust_mass_from_magnitude_g,
     flux_from_zhr,
     gravitational_focusing_factor,
     kr_factor,
@@ -19,6 +20,7 @@ from dynamics.activity import (
     meteoroids_per_particle,
     power_law_normalisation,
     trail_activity,
+    water_production_per_s,
     zhr_from_flux,
 )
 from dynamics.constants import AU_KM, KM_S_PER_AU_DAY
@@ -30,6 +32,7 @@ from dynamics.forecast import (
     Calibration,
     ForecastOptions,
     forecast,
+    with_dust_production,
 )
 from dynamics.orbit_input import parse_orbit
 from dynamics.timescales import iso_to_tdb_jd
@@ -91,6 +94,68 @@ def test_default_production_rule():
     assert default_dust_mass_per_return_g(2.0, 1.0) == pytest.approx(
         2 * math.pi * 4e10 * 100, rel=1e-12
     )
+
+
+# Jorda, Crovisier & Green (2008; from memory): log10 Q(H2O) = 30.675 - 0.2453 m_h. By hand:
+# m_h = 9 -> 10^28.4673 = 2.933e28 /s; m_h = 14 -> 10^27.2408 = 1.741e27 /s; and m_h = M1 +
+# K1 log10 r: M1 = 9, K1 = 10 at r = 2 au gives m_h = 12.0103 -> 10^27.7289 = 5.356e27 /s.
+JORDA_HAND = [(9.0, 10.0, 1.0, 2.933e28), (14.0, 10.0, 1.0, 1.741e27), (9.0, 10.0, 2.0, 5.356e27)]
+
+
+@pytest.mark.reference
+@pytest.mark.parametrize(("m1", "k1", "r", "q_h2o"), JORDA_HAND)
+def test_water_production_from_total_magnitude_by_hand(m1, k1, r, q_h2o):
+    assert float(water_production_per_s(m1, k1, r)) == pytest.approx(q_h2o, rel=2e-3)
+
+
+@pytest.mark.reference
+@pytest.mark.parametrize(
+    ("q", "e", "r_max"), [(0.98, 0.906, 3.0), (1.0, 0.71, 3.0), (0.5, 0.2, 3.0)]
+)
+def test_dust_from_magnitude_integrates_the_time_inside_the_active_distance(q, e, r_max):
+    # With K1 = 0 the production is constant: the released mass is Q x (time with r <= r_max)
+    # x m(H2O) x dust/gas. The time comes independently from Kepler's equation (textbook):
+    # r = a (1 - e cos E), t = (E - e sin E) / n, twice (before and after perihelion); an orbit
+    # that stays inside r_max (the last case: aphelion 0.75 au) spends its whole period there.
+    gm = 0.01720209895**2  # Gaussian gravitational constant squared (IAU 1976), au^3/day^2
+    a = q / (1.0 - e)
+    n = math.sqrt(gm / a**3)
+    if a * (1.0 + e) <= r_max:
+        t_in = 2.0 * math.pi / n
+    else:
+        big_e = math.acos((1.0 - r_max / a) / e)
+        t_in = 2.0 * (big_e - e * math.sin(big_e)) / n
+    q_h2o = float(water_production_per_s(9.0, 0.0, 1.0))
+    expected = q_h2o * t_in * 86400.0 * 18.015 * 1.66053906660e-24  # dust/gas 1
+    got = dust_mass_from_magnitude_g(9.0, 0.0, q, e, r_max, dust_to_gas=1.0)
+    assert got == pytest.approx(expected, rel=1e-4)
+
+
+@pytest.mark.invariant
+def test_five_magnitudes_fainter_releases_the_relation_s_factor_less_dust():
+    bright = dust_mass_from_magnitude_g(9.0, 10.0, 0.98, 0.906, 3.0)
+    faint = dust_mass_from_magnitude_g(14.0, 10.0, 0.98, 0.906, 3.0)
+    assert faint / bright == pytest.approx(10 ** (-0.2453 * 5), rel=1e-9)
+    assert dust_mass_from_magnitude_g(9.0, 10.0, 3.5, 0.5, 3.0) == 0.0  # never active
+
+
+@pytest.mark.invariant
+def test_a_parent_s_total_magnitude_sets_its_dust_production():
+    # Stated production > total magnitude > nucleus rule; the JSON says which was used.
+    opts = ForecastOptions(1999, 1999, workers=1)
+    bright = parse_orbit(PARENT_55P | {"m1": 9.0})
+    faint = parse_orbit(PARENT_55P | {"m1": 17.0})
+    got = with_dust_production(bright, opts)
+    assert got.dust_mass() == pytest.approx(
+        dust_mass_from_magnitude_g(9.0, 10.0, bright.q_au, bright.e, 3.0)
+    )
+    assert "Jorda" in got.describe()["dust_mass_rule"]
+    # 8 magnitudes fainter, same orbit and K1: the relation's 10^(-0.2453 x 8) = 0.0109
+    ratio = with_dust_production(faint, opts).dust_mass() / got.dust_mass()
+    assert ratio == pytest.approx(10 ** (-0.2453 * 8), rel=1e-9)
+    stated = replace(opts, dust_mass_per_return_g=1e12)
+    assert with_dust_production(bright, stated).dust_mass() == 1e12
+    assert with_dust_production(parse_orbit(PARENT_55P), opts).dust_mass() == opts.dust_mass()
 
 
 # --- gravitational focusing --------------------------------------------------------------------

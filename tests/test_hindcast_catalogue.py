@@ -150,6 +150,19 @@ def _check_orbit(name: str, orbit: dict, sources: dict, problems: list[str]) -> 
         and all(abs(v) < 1e-6 for v in nongrav.values())
     ):
         problems.append(f"{where}: nongrav_au_d2 must be null or a1/a2/a3 below 1e-6 au/day^2")
+    mag = orbit.get("magnitude", "missing")
+    if mag == "missing" and " / " in name:
+        pass  # an alternative solution shares its parent's magnitude
+    elif mag is None:
+        if not orbit.get("magnitude_note"):
+            problems.append(f"{where}: no total magnitude and no note saying why")
+    elif not (
+        isinstance(mag, dict)
+        and mag.get("source") in sources
+        and -5.0 <= mag.get("m1", 99.0) <= 25.0
+        and 0.0 <= mag.get("k1", -1.0) <= 50.0
+    ):
+        problems.append(f"{where}: magnitude needs m1 in [-5, 25], k1 in [0, 50] and a source")
     row = orbit.get("elements_file_row")
     if row is None:
         problems.append(f"{where}: no elements_file_row to re-derive times from")
@@ -424,6 +437,10 @@ BROKEN_COPIES = {
                 if "no-outburst" not in x["kind"] or x["id"] in ("cam-2014", "dra-1972")
             ]
         ),
+    ),
+    "magnitude without a source": (
+        "cam-2014",
+        lambda r, c: c["orbits"]["209P/LINEAR"]["magnitude"].update(source="nowhere"),
     ),
     "fast shower at 20 km/s": ("aur-2007-1rev", lambda r, c: r.update(speed_km_s=20)),
     "missing ZHR on an outburst": ("dra-2011-1900", lambda r, c: r["observed"].update(zhr=None)),

@@ -78,12 +78,24 @@ def test_iso_times_with_scale_are_accepted():
         ({"solutions": [with_(e=-1.0)]}, "solutions.0.e"),
         ({"solutions": [with_(solutions=[GOOD])]}, "solutions.0.solutions"),
         ({"solutions": []}, "solutions"),
+        ({"m1": 40.0}, "m1"),
+        ({"m1": "bright"}, "m1"),
+        ({"k1": -1.0}, "k1"),
     ],
 )
 def test_invalid_orbits_name_the_field(changes, field):
     with pytest.raises(InvalidOrbit) as info:
         parse_orbit(with_(**changes))
     assert info.value.field == field
+
+
+def test_total_magnitude_is_kept_and_shared_by_solutions():
+    o = parse_orbit(with_(m1=11.5, k1=15.0, solutions=[with_(e=0.5), with_(e=0.5, m1=13.0)]))
+    assert (o.m1, o.k1) == (11.5, 15.0)
+    assert (o.solutions[0].m1, o.solutions[0].k1) == (11.5, 15.0)  # inherited
+    assert o.solutions[1].m1 == 13.0  # its own
+    assert parse_orbit(o.to_json()).m1 == 11.5  # round trip
+    assert parse_orbit(with_()).m1 is None
 
 
 def test_not_an_object():

@@ -15,8 +15,10 @@ from pydantic import Field, model_validator
 from dynamics.errors import InvalidOrbit
 from dynamics.orbit_input import (
     EPOCH_SPAN_TDB_JD,
+    MAGNITUDE_RANGE,
     MAX_ECCENTRICITY,
     MAX_EVENTS,
+    MAX_K1,
     MAX_NAME_LENGTH,
     MAX_PERIHELION_AU,
     MAX_SOLUTIONS,
@@ -178,6 +180,18 @@ class _OrbitFields(RequestModel):
     )
     nongrav: NonGravIn | None = Field(
         None, description="Optional non-gravitational parameters (au/day^2)"
+    )
+    m1: float | None = Field(
+        None,
+        json_schema_extra={"minimum": MAGNITUDE_RANGE[0], "maximum": MAGNITUDE_RANGE[1]},
+        description="Optional total absolute magnitude M1 (m = M1 + 5 log10 Delta + K1 log10 "
+        "r): sets the dust production per return through the water production (Jorda et al. "
+        "2008) unless a production is stated",
+    )
+    k1: float | None = Field(
+        None,
+        json_schema_extra={"minimum": 0.0, "maximum": MAX_K1},
+        description="Slope K1 of the total magnitude law (default 10, i.e. n = 4)",
     )
     covariance: (
         Annotated[
