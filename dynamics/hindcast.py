@@ -30,7 +30,13 @@ from .api import (
 )
 from .constants import DAYS_PER_JULIAN_YEAR
 from .executors import process_pool
-from .forecast import classify, match_trail_years
+from .forecast import (
+    EARTH_RADIUS_AU,
+    ENCOUNTER_MAX_MISS_AU,
+    ENCOUNTER_SIGMAS,
+    classify,
+    match_trail_years,
+)
 from .summaries import year_of
 
 #: Peak offsets within this many minutes count as a timing success in the summary (the issue's
@@ -55,9 +61,11 @@ LONG_PERIOD_YEARS = 200.0
 BLEND_DAYS = 1.0
 
 CALIBRATION_RULE = (
-    "per parent, one outburst row calibrates the dust production: the outburst row with the "
-    "smallest relative uncertainty of its observed ZHR (ties and missing uncertainties: the most "
-    "recent). Its observed/predicted ZHR ratio multiplies every other row of that parent; the "
+    "per parent, one outburst row calibrates the dust production: among the outburst rows whose "
+    "predicted crossing puts Earth inside the modelled trail (the engine's distance test: within "
+    "0.005 au and within 3 cross-section widths plus Earth's radius; elsewhere the ratio "
+    "measures the trail's position, not its dust), the one with the smallest relative "
+    "uncertainty of its observed ZHR (ties and missing uncertainties: the most recent). Its observed/predicted ZHR ratio multiplies every other row of that parent; the "
     "calibration row itself is left out of the calibrated scores; parents with a single outburst "
     "row stay in absolute mode."
 )
@@ -268,6 +276,15 @@ def _rel_uncertainty(row) -> float:
     return 0.5 * (float(hi) - float(lo)) / float(z)
 
 
+def _earth_inside_trail(pred) -> bool:
+    """True when a predicted crossing passes the engine's distance test for an encounter."""
+    if not pred:
+        return False
+    miss = abs(float(pred["miss_distance_au"]))
+    spread = float(pred.get("miss_distance_spread_au") or 0.0)
+    return miss <= min(ENCOUNTER_MAX_MISS_AU, ENCOUNTER_SIGMAS * spread + EARTH_RADIUS_AU)
+
+
 def calibration_rows(rows: Sequence[dict], results: Sequence[dict]) -> dict[str, dict]:
     """Per parent, the calibration row and factor chosen by :data:`CALIBRATION_RULE`.
 
@@ -285,7 +302,15 @@ def calibration_rows(rows: Sequence[dict], results: Sequence[dict]) -> dict[str,
         ]
         if len(cands) < 2:
             continue
-        best = min(cands, key=lambda r: (_rel_uncertainty(r), -int(r["year"])))
+        inside = [r for r in cands if _earth_inside_trail(by_id.get(r["id"], {}).get("predicted"))]
+        if not inside:
+            out[parent] = {
+                "row": None,
+                "factor": None,
+                "reason": "no outburst row puts Earth inside the modelled trail: stays absolute",
+            }
+            continue
+        best = min(inside, key=lambda r: (_rel_uncertainty(r), -int(r["year"])))
         pred = by_id.get(best["id"], {}).get("predicted")
         if pred is None or not pred["zhr"] > 0:
             out[parent] = {

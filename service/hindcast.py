@@ -203,7 +203,7 @@ def markdown(report: dict) -> str:
     if cal:
         lines += ["## Calibration", "", "| parent | calibration row | factor |", "|---|---|---|"]
         for parent, c in cal.items():
-            lines.append(f"| {parent} | {c['row']} | {_fmt(c['factor'], '.3g')} |")
+            lines.append(f"| {parent} | {c['row'] or '-'} | {_fmt(c['factor'], '.3g')} |")
         lines.append("")
     lines += [f"_{CAUTION}_", ""]
     return "\n".join(lines)

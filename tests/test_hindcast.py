@@ -89,6 +89,23 @@ def test_calibration_rule_picks_one_row_per_parent_and_leaves_it_out():
 
 
 @pytest.mark.invariant
+def test_calibration_skips_rows_where_earth_passes_outside_the_modelled_trail():
+    # Earth 0.002 au from a trail 0.0003 au wide (6.7 widths): the observed/predicted ratio
+    # there measures the trail's position error, not its dust. The next row by uncertainty is
+    # taken; with none inside, the parent stays absolute and says why.
+    rows = [
+        _row("best", 1999, zhr=3700, dz=370),
+        _row("other", 2002, zhr=3000, dz=600),
+        _row("old", 1966, zhr=10000, dz=5000),
+    ]
+    res = [_pred("best", 1.0, miss=0.002), _pred("other", 600.0), _pred("old", 500.0)]
+    assert calibration_rows(rows, res)["P"]["row"] == "other"
+    far = [_pred(r["id"], 1.0, miss=0.002) for r in rows]
+    cal = calibration_rows(rows, far)["P"]
+    assert cal["factor"] is None and "inside the modelled trail" in cal["reason"]
+
+
+@pytest.mark.invariant
 def test_a_parent_with_one_outburst_is_not_calibrated():
     rows = [_row("only", 1999, zhr=3700, dz=370), _row("quiet", 2006, zhr=20, outburst=False)]
     res = [_pred("only", 100.0), _pred("quiet", 70.0)]
