@@ -223,7 +223,9 @@ OPTIONS: tuple[Option, ...] = (
         int,
         _engine_default(_FO, "trails"),
         "only these trails, by perihelion year (list; on the command line 1899,1932); each "
-        f"at most {MAX_TRAIL_AGE_YEARS:g} years before 1800 and before the last forecast year",
+        f"at most {MAX_TRAIL_AGE_YEARS:g} years before 1800 and before the last forecast year; "
+        "a year without a return of its own names the nearest return within a quarter period "
+        "(the notes say so)",
         "ForecastOptions.trails",
         max_items=MAX_NAMED_TRAILS,
         nullable=True,
