@@ -132,9 +132,6 @@ JORDA_LOGQ_ZERO = 30.675
 JORDA_LOGQ_SLOPE = 0.2453
 #: Mass of a water molecule (g): 18.015 u (IUPAC) x 1.66053906660e-24 g (CODATA 2018).
 WATER_MOLECULE_G = 18.015 * 1.66053906660e-24
-#: Default K1 of the total-magnitude law m_h = M1 + K1 log10 r (the usual n = 4, K1 = 2.5 n;
-#: common practice, no source).
-DEFAULT_K1 = 10.0
 
 
 def water_production_per_s(m1, k1, r_au):

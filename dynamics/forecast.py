@@ -115,7 +115,8 @@ REFINE_BELOW_HIT_FRACTION = 0.5
 #: Earth's path by more than PROBE_STOP_SE standard errors of that median (it cannot be an
 #: encounter) and either none of them came within NEAR_MISS_MAX_AU or the trail is compact
 #: (median beyond the limit by more than PROBE_STOP_SE of its 16-84 % half-widths: a scattered
-#: old trail's tail can reach Earth when its median does not), or when a uniform-fallback sample has no meteoroid at Earth's passage at all.
+#: old trail's tail can reach Earth when its median does not), or when a uniform-fallback
+#: sample has no meteoroid at Earth's passage at all.
 #: Old trails that pass far away then cost a quarter of the budget instead of up to four.
 #: No source: a cost rule, not a physical one.
 PROBE_FRACTION = 0.25

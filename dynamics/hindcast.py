@@ -65,7 +65,8 @@ CALIBRATION_RULE = (
     "predicted crossing puts Earth inside the modelled trail (the engine's distance test: within "
     "0.005 au and within 3 cross-section widths plus Earth's radius; elsewhere the ratio "
     "measures the trail's position, not its dust), the one with the smallest relative "
-    "uncertainty of its observed ZHR (ties and missing uncertainties: the most recent). Its observed/predicted ZHR ratio multiplies every other row of that parent; the "
+    "uncertainty of its observed ZHR (ties and missing uncertainties: the most recent). Its "
+    "observed/predicted ZHR ratio multiplies every other row of that parent; the "
     "calibration row itself is left out of the calibrated scores; parents with a single outburst "
     "row stay in absolute mode."
 )

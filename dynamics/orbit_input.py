@@ -73,6 +73,9 @@ MAX_NAME_LENGTH = 200
 #: Total absolute magnitudes accepted (mag): the brightest comets on record reach M1 of about
 #: -2, the faintest catalogued nuclei about 20 (no source; a wide guard against typing errors).
 MAGNITUDE_RANGE = (-5.0, 25.0)
+#: K1 of the total-magnitude law m = M1 + 5 log10 Delta + K1 log10 r when not given (the usual
+#: n = 4, K1 = 2.5 n; common practice, no source).
+DEFAULT_K1 = 10.0
 #: Largest K1 accepted (2.5 n with n up to 20; catalogued values rarely exceed 30; no source).
 MAX_K1 = 50.0
 #: Most alternative solutions accepted in one input.
@@ -114,7 +117,7 @@ class OrbitInput:
     solutions: tuple["OrbitInput", ...] = ()
     ejection_events: tuple = ()  # dynamics.release.EjectionEvent: break-ups, outbursts
     m1: float | None = None  # total absolute magnitude (mag), None when not given
-    k1: float = 10.0  # its heliocentric slope: m = M1 + 5 log10 Delta + K1 log10 r
+    k1: float = DEFAULT_K1  # its heliocentric slope: m = M1 + 5 log10 Delta + K1 log10 r
 
     @property
     def a_au(self) -> float:
@@ -292,7 +295,7 @@ def parse_orbit(
         nongrav = NonGravParams(*vals)
 
     inherit = _inherit or {}
-    m1, k1 = inherit.get("m1"), inherit.get("k1", 10.0)
+    m1, k1 = inherit.get("m1"), inherit.get("k1", DEFAULT_K1)
     if data.get("m1") is not None:
         m1 = _number(data, "m1", path)
         if not MAGNITUDE_RANGE[0] <= m1 <= MAGNITUDE_RANGE[1]:

@@ -58,7 +58,8 @@ def orbit_json(name: str, entry: dict) -> dict:
     mag = entry.get("magnitude")
     if mag:  # the parent's brightness sets its dust production (absolute mode)
         out["m1"] = mag["m1"]
-        out["k1"] = mag.get("k1", 10.0)
+        if mag.get("k1") is not None:
+            out["k1"] = mag["k1"]
     return out
 
 
