@@ -115,8 +115,22 @@ class SolutionsResult:
         base["near_misses"] = [row for _, _, row in self.merged_rows("near_misses")]
         base["solutions"] = self.parents()
         base["solution_summary"] = self.summary()
-        base["notes"] = sorted({n for r in self.results for n in r.notes})
+        base["notes"] = self.merged_notes()
+        base["trails"] = [  # every solution's stated outcome per trail passage, labelled
+            dict(t, solution=label)
+            for label, res in zip(self.labels, self.results, strict=True)
+            for t in res.trails
+        ]
         return base
+
+    def merged_notes(self) -> list[str]:
+        """Notes of every solution: those all solutions share once, the others prefixed with
+        the solution they belong to (in the order of the solutions)."""
+        shared = set.intersection(*(set(r.notes) for r in self.results))
+        out = [n for n in self.results[0].notes if n in shared]
+        for label, res in zip(self.labels, self.results, strict=True):
+            out += [f"{label}: {n}" for n in res.notes if n not in shared]
+        return list(dict.fromkeys(out))
 
 
 def orbit_solutions(orbit: OrbitInput, clones: int = DEFAULT_CLONES, seed: int = 1):

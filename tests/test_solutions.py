@@ -47,6 +47,12 @@ def test_two_solutions_side_by_side_with_explained_differences(two_solutions):
         )
     table = forecast_table(out)
     assert "How the solutions differ" in table and "solution-1" in table
+    # every solution states what became of each of its trail passages, and a note that only
+    # one solution has says which one
+    assert {t["solution"] for t in out["trails"]} == {"nominal", "solution-1"}
+    per = [n for r in two_solutions.results for n in r.notes]
+    for n in out["notes"]:
+        assert n in per or n.split(": ", 1)[1] in per
 
 
 def test_covariance_clones_are_reproducible_and_spread():
