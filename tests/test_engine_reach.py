@@ -60,8 +60,8 @@ def test_long_period_parent_keeps_its_previous_return_in_scope():
 def test_a_named_trail_year_finds_the_nearest_return_and_says_so():
     # Published trail years come from other integrations of the parent: one return may be dated
     # a year (or, thousands of years back, decades) apart. A named year with no return of its
-    # own is the nearest return within half the spacing of returns, with a note; a year far
-    # from every return is not matched.
+    # own is the nearest return within a quarter of the spacing of returns, with a note; a
+    # year about halfway between two returns is not matched.
     y0, _ = calendar_year_tdb_jd(2000)
     _, y1 = calendar_year_tdb_jd(2000)
     tp = [calendar_year_tdb_jd(y)[0] + 340.0 for y in (1364, 1377, 1391, 1405)]  # ~13.6 yr
@@ -280,8 +280,9 @@ def _crossings_at(miss_au, lag_days):
 def test_targets_stop_only_when_they_cannot_be_an_encounter():
     # The cost rule that ends a target's rounds early: only when the median miss distance of
     # its meteoroids at Earth's passage exceeds the encounter limit by 3 standard errors of a
-    # median (sqrt(pi/2) sigma / sqrt(n), a textbook large-sample result), or when a uniform
-    # sample met Earth's passage not at all.
+    # median (sqrt(pi/2) sigma / sqrt(n), a textbook large-sample result) and the trail is
+    # compact or none of them came within the near-miss distance, or when a uniform sample met
+    # Earth's passage not at all.
     from dynamics.forecast import ENCOUNTER_MAX_MISS_AU, PROBE_MIN_HITS, _enough_said
 
     opts = ForecastOptions(1999, 1999, workers=1)
