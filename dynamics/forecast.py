@@ -990,9 +990,8 @@ def _enough_said(tg: Target, parts, options) -> str | None:
     miss = cr.miss_distance_au[hit]
     m = abs(float(np.median(miss)))
     q16, q84 = np.percentile(miss, [16, 84])
-    # standard error of a median: sqrt(pi/2) sigma / sqrt(n)
-    se = np.sqrt(np.pi / 2.0) * 0.5 * float(q84 - q16) / np.sqrt(k)
     sigma = 0.5 * float(q84 - q16)
+    se = np.sqrt(np.pi / 2.0) * sigma / np.sqrt(k)  # standard error of a median
     # a scattered trail (its median no farther than a few spreads) whose tail already reached
     # Earth's neighbourhood can still hold an encounter: the median says nothing of its tail
     tail_near = bool(np.any(np.abs(miss) <= NEAR_MISS_MAX_AU)) and (
