@@ -122,6 +122,13 @@ REFINE_BELOW_HIT_FRACTION = 0.5
 PROBE_FRACTION = 0.25
 PROBE_MIN_HITS = 10
 PROBE_STOP_SE = 3.0
+#: A target also stops when Earth's path lies farther from the median miss of its meteoroids
+#: at Earth's passage than this many widths of the whole trail (the larger of the 16-84 %
+#: half-range and the 2.5-97.5 % quarter-range of every size together, so a heavy tail or a
+#: second strand widens it): a Gaussian tube gives exp(-32) ~ 1e-14 of its central density
+#: there, below any ZHR level even for a storm-strength centre; more meteoroids would only
+#: sharpen a negligible number. No source: a cost rule, not a physical one.
+PROBE_STOP_WIDTHS = 8.0
 #: Crossings farther than NEAR_MISS_MAX_AU are "distant"; no meteoroid within the window of
 #: Earth's passage at all: "not reached".
 
@@ -1001,6 +1008,14 @@ def _enough_said(tg: Target, parts, options) -> str | None:
         return (
             f"{k} of {n} meteoroids met Earth's passage {m:.4f} au (+-{se:.4f}) from Earth's path "
             f"on median, beyond the encounter limit of {ENCOUNTER_MAX_MISS_AU:g} au"
+        )
+    q2, q98 = np.percentile(miss, [2.5, 97.5])
+    width = max(sigma, 0.25 * float(q98 - q2))
+    if width > 0 and m > PROBE_STOP_WIDTHS * width:
+        return (
+            f"{k} of {n} meteoroids met Earth's passage {m:.4f} au from Earth's path on median, "
+            f"{m / width:.0f} trail widths ({width:.5f} au) away: beyond "
+            f"{PROBE_STOP_WIDTHS:g} widths its activity at Earth is negligible"
         )
     return None
 

@@ -304,6 +304,15 @@ def test_targets_stop_only_when_they_cannot_be_an_encounter():
     # ... but the same scatter with no meteoroid within the near-miss distance stops
     empty = np.where(np.abs(spread) < 0.06, 0.06, spread)
     assert "beyond the encounter limit" in _enough_said(tg, [_crossings_at(empty, lag)], opts)
+    # a compact trail inside the encounter limit but 12 of its widths from Earth: its density
+    # there is negligible, stop and say so; 3 widths away it goes on
+    compact = _crossings_at(0.0025 + 0.0002 * rng.standard_normal(75), lag)
+    assert "trail widths" in _enough_said(tg, [compact], opts)
+    wide = _crossings_at(0.0025 + 0.0008 * rng.standard_normal(75), lag)
+    assert _enough_said(tg, [wide], opts) is None
+    # ... and a compact core with a tail toward Earth (a second strand) widens the trail
+    strand = np.r_[0.0025 + 0.0002 * rng.standard_normal(70), 0.0002 * rng.standard_normal(5)]
+    assert _enough_said(tg, [_crossings_at(strand, lag)], opts) is None
     # too few meteoroids at Earth's passage to judge: go on
     few = _crossings_at(np.full(75, 0.03), np.r_[np.zeros(PROBE_MIN_HITS - 1), np.full(66, 60.0)])
     assert _enough_said(tg, [few], opts) is None
