@@ -12,21 +12,15 @@ the service, notebooks) are expected to need.
 
 from .activity import zhr_from_flux
 from .errors import InvalidOrbit, InvalidTime, OutsideTimeSpan, TrailcastError
-from .forecast import (
-    Calibration,
-    EjectionEvent,
-    ForecastOptions,
-    ForecastResult,
-    TrailEncounter,
-    forecast,
-)
+from .forecast import Calibration, ForecastOptions, ForecastResult, forecast
 from .geometry import quick_look
 from .history import FirstPassage, parent_history
 from .moid import moid
 from .observing import Site, expected_hourly_rate, site_view, world_view
 from .orbit_input import OrbitInput, parse_orbit
-from .release import EjectionModel
+from .release import EjectionEvent, EjectionModel
 from .solar_longitude import solar_longitude_deg, times_of_solar_longitude_tdb
+from .summaries import TrailEncounter
 from .timescales import format_utc, iso_to_tdb_jd
 from .uncertainty import SolutionsResult, forecast_solutions
 

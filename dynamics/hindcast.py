@@ -30,13 +30,8 @@ from .api import (
 )
 from .constants import DAYS_PER_JULIAN_YEAR
 from .executors import process_pool
-from .forecast import (
-    EARTH_RADIUS_AU,
-    ENCOUNTER_MAX_MISS_AU,
-    ENCOUNTER_SIGMAS,
-    classify,
-    match_trail_years,
-)
+from .outcomes import EARTH_RADIUS_AU, ENCOUNTER_MAX_MISS_AU, ENCOUNTER_SIGMAS, classify
+from .scope import match_trail_years
 from .summaries import year_of
 
 #: Peak offsets within this many minutes count as a timing success in the summary (the issue's

@@ -60,9 +60,10 @@ import numpy as np
 from . import __version__
 from .errors import ComputationStopped, TrailcastError
 from .executors import process_pool
-from .forecast import CAUTIONS, NODE_MAX_DISTANCE_AU, ForecastOptions, forecast
+from .forecast import CAUTIONS, ForecastOptions, forecast
 from .geometry import TRAIL_SIMULATION_MOID_AU, earth_orbit_at, moid_many_vs_earth, nodes_many
 from .orbit_input import OrbitInput
+from .targeting import NODE_MAX_DISTANCE_AU
 
 __all__ = [
     "SCREENING_VERSION",

@@ -24,17 +24,15 @@ from dynamics.activity import (
     zhr_from_flux,
 )
 from dynamics.constants import AU_KM, KM_S_PER_AU_DAY
-from dynamics.forecast import (
+from dynamics.forecast import Calibration, ForecastOptions, forecast
+from dynamics.orbit_input import parse_orbit
+from dynamics.outcomes import (
     EARTH_RADIUS_AU,
     ENCOUNTER_MAX_MISS_AU,
     ENCOUNTER_SIGMAS,
     NEAR_MISS_MAX_AU,
-    Calibration,
-    ForecastOptions,
-    forecast,
-    with_dust_production,
 )
-from dynamics.orbit_input import parse_orbit
+from dynamics.scope import with_dust_production
 from dynamics.timescales import iso_to_tdb_jd
 
 # Koschack & Rendtel (1990, WGN 18, 44 and 119), from memory: the flux of meteoroids giving

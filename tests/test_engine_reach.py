@@ -10,12 +10,14 @@ from reference_cases import PARENT_55P
 
 from dynamics.crossings import closest_approaches
 from dynamics.ephemeris import barycentric_states, heliocentric_state
-from dynamics.forecast import ForecastOptions, _seed_for, _trails_in_scope
+from dynamics.forecast import ForecastOptions
 from dynamics.history import ParentReturn, parent_history
 from dynamics.nbody import MASSIVE_BODIES, ParentSimulation, massive_bodies_from_ephemeris
 from dynamics.orbit_input import parse_orbit
 from dynamics.orbits import Elements
 from dynamics.release import EjectionEvent, EjectionModel, draw_candidates
+from dynamics.sampling import seed_for
+from dynamics.scope import trails_in_scope
 from dynamics.targeting import ArrivalMap, Target, predicted_offset, select_for_window
 from dynamics.timescales import calendar_year_tdb_jd
 
@@ -26,9 +28,9 @@ AU_KM = 149_597_870.7  # IAU 2012 B2
 @pytest.mark.parametrize("tp", [2451545.0, 0.4, -7_300_000.0, -1e7 + 0.5])
 def test_trail_seed_works_for_any_date(tp):
     # a perihelion 20,000 years ago has a negative Julian date; it must still seed the draws
-    rng = np.random.default_rng(_seed_for(1, tp))
+    rng = np.random.default_rng(seed_for(1, tp))
     assert 0.0 <= rng.random() < 1.0
-    assert _seed_for(1, tp).entropy == _seed_for(1, tp).entropy  # reproducible
+    assert seed_for(1, tp).entropy == seed_for(1, tp).entropy  # reproducible
 
 
 def _ret(tp, active=True):
@@ -46,11 +48,11 @@ def test_long_period_parent_keeps_its_previous_return_in_scope():
     returns = (_ret(y0 - 2004 * 365.25), _ret(y0 - 4 * 365.25))
     opts = ForecastOptions(2030, 2040, workers=1)
     t_min = y0 - opts.max_trail_age_years * 365.25
-    ids, notes = _trails_in_scope(returns, opts, t_min, y0, y1)
+    ids, notes = trails_in_scope(returns, opts, t_min, y0, y1)
     assert ids == [0, 1]
     # and a short-period parent's old returns beyond the limit are left out, with a word
     many = tuple(_ret(y0 - k * 33.0 * 365.25) for k in range(30, 0, -1))
-    ids, notes = _trails_in_scope(many, opts, t_min, y0, y1)
+    ids, notes = trails_in_scope(many, opts, t_min, y0, y1)
     kept_ages = [(y0 - many[k].tp_tdb_jd) / 365.25 for k in ids]
     assert max(kept_ages) <= opts.max_trail_age_years
     assert any("beyond the trail-age limit" in n for n in notes)
@@ -67,11 +69,11 @@ def test_a_named_trail_year_finds_the_nearest_return_and_says_so():
     tp = [calendar_year_tdb_jd(y)[0] + 340.0 for y in (1364, 1377, 1391, 1405)]  # ~13.6 yr
     returns = tuple(_ret(t) for t in tp)
     opts = ForecastOptions(2000, 2000, trails=(1392, 1405), workers=1)
-    ids, notes = _trails_in_scope(returns, opts, y0 - 700 * 365.25, y0, y1)
+    ids, notes = trails_in_scope(returns, opts, y0 - 700 * 365.25, y0, y1)
     assert ids == [2, 3]
     assert any("1392" in n and "1391" in n for n in notes)
     far = ForecastOptions(2000, 2000, trails=(1384,), workers=1)  # 7 yr from 1377 and 1391
-    ids, notes = _trails_in_scope(returns, far, y0 - 700 * 365.25, y0, y1)
+    ids, notes = trails_in_scope(returns, far, y0 - 700 * 365.25, y0, y1)
     assert ids == []
     assert any("no active parent return" in n for n in notes)
 
@@ -283,43 +285,44 @@ def test_targets_stop_only_when_they_cannot_be_an_encounter():
     # median (sqrt(pi/2) sigma / sqrt(n), a textbook large-sample result) and the trail is
     # compact or none of them came within the near-miss distance, or when a uniform sample met
     # Earth's passage not at all.
-    from dynamics.forecast import ENCOUNTER_MAX_MISS_AU, PROBE_MIN_HITS, _enough_said
+    from dynamics.outcomes import ENCOUNTER_MAX_MISS_AU
+    from dynamics.sampling import PROBE_MIN_HITS, enough_said
 
     opts = ForecastOptions(1999, 1999, workers=1)
     tg = Target(0, 1999, "descending", 2451500.5, 3, 2451500.0, 12000.0, 12000.0)
     rng = np.random.default_rng(3)
     lag = rng.uniform(-5, 5, 75)
     far = _crossings_at(0.02 + 0.003 * rng.standard_normal(75), lag)
-    assert "beyond the encounter limit" in _enough_said(tg, [far], opts)
+    assert "beyond the encounter limit" in enough_said(tg, [far], opts)
     # a trail centred just outside the limit, wide: the median is not sure enough to stop
     edge = _crossings_at(ENCOUNTER_MAX_MISS_AU + 0.001 + 0.01 * rng.standard_normal(75), lag)
-    assert _enough_said(tg, [edge], opts) is None
+    assert enough_said(tg, [edge], opts) is None
     # an encounter-like trail never stops
     near = _crossings_at(0.0005 + 0.001 * rng.standard_normal(75), lag)
-    assert _enough_said(tg, [near], opts) is None
+    assert enough_said(tg, [near], opts) is None
     # an old, scattered trail: the median is 2 au away, but the spread reaches Earth's path and
     # one meteoroid crossed 0.006 au from it: its tail can still give an encounter, go on
     spread = np.r_[2.0 + 1.5 * rng.standard_normal(74), 0.006]
-    assert _enough_said(tg, [_crossings_at(spread, lag)], opts) is None
+    assert enough_said(tg, [_crossings_at(spread, lag)], opts) is None
     # ... but the same scatter with no meteoroid within the near-miss distance stops
     empty = np.where(np.abs(spread) < 0.06, 0.06, spread)
-    assert "beyond the encounter limit" in _enough_said(tg, [_crossings_at(empty, lag)], opts)
+    assert "beyond the encounter limit" in enough_said(tg, [_crossings_at(empty, lag)], opts)
     # a compact trail inside the encounter limit but 12 of its widths from Earth: its density
     # there is negligible, stop and say so; 3 widths away it goes on
     compact = _crossings_at(0.0025 + 0.0002 * rng.standard_normal(75), lag)
-    assert "trail widths" in _enough_said(tg, [compact], opts)
+    assert "trail widths" in enough_said(tg, [compact], opts)
     wide = _crossings_at(0.0025 + 0.0008 * rng.standard_normal(75), lag)
-    assert _enough_said(tg, [wide], opts) is None
+    assert enough_said(tg, [wide], opts) is None
     # ... and a compact core with a tail toward Earth (a second strand) widens the trail
     strand = np.r_[0.0025 + 0.0002 * rng.standard_normal(70), 0.0002 * rng.standard_normal(5)]
-    assert _enough_said(tg, [_crossings_at(strand, lag)], opts) is None
+    assert enough_said(tg, [_crossings_at(strand, lag)], opts) is None
     # too few meteoroids at Earth's passage to judge: go on
     few = _crossings_at(np.full(75, 0.03), np.r_[np.zeros(PROBE_MIN_HITS - 1), np.full(66, 60.0)])
-    assert _enough_said(tg, [few], opts) is None
+    assert enough_said(tg, [few], opts) is None
     # a uniform fallback sample that met Earth's passage not at all: said, and stopped
     tg.selection_mode = "uniform fallback (shooting found no arrival at Earth's passage)"
     none = _crossings_at(np.full(75, 0.03), np.full(75, 90.0))
-    assert "none within" in _enough_said(tg, [none], opts)
+    assert "none within" in enough_said(tg, [none], opts)
 
 
 @pytest.mark.invariant
@@ -330,7 +333,7 @@ def test_a_plateau_finer_than_the_pilot_is_sampled_around_its_hits():
     # Earth's passage; its neighbours 100 d early and late. Candidates of its beta class
     # closer to it than its nearest neighbour (|x| < 100 d) are the eligible ones, picked at
     # random in pool order with their inclusion probability; other classes are not.
-    from dynamics.forecast import _around_hits
+    from dynamics.sampling import around_hits
 
     opts = ForecastOptions(1999, 1999, workers=1)
     tg = Target(0, 1999, "descending", 2451500.5, 20, 2451500.0, 12000.0, 12000.0)
@@ -340,14 +343,14 @@ def test_a_plateau_finer_than_the_pilot_is_sampled_around_its_hits():
     tg.x_pool = np.linspace(-150.0, 150.0, 301)
     tg.cls = np.r_[np.zeros(151, dtype=int), np.ones(150, dtype=int)]  # x > 0: another class
     taken = np.zeros(301, dtype=bool)
-    pick, eligible, frac = _around_hits(tg, opts, taken, budget=40)
+    pick, eligible, frac = around_hits(tg, opts, taken, budget=40)
     assert np.all(np.abs(tg.x_pool[eligible]) < 100.0) and np.all(tg.cls[eligible] == 0)
     assert len(eligible) == 100  # x = -99 .. 0, class 0
     assert len(pick) == 40 and frac == pytest.approx(0.4)
     assert "around the 1 meteoroid that" in tg.selection_mode
     # no meteoroid met Earth's passage: nothing to sample around
     tg.y_seen = np.array([-300.0, 50.0, 310.0])
-    pick, eligible, frac = _around_hits(tg, opts, taken, budget=40)
+    pick, eligible, frac = around_hits(tg, opts, taken, budget=40)
     assert len(pick) == 0 and frac == 0.0
 
 
@@ -356,11 +359,11 @@ def test_a_plateau_finer_than_the_pilot_is_sampled_around_its_hits():
 def test_chunks_keep_every_worker_busy_and_every_meteoroid_once(n, workers):
     # 750 meteoroids in chunks of at most 250 on 2 workers: 4 chunks, not 3 (one worker idle a
     # third of the time); every meteoroid in exactly one chunk, in order.
-    from dynamics.forecast import _chunks
+    from dynamics.sampling import chunks
 
     opts = ForecastOptions(1999, 1999, workers=workers, chunk_size=250)
     pick = np.arange(n) * 3
-    chunks = _chunks(pick, opts)
+    chunks = chunks(pick, opts)
     assert np.array_equal(np.concatenate([c for _, c in chunks]), pick)
     assert all(len(c) <= 250 for _, c in chunks)
     if n >= workers:

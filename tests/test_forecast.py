@@ -10,15 +10,10 @@ import pytest
 from reference_cases import PARENT_55P
 
 from dynamics.activity import ENCOUNTER_MIN_ZHR
-from dynamics.forecast import (
-    EARTH_RADIUS_AU,
-    ENCOUNTER_MAX_MISS_AU,
-    ENCOUNTER_SIGMAS,
-    ForecastOptions,
-    forecast,
-)
+from dynamics.forecast import ForecastOptions, forecast
 from dynamics.frames import angular_separation_deg
 from dynamics.orbit_input import parse_orbit
+from dynamics.outcomes import EARTH_RADIUS_AU, ENCOUNTER_MAX_MISS_AU, ENCOUNTER_SIGMAS
 from dynamics.summaries import year_of, zhr_value
 from dynamics.timescales import iso_to_tdb_jd
 

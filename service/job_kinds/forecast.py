@@ -113,7 +113,7 @@ def classification_of(encounter: dict, listed_as: str) -> dict:
     if isinstance(c, dict) and c.get("label"):
         return c
     from dynamics.activity import ENCOUNTER_MIN_ZHR, classify_crossing
-    from dynamics.forecast import (
+    from dynamics.outcomes import (
         EARTH_RADIUS_AU,
         ENCOUNTER_MAX_MISS_AU,
         ENCOUNTER_SIGMAS,

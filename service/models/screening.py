@@ -9,8 +9,8 @@ from typing import Any
 
 from pydantic import Field, create_model, model_validator
 
-from dynamics.forecast import NODE_MAX_DISTANCE_AU
 from dynamics.geometry import TRAIL_SIMULATION_MOID_AU
+from dynamics.targeting import NODE_MAX_DISTANCE_AU
 
 from ..job_kinds.screening import canonical_screening_request
 from ..options import BY_NAME, SCREEN, SCREENING_OPTIONS

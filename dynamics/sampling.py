@@ -1,0 +1,497 @@
+"""Which meteoroids are integrated for each trail passage, and when to stop.
+
+Per target (a trail's passage near Earth in a year): a pilot spread over predicted arrivals,
+widened until integrated arrivals bracket Earth's passage; a targeted candidate pool where the
+natural one is too thin (one-revolution dust of long-period parents); then a probe round, the
+rest of the budget and refinement rounds, each picked through the arrival map with its
+inclusion probability (Horvitz-Thompson weights), and the stop rule that ends a passage that
+cannot be an encounter. Integration tasks are built here and run by :mod:`~dynamics.executors`.
+"""
+
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from .constants import GM_SUN_AU3_D2
+from .crossings import Crossings
+from .executors import Task, run_tasks
+from .history import ParentReturn
+from .nbody import step_grid
+from .outcomes import ENCOUNTER_MAX_MISS_AU, NEAR_MISS_MAX_AU
+from .release import (
+    Candidates,
+    EjectionEvent,
+    EjectionModel,
+    draw_candidates,
+)
+from .targeting import (
+    BETA_CLASSES,
+    PILOT_EXPANSION_FACTOR,
+    PILOT_EXPANSION_PARTICLES,
+    PILOT_EXPANSIONS,
+    ArrivalMap,
+    Target,
+    beta_classes,
+    pilot_pick,
+    predicted_offset,
+    select_for_window,
+)
+
+#: Extra selection rounds for a trail whose meteoroids mostly missed Earth's passage: each
+#: re-maps predicted to real arrivals with everything integrated so far (old, strongly perturbed
+#: trails need them). No source.
+REFINEMENT_ROUNDS = 3
+#: Targeted candidate batches (of ``options.candidates``) drawn for a target at most, and the
+#: margin (days of predicted arrival) added around the mapped window (no source).
+TARGETED_BATCHES = 4
+TARGETED_MARGIN_DAYS = 60.0
+#: Pilot output step (days) per day of pilot half-span: arrivals far from Earth's passage are
+#: extrapolated along the osculating orbit from the nearest output (no source).
+PILOT_STEP_PER_SPAN = 1.0 / 40.0
+#: Smallest pilot output step (days), the pilot's starting half-span per revolution (days:
+#: older trails scatter more) and the margin of pilot outputs beyond its span (days). No source.
+PILOT_MIN_STEP_DAYS = 5.0
+PILOT_SPAN_PER_REVOLUTION_DAYS = 30.0
+PILOT_OUTPUT_MARGIN_DAYS = 40.0
+#: The pilot steps this many times the forecast's step (WHFast only): its arrivals only place
+#: the arrival map, where days matter, not minutes. Domain notes (measured here): WHFast at
+#: 1 d stays within 6e-5 au of IAS15 over 100 years, vs 1.5e-5 au at 0.5 d.
+PILOT_DT_FACTOR = 2.0
+#: Main integrations write states every MAIN_STEP_DAYS over the window plus this margin (days):
+#: a crossing is computed from the state nearest it (no source).
+MAIN_STEP_DAYS = 2.0
+MAIN_OUTPUT_MARGIN_DAYS = 30.0
+#: A target is refined when fewer than this fraction of its meteoroids met Earth's passage.
+REFINE_BELOW_HIT_FRACTION = 0.5
+#: The first selection round of every target is a probe of this fraction of its budget. After
+#: it and after every later round a target stops when its meteoroids at Earth's passage (at
+#: least PROBE_MIN_HITS of them) cross, on median, farther than ENCOUNTER_MAX_MISS_AU from
+#: Earth's path by more than PROBE_STOP_SE standard errors of that median (it cannot be an
+#: encounter) and either none of them came within NEAR_MISS_MAX_AU or the trail is compact
+#: (median beyond the limit by more than PROBE_STOP_SE of its 16-84 % half-widths: a scattered
+#: old trail's tail can reach Earth when its median does not), or when a uniform-fallback
+#: sample has no meteoroid at Earth's passage at all.
+#: Old trails that pass far away then cost a quarter of the budget instead of up to four.
+#: No source: a cost rule, not a physical one.
+PROBE_FRACTION = 0.25
+PROBE_MIN_HITS = 10
+PROBE_STOP_SE = 3.0
+#: A target also stops when Earth's path lies farther from the median miss of its meteoroids
+#: at Earth's passage than this many widths of the whole trail (the larger of the 16-84 %
+#: half-range and the 2.5-97.5 % quarter-range of every size together, so a heavy tail or a
+#: second strand widens it): a Gaussian tube gives exp(-32) ~ 1e-14 of its central density
+#: there, below any ZHR level even for a storm-strength centre; more meteoroids would only
+#: sharpen a negligible number. No source: a cost rule, not a physical one.
+PROBE_STOP_WIDTHS = 8.0
+
+
+@dataclass
+class Trail:
+    """One parent return's candidate pool and how it was made."""
+
+    ret: ParentReturn
+    pool: Candidates
+    model: EjectionModel
+    n_drawn: int
+    event: EjectionEvent | None
+    cls: np.ndarray = field(repr=False)
+    edges: np.ndarray = field(repr=False, default_factory=lambda: np.zeros(0))
+
+
+def seed_for(seed: int, tp_tdb_jd: float, batch: int = 0) -> np.random.SeedSequence:
+    """Seed of a trail's draws: the user's seed and the trail's perihelion day (any date, also
+    before JD 0, maps to a non-negative integer), and the batch of candidates."""
+    key = [int(seed), int(round(tp_tdb_jd)) % 2**32]
+    return np.random.SeedSequence(key + [batch] if batch else key)
+
+
+def pilot(targets, trails, options, executor, say) -> int:
+    """Integrate pilot meteoroids per target, widening the span until arrivals bracket Earth's
+    passage (at most PILOT_EXPANSIONS times). Returns the number integrated."""
+    integrated = 0
+    per_class = max(4, options.pilot_particles // BETA_CLASSES)
+    pilot_options = options
+    if options.integrator == "whfast":
+        pilot_options = replace(options, dt_days=PILOT_DT_FACTOR * options.dt_days)
+    todo = []
+    for ti, tg in enumerate(targets):
+        tr = trails[tg.trail]
+        tg.span_days = max(
+            options.pilot_window_days, PILOT_SPAN_PER_REVOLUTION_DAYS * tg.revolutions
+        )
+        tg.pool, tg.cls, tg.n_drawn = tr.pool, tr.cls, tr.n_drawn
+        tg.keep_prob = np.ones(len(tr.pool))
+        x = predicted_offset(tr.pool, tg)
+        todo.append((ti, -tg.span_days, tg.span_days, per_class))
+        tg.x_pool = x
+    for round_ in range(1 + PILOT_EXPANSIONS):
+        tasks, meta = [], []
+        for ti, lo, hi, n_cls in todo:
+            tg = targets[ti]
+            tr = trails[tg.trail]
+            seen = np.zeros(len(tr.pool), dtype=bool)
+            seen[tg.idx_seen] = True
+            pick = pilot_pick(tg.x_pool, tr.cls, lo, hi, n_cls, seen)
+            if len(pick) == 0:
+                continue
+            tg.pilot_rounds += 1
+            half = tg.span_days + PILOT_OUTPUT_MARGIN_DAYS
+            step = max(PILOT_MIN_STEP_DAYS, tg.span_days * PILOT_STEP_PER_SPAN)
+            out_t = output_times(tr.ret, tg.t_earth, half, step, pilot_options.dt_days)
+            add_tasks(
+                tasks,
+                meta,
+                ("pilot", ti, round_),
+                ti,
+                pick,
+                tr.pool,
+                tr.ret,
+                out_t,
+                pilot_options,
+                tg.node,
+            )
+        if not tasks:
+            break
+        say(0.1 + 0.04 * round_, "pilot integration")
+        results = run_tasks(tasks, executor)
+        integrated += sum(len(t.beta) for t in tasks)
+        for (ti, sub), cr in zip(meta, results, strict=True):  # crossings, from the workers
+            _record(targets[ti], trails[targets[ti].trail], sub, cr)
+        todo = []
+        for ti, tg in enumerate(targets):
+            if round_ >= PILOT_EXPANSIONS or len(tg.idx_seen) == 0:
+                continue
+            ok, side = ArrivalMap(tg.x_seen, tg.y_seen, tg.c_seen, BETA_CLASSES).brackets()
+            if ok or side == 0:
+                continue
+            old = tg.span_days
+            tg.span_days = old * PILOT_EXPANSION_FACTOR
+            n_cls = max(2, PILOT_EXPANSION_PARTICLES // BETA_CLASSES)
+            if side < 0:  # every meteoroid arrived late: look at earlier predicted arrivals
+                todo.append((ti, -tg.span_days, float(np.nanmin(tg.x_seen)) - 1e-9, n_cls))
+            else:
+                todo.append((ti, float(np.nanmax(tg.x_seen)) + 1e-9, tg.span_days, n_cls))
+    return integrated
+
+
+def targeted_pools(targets, trails, options) -> None:
+    """Give a target its own pool of candidates drawn on the period window that reaches
+    Earth's passage, when the trail's natural pool leaves fewer eligible than the budget.
+
+    One-revolution dust of a long-period parent spreads over centuries of arrival, so only a
+    few in 10,000 natural candidates land within weeks of Earth's passage. The targeted draw
+    (:func:`dynamics.release.draw_candidates` with ``period_window_days``) keeps the release
+    times, sizes and directions of the natural law and draws only speeds that give periods in
+    the window, each candidate weighted by the natural probability of its speed range. The
+    window comes from the arrival map (every predicted offset mapped within the selection
+    window, widened by :data:`TARGETED_MARGIN_DAYS`), inverted through the parent's realised
+    period into a window of 1/a offsets. Batches of ``options.candidates``, at most :data:`TARGETED_BATCHES`, each with its
+    own seed."""
+    for tg in targets:
+        tr = trails[tg.trail]
+        if tg.revolutions == 0 or len(tg.idx_seen) == 0:
+            continue
+        amap = ArrivalMap(tg.x_seen, tg.y_seen, tg.c_seen, BETA_CLASSES)
+        seen = np.zeros(len(tg.pool), dtype=bool)
+        seen[tg.idx_seen] = True
+        _, eligible, _ = select_for_window(
+            amap, tg.x_pool, tg.cls, options.window_days, seen, options.particles
+        )
+        if len(eligible) >= options.particles:
+            continue
+        xs = np.sort(tg.x_seen[np.isfinite(tg.x_seen)])
+        ys = amap(xs, np.full(len(xs), -1))
+        near = xs[np.abs(ys) <= options.window_days]
+        # and every pilot meteoroid that itself met Earth's passage: the running median
+        # smooths away structure narrower than the pilot's spacing (a resonance's plateau);
+        # and the candidates the map puts in the window: a steep branch (an old trail) can
+        # pass through it between two pilot points
+        hit = np.isfinite(tg.y_seen) & (np.abs(tg.y_seen) <= options.window_days)
+        near = np.union1d(near, tg.x_seen[hit & np.isfinite(tg.x_seen)])
+        near = np.union1d(near, tg.x_pool[eligible])
+        if len(near) == 0:
+            continue  # no branch through Earth's passage: the uniform fallback handles it
+        x_lo, x_hi = near.min() - TARGETED_MARGIN_DAYS, near.max() + TARGETED_MARGIN_DAYS
+        d_a, d_b = (_inverse_a_offset_for(tg, x) for x in (x_hi, x_lo))
+        if not (np.isfinite(d_a) and np.isfinite(d_b) and d_a < d_b):
+            continue
+        pools = []
+        for batch in range(1, TARGETED_BATCHES + 1):
+            rng = np.random.default_rng(seed_for(options.seed, tr.ret.tp_tdb_jd, 1000 + batch))
+            pools.append(
+                draw_candidates(
+                    tr.ret,
+                    options.ejection,
+                    options.candidates,
+                    rng,
+                    event=tr.event,
+                    inverse_a_window=(d_a, d_b),
+                )
+            )
+            pool = pools[0] if len(pools) == 1 else _concat_candidates(*pools)
+            x = predicted_offset(pool, tg)
+            cls = beta_classes(pool.beta, tr.edges)
+            y = amap(x, cls)
+            if np.sum(np.isfinite(y) & (np.abs(y) <= options.window_days)) >= options.particles:
+                break
+        tg.pool, tg.cls, tg.x_pool = pool, cls, x
+        tg.n_drawn = batch * options.candidates
+        tg.keep_prob = np.ones(len(pool))
+        tg.targeted_pool = True
+
+
+def _inverse_a_offset_for(tg: Target, x: float) -> float:
+    """Inverse of :func:`dynamics.targeting.predicted_offset` at zero perihelion-time offset:
+    the 1/a offset from the parent's (1/au) that arrives ``x`` days after Earth's passage."""
+    k = 2.0 * np.pi / np.sqrt(GM_SUN_AU3_D2)
+    p_real_dust = tg.p_real_days + (x - (tg.t_parent_node - tg.t_earth)) / tg.revolutions
+    if p_real_dust <= 0:
+        return float("nan")
+    return float((p_real_dust / k) ** (-2 / 3) - (tg.p_real_days / k) ** (-2 / 3))
+
+
+def _concat_candidates(*parts: Candidates) -> Candidates:
+    return Candidates(
+        *(np.concatenate([getattr(p, f) for p in parts]) for f in Candidates.__dataclass_fields__)
+    )
+
+
+def _record(tg: Target, tr: Trail, idx, cr: Crossings) -> None:
+    """Keep what an integration taught about a target's arrival map."""
+    tg.x_seen = np.concatenate([tg.x_seen, tg.x_pool[idx]])
+    tg.y_seen = np.concatenate([tg.y_seen, cr.t_cross_tdb_jd - tg.t_earth])
+    tg.c_seen = np.concatenate([tg.c_seen, tg.cls[idx]])
+    tg.idx_seen = np.concatenate([tg.idx_seen, idx])
+    tg.miss_seen = np.concatenate([tg.miss_seen, cr.miss_distance_au])
+
+
+def main_rounds(targets, trails, options, executor, say, integrated):
+    """A probe round, the targeted integration, then refinement rounds for targets whose
+    meteoroids mostly missed.
+
+    Returns per-target crossings, the pool indices behind them, and the running count of
+    integrated meteoroids.
+    """
+    per_target: dict[int, list] = {}
+    picked: dict[int, list] = {}
+    taken = {ti: np.zeros(len(tg.pool), dtype=bool) for ti, tg in enumerate(targets)}
+    for ti, tg in enumerate(targets):
+        if not tg.targeted_pool:  # pilot meteoroids inform the map, never the activity
+            taken[ti][tg.idx_seen] = True
+        tg.selection_mode = "shooting"
+    probe = max(PROBE_MIN_HITS, int(np.ceil(PROBE_FRACTION * options.particles)))
+    probe = min(probe, options.particles)
+    active = list(range(len(targets)))
+    for round_ in range(2 + REFINEMENT_ROUNDS):  # 0: probe, 1: the rest of the budget
+        budget = probe if round_ == 0 else options.particles - probe if round_ == 1 else None
+        budget = options.particles if budget is None else budget
+        if budget <= 0:  # the probe took the whole (tiny) budget: on to the refinement
+            active = [ti for ti in active if _needs_refinement(per_target.get(ti, []), options)]
+            continue
+        lo, span = (
+            (0.3, 0.1)
+            if round_ == 0
+            else (0.4, 0.35)
+            if round_ == 1
+            else (0.75 + 0.05 * (round_ - 2), 0.05)
+        )
+        say(lo, ("probe", "selection", "refinement")[min(round_, 2)])
+        tasks, meta = [], []
+        for ti in active:
+            tg = targets[ti]
+            tr = trails[tg.trail]
+            amap = ArrivalMap(tg.x_seen, tg.y_seen, tg.c_seen, BETA_CLASSES)
+            pick, eligible, frac = select_for_window(
+                amap, tg.x_pool, tg.cls, options.window_days, taken[ti], budget
+            )
+            fallback = tg.selection_mode.startswith("uniform")
+            if len(pick) == 0 and (round_ == 0 or (fallback and round_ == 1)) and len(tg.idx_seen):
+                # shooting found no branch through Earth's passage: sample the whole pilot
+                # span uniformly instead, so that what is reported rests on real arrivals
+                inside = np.flatnonzero(
+                    (np.abs(tg.x_pool) <= tg.span_days) & np.isfinite(tg.x_pool) & ~taken[ti]
+                )
+                eligible, pick = inside, inside[:budget]
+                frac = len(pick) / max(1, len(inside))
+                tg.selection_mode = (
+                    "uniform fallback (shooting found no arrival at Earth's passage)"
+                )
+            if len(pick) == 0 and round_ >= 1:
+                pick, eligible, frac = around_hits(tg, options, taken[ti], budget)
+            if len(pick) == 0:
+                continue
+            tg.keep_prob[eligible] *= 1.0 - frac
+            taken[ti][pick] = True
+            tg.rounds += 1
+            out_t = output_times(
+                tr.ret,
+                tg.t_earth,
+                options.window_days + MAIN_OUTPUT_MARGIN_DAYS,
+                MAIN_STEP_DAYS,
+                options.dt_days,
+            )
+            add_tasks(
+                tasks,
+                meta,
+                ("main", round_, ti),
+                ti,
+                pick,
+                tg.pool,
+                tr.ret,
+                out_t,
+                options,
+                tg.node,
+            )
+        if not tasks and round_ > 0:
+            break
+        results = run_tasks(
+            tasks,
+            executor,
+            lambda k, n, lo=lo, span=span: say(lo + span * k / n, "integration"),
+        )
+        integrated += sum(len(t.beta) for t in tasks)
+        for (ti, sub), cr in zip(meta, results, strict=True):  # crossings, from the workers
+            tg = targets[ti]
+            per_target.setdefault(ti, []).append(cr)
+            picked.setdefault(ti, []).append(sub)
+            _record(tg, trails[tg.trail], sub, cr)
+        for ti in active:
+            targets[ti].stopped = enough_said(targets[ti], per_target.get(ti, []), options)
+        active = [ti for ti in active if targets[ti].stopped is None]
+        if round_ >= 1:
+            active = [ti for ti in active if _needs_refinement(per_target.get(ti, []), options)]
+    return per_target, picked, integrated
+
+
+def around_hits(tg: Target, options, taken: np.ndarray, budget: int):
+    """Candidates next to the meteoroids that did meet Earth's passage, when the arrival map
+    offers no new ones: (picked, eligible, fraction) as :func:`select_for_window` gives them.
+
+    A running median through sparse pilot pairs cannot follow structure finer than their
+    spacing: a mean-motion resonance holds a narrow range of periods at one arrival time (a
+    plateau of the map a few pilot points wide), and old trails fold. Each meteoroid that met
+    Earth's passage marks such a place; the candidates of its beta class whose predicted
+    offsets lie closer to it than its nearest integrated neighbour (the unresolved gap) are
+    eligible, and a random subset of them is integrated with its inclusion probability.
+    """
+    lag = tg.y_seen
+    hits = np.flatnonzero(np.isfinite(lag) & (np.abs(lag) <= options.window_days))
+    if len(hits) == 0:
+        return np.zeros(0, dtype=int), np.zeros(0, dtype=int), 0.0
+    xs = tg.x_seen
+    near = np.zeros(len(tg.x_pool), dtype=bool)
+    for h in hits:
+        others = np.abs(xs - xs[h])
+        others[h] = np.inf
+        gap = float(np.min(others[np.isfinite(others)], initial=np.inf))
+        if not np.isfinite(gap) or gap <= 0:
+            continue
+        near |= (np.abs(tg.x_pool - xs[h]) < gap) & (tg.cls == tg.c_seen[h])
+    eligible = np.flatnonzero(near & ~taken & np.isfinite(tg.x_pool))
+    if len(eligible) == 0:
+        return eligible, eligible, 0.0
+    pick = eligible[:budget]
+    n = len(hits)
+    tg.selection_mode = (
+        f"shooting, then around the {n} meteoroid{'s' if n != 1 else ''} that met Earth's "
+        "passage (the arrival map is unresolved there)"
+    )
+    return pick, eligible, len(pick) / len(eligible)
+
+
+def enough_said(tg: Target, parts, options) -> str | None:
+    """Why a target needs no more meteoroids (it cannot be an encounter), or None to go on."""
+    if not parts:
+        return None
+    cr = concat_crossings(parts)
+    lag = cr.t_cross_tdb_jd - cr.t_earth_tdb_jd
+    hit = np.isfinite(lag) & (np.abs(lag) <= options.window_days)
+    n, k = len(lag), int(hit.sum())
+    if tg.selection_mode.startswith("uniform") and k == 0:
+        return (
+            f"a uniform sample of {n} meteoroids had none within {options.window_days:g} days "
+            "of Earth's passage"
+        )
+    if k < PROBE_MIN_HITS:
+        return None
+    miss = cr.miss_distance_au[hit]
+    m = abs(float(np.median(miss)))
+    q16, q84 = np.percentile(miss, [16, 84])
+    sigma = 0.5 * float(q84 - q16)
+    se = np.sqrt(np.pi / 2.0) * sigma / np.sqrt(k)  # standard error of a median
+    # a scattered trail (its median no farther than a few spreads) whose tail already reached
+    # Earth's neighbourhood can still hold an encounter: the median says nothing of its tail
+    tail_near = bool(np.any(np.abs(miss) <= NEAR_MISS_MAX_AU)) and (
+        m - ENCOUNTER_MAX_MISS_AU <= PROBE_STOP_SE * sigma
+    )
+    if m - PROBE_STOP_SE * se > ENCOUNTER_MAX_MISS_AU and not tail_near:
+        return (
+            f"{k} of {n} meteoroids met Earth's passage {m:.4f} au (+-{se:.4f}) from Earth's path "
+            f"on median, beyond the encounter limit of {ENCOUNTER_MAX_MISS_AU:g} au"
+        )
+    q2, q98 = np.percentile(miss, [2.5, 97.5])
+    width = max(sigma, 0.25 * float(q98 - q2))
+    if width > 0 and m > PROBE_STOP_WIDTHS * width:
+        return (
+            f"{k} of {n} meteoroids met Earth's passage {m:.4f} au from Earth's path on median, "
+            f"{m / width:.0f} trail widths ({width:.5f} au) away: beyond "
+            f"{PROBE_STOP_WIDTHS:g} widths its activity at Earth is negligible"
+        )
+    return None
+
+
+def _needs_refinement(parts, options) -> bool:
+    """True when fewer than half the meteoroids integrated for a target met Earth's passage."""
+    if not parts:
+        return False
+    lag = np.concatenate([p.t_cross_tdb_jd - p.t_earth_tdb_jd for p in parts])
+    hit = np.isfinite(lag) & (np.abs(lag) <= options.window_days)
+    return hit.sum() < REFINE_BELOW_HIT_FRACTION * min(len(lag), options.particles)
+
+
+def add_tasks(tasks, meta, key, ti, pick, pool, ret, out_t, options, node) -> None:
+    """Append one target's integration chunks (and what each holds) to the run's lists."""
+    for start, sub in chunks(pick, options):
+        tasks.append(make_task((*key, start), ret, pool.take(sub), out_t, options, node))
+        meta.append((ti, sub))
+
+
+def chunks(pick: np.ndarray, options):
+    """Split one target's meteoroids into chunks of at most ``chunk_size``, of near-equal size,
+    their number a multiple of the workers (a lone pilot set would otherwise run on one core,
+    and 750 meteoroids in 3 chunks on 2 workers leave one idle for a third of the time).
+    Meteoroids are test particles: how they are chunked never changes them."""
+    n = len(pick)
+    w = max(1, options.workers)
+    n_chunks = max(-(-n // options.chunk_size), 1)
+    n_chunks = min(n, -(-n_chunks // w) * w) if n >= w else max(n, 1)
+    bounds = np.linspace(0, n, n_chunks + 1).round().astype(int)
+    return [(int(a), pick[a:b]) for a, b in zip(bounds[:-1], bounds[1:], strict=True) if b > a]
+
+
+def output_times(ret: ParentReturn, t_center, half_width, step, dt_days):
+    t0 = ret.bodies_at_arc_start.t_tdb_jd
+    raw = np.arange(t_center - half_width, t_center + half_width + step, step)
+    return np.unique(step_grid(t0, raw, dt_days))
+
+
+def make_task(key, ret: ParentReturn, sel: Candidates, out_t, options, node) -> Task:
+    t0 = ret.bodies_at_arc_start.t_tdb_jd
+    return Task(
+        key=key,
+        bodies=ret.bodies_at_arc_start,
+        release_t=step_grid(t0, sel.release_t_tdb_jd, options.dt_days),
+        r=sel.r_au,
+        v=sel.v_au_d,
+        beta=sel.beta,
+        out_t=out_t,
+        integrator=options.integrator,
+        dt_days=options.dt_days,
+        node=node,
+    )
+
+
+def concat_crossings(parts) -> Crossings:
+    return Crossings(
+        *(np.concatenate([getattr(p, f) for p in parts]) for f in Crossings.__dataclass_fields__)
+    )
