@@ -370,3 +370,50 @@ def test_chunks_keep_every_worker_busy_and_every_meteoroid_once(n, workers):
         assert len(chunks) % workers == 0
     else:
         assert len(chunks) == n
+
+
+@pytest.mark.invariant
+def test_passages_of_one_trail_share_chunks_and_get_their_own_meteoroids_back():
+    # Two passages of one trail (same return, output times and node) share chunks: 30 + 45
+    # meteoroids in 2 chunks on 2 workers, not 4; a third target with other output times gets
+    # its own. Each target gets back exactly its meteoroids, in its pick order, with their own
+    # crossings (the fake worker below returns each meteoroid's release time as its crossing).
+    from types import SimpleNamespace
+
+    from dynamics.crossings import Crossings
+    from dynamics.release import Candidates
+    from dynamics.sampling import batched_tasks, split_results
+
+    def pool(n, t0):
+        z = np.zeros(n)
+        return Candidates(
+            t0 + np.arange(n, dtype=float), np.zeros((n, 3)), np.zeros((n, 3)), z, z, z, z, z, z, z
+        )
+
+    ret = SimpleNamespace(bodies_at_arc_start=SimpleNamespace(t_tdb_jd=0.0))
+    opts = ForecastOptions(1999, 1999, workers=2, chunk_size=250, dt_days=0.5)
+    out_a, out_b = np.array([100.0, 102.0]), np.array([100.0, 104.0])
+    pa, pb = pool(200, 1000.0), pool(200, 5000.0)
+    pick_a, pick_b, pick_c = np.arange(0, 60, 2), np.arange(100, 145), np.arange(10)
+    items = [
+        (0, pick_a, pa, ret, out_a, "descending"),
+        (1, pick_b, pb, ret, out_a, "descending"),
+        (2, pick_c, pa, ret, out_b, "descending"),
+    ]
+    tasks, meta = batched_tasks(("main", 0), items, opts)
+    assert len(tasks) == 4 and sorted(len(t.beta) for t in tasks) == [5, 5, 37, 38]
+
+    def fake(task):
+        n = len(task.beta)
+        f = {k: np.full(n, np.nan) for k in Crossings.__dataclass_fields__}
+        f["t_cross_tdb_jd"] = task.release_t
+        return Crossings(**f)
+
+    back = {}
+    for ti, sub, cr in split_results(meta, [fake(t) for t in tasks]):
+        back.setdefault(ti, []).append((sub, cr.t_cross_tdb_jd))
+    for ti, pick, p in ((0, pick_a, pa), (1, pick_b, pb), (2, pick_c, pa)):
+        sub = np.concatenate([s for s, _ in back[ti]])
+        t = np.concatenate([c for _, c in back[ti]])
+        assert np.array_equal(sub, pick)
+        assert np.allclose(t, p.release_t_tdb_jd[pick])
