@@ -96,7 +96,7 @@ def test_results_do_not_depend_on_chunking():
 def test_whfast_agrees_with_ias15_on_meteoroid_like_orbits():
     # IAS15 is the accuracy reference. Domain measurements (WHFast democratic heliocentric,
     # dt = 0.5 d, 100 years, no corrector): median position difference ~1.5e-5 au; over these
-    # 5 years 1.9e-7 au without the corrector, 2e-10 au with the order-11 corrector the engine
+    # 5 years 1.9e-7 au without the corrector, 2e-10 au with the order-3 corrector the engine
     # uses (measured here). 1e-8 au fails if the corrector is lost.
     tol_au = 1e-8
     bodies = massive_bodies_from_ephemeris(T0)
