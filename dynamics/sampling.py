@@ -61,7 +61,9 @@ PILOT_DT_FACTOR = 2.0
 #: a crossing is computed from the state nearest it (no source).
 MAIN_STEP_DAYS = 2.0
 MAIN_OUTPUT_MARGIN_DAYS = 30.0
-#: A target is refined when fewer than this fraction of its meteoroids met Earth's passage.
+#: A target is refined when fewer than this fraction of its meteoroids met Earth's passage;
+#: a refinement round integrates as many as its hits still fall short of the budget (at least
+#: a probe's worth), not a whole new budget. No source: a cost rule.
 REFINE_BELOW_HIT_FRACTION = 0.5
 #: The first selection round of every target is a probe of this fraction of its budget. After
 #: it and after every later round a target stops when its meteoroids at Earth's passage (at
@@ -300,9 +302,12 @@ def main_rounds(targets, trails, options, executor, say, integrated):
         for ti in active:
             tg = targets[ti]
             tr = trails[tg.trail]
+            n_pick = budget
+            if round_ >= 2:
+                n_pick = refinement_size(per_target.get(ti, []), options, probe)
             amap = ArrivalMap(tg.x_seen, tg.y_seen, tg.c_seen, BETA_CLASSES)
             pick, eligible, frac = select_for_window(
-                amap, tg.x_pool, tg.cls, options.window_days, taken[ti], budget
+                amap, tg.x_pool, tg.cls, options.window_days, taken[ti], n_pick
             )
             fallback = tg.selection_mode.startswith("uniform")
             if len(pick) == 0 and (round_ == 0 or (fallback and round_ == 1)) and len(tg.idx_seen):
@@ -311,13 +316,13 @@ def main_rounds(targets, trails, options, executor, say, integrated):
                 inside = np.flatnonzero(
                     (np.abs(tg.x_pool) <= tg.span_days) & np.isfinite(tg.x_pool) & ~taken[ti]
                 )
-                eligible, pick = inside, inside[:budget]
+                eligible, pick = inside, inside[:n_pick]
                 frac = len(pick) / max(1, len(inside))
                 tg.selection_mode = (
                     "uniform fallback (shooting found no arrival at Earth's passage)"
                 )
             if len(pick) == 0 and round_ >= 1:
-                pick, eligible, frac = around_hits(tg, options, taken[ti], budget)
+                pick, eligible, frac = around_hits(tg, options, taken[ti], n_pick)
             if len(pick) == 0:
                 continue
             tg.keep_prob[eligible] *= 1.0 - frac
@@ -434,9 +439,22 @@ def _needs_refinement(parts, options) -> bool:
     """True when fewer than half the meteoroids integrated for a target met Earth's passage."""
     if not parts:
         return False
+    n = sum(len(p.t_cross_tdb_jd) for p in parts)
+    return _hits(parts, options) < REFINE_BELOW_HIT_FRACTION * min(n, options.particles)
+
+
+def refinement_size(parts, options, probe: int) -> int:
+    """Meteoroids a refinement round integrates for a target: as many as its meteoroids at
+    Earth's passage still fall short of the budget, at least a probe's worth."""
+    return max(probe, options.particles - _hits(parts, options))
+
+
+def _hits(parts, options) -> int:
+    """How many of a target's integrated meteoroids met Earth's passage (within the window)."""
+    if not parts:
+        return 0
     lag = np.concatenate([p.t_cross_tdb_jd - p.t_earth_tdb_jd for p in parts])
-    hit = np.isfinite(lag) & (np.abs(lag) <= options.window_days)
-    return hit.sum() < REFINE_BELOW_HIT_FRACTION * min(len(lag), options.particles)
+    return int((np.isfinite(lag) & (np.abs(lag) <= options.window_days)).sum())
 
 
 def add_tasks(tasks, meta, key, ti, pick, pool, ret, out_t, options, node) -> None:

@@ -417,3 +417,18 @@ def test_passages_of_one_trail_share_chunks_and_get_their_own_meteoroids_back():
         t = np.concatenate([c for _, c in back[ti]])
         assert np.array_equal(sub, pick)
         assert np.allclose(t, p.release_t_tdb_jd[pick])
+
+
+@pytest.mark.invariant
+def test_a_refinement_round_integrates_what_the_hits_still_lack():
+    # 600 integrated, 142 met Earth's passage: a refinement adds 300 - 142 = 158, not another
+    # whole budget of 300; close to the budget it still adds a probe's worth (75).
+    from dynamics.sampling import _needs_refinement, refinement_size
+
+    opts = ForecastOptions(1999, 1999, workers=1, particles=300, window_days=20.0)
+    lag = np.r_[np.zeros(142), np.full(458, 90.0)]
+    parts = [_crossings_at(np.zeros(600), lag)]
+    assert _needs_refinement(parts, opts)
+    assert refinement_size(parts, opts, probe=75) == 158
+    near_full = [_crossings_at(np.zeros(300), np.r_[np.zeros(290), np.full(10, 90.0)])]
+    assert refinement_size(near_full, opts, probe=75) == 75
