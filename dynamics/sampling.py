@@ -402,7 +402,12 @@ def enough_said(tg: Target, parts, options) -> str | None:
     lag = cr.t_cross_tdb_jd - cr.t_earth_tdb_jd
     hit = np.isfinite(lag) & (np.abs(lag) <= options.window_days)
     n, k = len(lag), int(hit.sum())
-    if tg.selection_mode.startswith("uniform") and k == 0:
+    # the uniform fallback looks for any arrival at Earth's passage of the trail's node (the
+    # passage its outcome and activity are measured from, not each meteoroid's own node)
+    at_passage = np.isfinite(cr.t_cross_tdb_jd) & (
+        np.abs(cr.t_cross_tdb_jd - tg.t_earth) <= options.window_days
+    )
+    if tg.selection_mode.startswith("uniform") and not at_passage.any():
         return (
             f"a uniform sample of {n} meteoroids had none within {options.window_days:g} days "
             "of Earth's passage"

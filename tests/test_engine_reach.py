@@ -323,6 +323,12 @@ def test_targets_stop_only_when_they_cannot_be_an_encounter():
     tg.selection_mode = "uniform fallback (shooting found no arrival at Earth's passage)"
     none = _crossings_at(np.full(75, 0.03), np.full(75, 90.0))
     assert "none within" in enough_said(tg, [none], opts)
+    # ... also when they met Earth at their own nodes, weeks from Earth's passage of the
+    # trail's node (the passage its outcome is measured from: "not reached" either way)
+    own = _crossings_at(np.full(75, 0.03), np.zeros(75))
+    own.t_cross_tdb_jd[:] += 40.0
+    own.t_earth_tdb_jd[:] += 40.0
+    assert "none within" in enough_said(tg, [own], opts)
 
 
 @pytest.mark.invariant
