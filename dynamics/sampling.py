@@ -128,7 +128,7 @@ def pilot(targets, trails, options, executor, say) -> int:
         todo.append((ti, -tg.span_days, tg.span_days, per_class))
         tg.x_pool = x
     for round_ in range(1 + PILOT_EXPANSIONS):
-        tasks, meta = [], []
+        items = []
         for ti, lo, hi, n_cls in todo:
             tg = targets[ti]
             tr = trails[tg.trail]
@@ -141,24 +141,14 @@ def pilot(targets, trails, options, executor, say) -> int:
             half = tg.span_days + PILOT_OUTPUT_MARGIN_DAYS
             step = max(PILOT_MIN_STEP_DAYS, tg.span_days * PILOT_STEP_PER_SPAN)
             out_t = output_times(tr.ret, tg.t_earth, half, step, pilot_options.dt_days)
-            add_tasks(
-                tasks,
-                meta,
-                ("pilot", ti, round_),
-                ti,
-                pick,
-                tr.pool,
-                tr.ret,
-                out_t,
-                pilot_options,
-                tg.node,
-            )
-        if not tasks:
+            items.append((ti, pick, tr.pool, tr.ret, out_t, tg.node, tg.t_earth))
+        if not items:
             break
         say(0.1 + 0.04 * round_, "pilot integration")
+        tasks, meta = batched_tasks(("pilot", round_), items, pilot_options)
         results = run_tasks(tasks, executor)
         integrated += sum(len(t.beta) for t in tasks)
-        for (ti, sub), cr in zip(meta, results, strict=True):  # crossings, from the workers
+        for ti, sub, cr in split_results(meta, results):  # crossings, from the workers
             _record(targets[ti], trails[targets[ti].trail], sub, cr)
         todo = []
         for ti, tg in enumerate(targets):
@@ -336,7 +326,7 @@ def main_rounds(targets, trails, options, executor, say, integrated):
                 MAIN_STEP_DAYS,
                 options.dt_days,
             )
-            items.append((ti, pick, tg.pool, tr.ret, out_t, tg.node))
+            items.append((ti, pick, tg.pool, tr.ret, out_t, tg.node, tg.t_earth))
         if not items and round_ > 0:
             break
         tasks, meta = batched_tasks(("main", round_), items, options)
@@ -463,30 +453,28 @@ def _hits(parts, options) -> int:
     return int((np.isfinite(lag) & (np.abs(lag) <= options.window_days)).sum())
 
 
-def add_tasks(tasks, meta, key, ti, pick, pool, ret, out_t, options, node) -> None:
-    """Append one target's integration chunks (and what each holds) to the run's lists."""
-    for start, sub in chunks(pick, options):
-        tasks.append(make_task((*key, start), ret, pool.take(sub), out_t, options, node))
-        meta.append((ti, sub))
-
-
 def batched_tasks(key, items, options):
     """Integration chunks for one round of several targets: (tasks, meta) for :func:`split_results`.
 
-    ``items`` holds (target index, pool indices, pool, return, output times, node). Targets
-    released from the same return with the same output times and node (the passages of one
-    trail after different numbers of revolutions) share chunks: every chunk integrates the
-    planets once whatever it carries (measured here: the planets cost about as much as 9
-    meteoroids), so fewer, fuller chunks save that overhead. Meteoroids are test particles:
-    sharing a simulation never changes them (beyond round-off).
+    ``items`` holds (target index, pool indices, pool, return, output times, node, Earth's
+    passage). Targets released from the same return that meet the same Earth passage of the
+    same node (the passages of one trail after different numbers of revolutions) share chunks,
+    written at the union of their output times: every chunk integrates the planets once
+    whatever it carries (measured here: the planets cost about as much as 9 meteoroids), so
+    fewer, fuller chunks save that overhead. Meteoroids are test particles: sharing a
+    simulation never changes them (beyond round-off); extra output times only put a state
+    nearer each crossing.
     """
     groups: dict = {}
     for it in items:
-        ti, pick, pool, ret, out_t, node = it
-        groups.setdefault((id(ret), node, np.asarray(out_t).tobytes()), []).append(it)
+        ti, pick, pool, ret, out_t, node, t_earth = it
+        groups.setdefault((id(ret), node, float(t_earth)), []).append(it)
     tasks, meta = [], []
     for g, members in enumerate(groups.values()):
-        _, _, _, ret, out_t, node = members[0]
+        _, _, _, ret, _, node, _ = members[0]
+        out_t = members[0][4]
+        for m in members[1:]:
+            out_t = np.union1d(out_t, m[4])
         owner = np.concatenate([np.full(len(m[1]), j) for j, m in enumerate(members)])
         local = np.concatenate([np.arange(len(m[1])) for m in members])
         sel = _concat_candidates(*(m[2].take(m[1]) for m in members))

@@ -380,9 +380,9 @@ def test_chunks_keep_every_worker_busy_and_every_meteoroid_once(n, workers):
 
 @pytest.mark.invariant
 def test_passages_of_one_trail_share_chunks_and_get_their_own_meteoroids_back():
-    # Two passages of one trail (same return, output times and node) share chunks: 30 + 45
-    # meteoroids in 2 chunks on 2 workers, not 4; a third target with other output times gets
-    # its own. Each target gets back exactly its meteoroids, in its pick order, with their own
+    # Two passages of one trail (same return, node and Earth passage) share chunks: 30 + 45
+    # meteoroids in 2 chunks on 2 workers, not 4; a third target meeting another Earth passage
+    # gets its own. Each target gets back exactly its meteoroids, in its pick order, with their own
     # crossings (the fake worker below returns each meteoroid's release time as its crossing).
     from types import SimpleNamespace
 
@@ -402,11 +402,13 @@ def test_passages_of_one_trail_share_chunks_and_get_their_own_meteoroids_back():
     pa, pb = pool(200, 1000.0), pool(200, 5000.0)
     pick_a, pick_b, pick_c = np.arange(0, 60, 2), np.arange(100, 145), np.arange(10)
     items = [
-        (0, pick_a, pa, ret, out_a, "descending"),
-        (1, pick_b, pb, ret, out_a, "descending"),
-        (2, pick_c, pa, ret, out_b, "descending"),
+        (0, pick_a, pa, ret, out_a, "descending", 101.0),
+        (1, pick_b, pb, ret, out_a[:1], "descending", 101.0),
+        (2, pick_c, pa, ret, out_b, "descending", 102.0),
     ]
     tasks, meta = batched_tasks(("main", 0), items, opts)
+    # the shared chunks write at the union of their passages' output times
+    assert sum(np.array_equal(t.out_t, out_a) for t in tasks) == 2
     assert len(tasks) == 4 and sorted(len(t.beta) for t in tasks) == [5, 5, 37, 38]
 
     def fake(task):
