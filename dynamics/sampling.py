@@ -357,8 +357,9 @@ def around_hits(tg: Target, options, taken: np.ndarray, budget: int):
     spacing: a mean-motion resonance holds a narrow range of periods at one arrival time (a
     plateau of the map a few pilot points wide), and old trails fold. Each meteoroid that met
     Earth's passage marks such a place; the candidates of its beta class whose predicted
-    offsets lie closer to it than its nearest integrated neighbour (the unresolved gap) are
-    eligible, and a random subset of them is integrated with its inclusion probability.
+    offsets lie closer to it than its nearest integrated neighbour (the unresolved gap), and at
+    least its share of the budget of the nearest ones, are eligible, and a random subset of
+    them is integrated with its inclusion probability.
     """
     lag = tg.y_seen
     hits = np.flatnonzero(np.isfinite(lag) & (np.abs(lag) <= options.window_days))
@@ -366,14 +367,25 @@ def around_hits(tg: Target, options, taken: np.ndarray, budget: int):
         return np.zeros(0, dtype=int), np.zeros(0, dtype=int), 0.0
     xs = tg.x_seen
     near = np.zeros(len(tg.x_pool), dtype=bool)
+    free = ~taken & np.isfinite(tg.x_pool)
+    per_hit = max(1, budget // len(hits))
     for h in hits:
+        if not np.isfinite(xs[h]):
+            continue
         others = np.abs(xs - xs[h])
         others[h] = np.inf
         gap = float(np.min(others[np.isfinite(others)], initial=np.inf))
-        if not np.isfinite(gap) or gap <= 0:
-            continue
-        near |= (np.abs(tg.x_pool - xs[h]) < gap) & (tg.cls == tg.c_seen[h])
-    eligible = np.flatnonzero(near & ~taken & np.isfinite(tg.x_pool))
+        d = np.abs(tg.x_pool - xs[h])
+        same = free & (tg.cls == tg.c_seen[h])
+        if np.isfinite(gap) and gap > 0:
+            near |= same & (d < gap)
+        # ... and at least the budget's share of its nearest free candidates: when the hit's
+        # integrated neighbours crowd it (a plateau narrower than the picks that found it),
+        # the gap holds none, yet the plateau goes on right next to it
+        idx = np.flatnonzero(same)
+        if len(idx):
+            near[idx[np.argsort(d[idx], kind="stable")[:per_hit]]] = True
+    eligible = np.flatnonzero(near & free)
     if len(eligible) == 0:
         return eligible, eligible, 0.0
     pick = eligible[:budget]
@@ -432,11 +444,15 @@ def enough_said(tg: Target, parts, options) -> str | None:
 
 
 def _needs_refinement(parts, options) -> bool:
-    """True when fewer than half the meteoroids integrated for a target met Earth's passage."""
+    """True when fewer than half the meteoroids integrated for a target met Earth's passage,
+    or fewer than PROBE_MIN_HITS did however many were integrated: a narrow branch (a resonant
+    plateau) offers few eligible candidates, and the few that met Earth's passage are where
+    the next round samples around them (:func:`around_hits`)."""
     if not parts:
         return False
     n = sum(len(p.t_cross_tdb_jd) for p in parts)
-    return _hits(parts, options) < REFINE_BELOW_HIT_FRACTION * min(n, options.particles)
+    hits = _hits(parts, options)
+    return hits < PROBE_MIN_HITS or hits < REFINE_BELOW_HIT_FRACTION * min(n, options.particles)
 
 
 def refinement_size(parts, options, probe: int) -> int:

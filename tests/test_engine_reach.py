@@ -354,6 +354,13 @@ def test_a_plateau_finer_than_the_pilot_is_sampled_around_its_hits():
     assert len(eligible) == 100  # x = -99 .. 0, class 0
     assert len(pick) == 40 and frac == pytest.approx(0.4)
     assert "around the 1 meteoroid that" in tg.selection_mode
+    # the hit's integrated neighbours crowd it (0.5 d away): the gap holds no candidate, yet
+    # its 40 nearest free ones of its class are eligible
+    tg.x_seen = np.array([-0.5, 0.0, 0.5])
+    pick, eligible, frac = around_hits(tg, opts, taken, budget=40)
+    assert len(eligible) == 40 and np.all(np.abs(tg.x_pool[eligible]) <= 40.0)
+    assert np.all(tg.cls[eligible] == 0) and frac == pytest.approx(1.0)
+    tg.x_seen = np.array([-100.0, 0.0, 100.0])
     # no meteoroid met Earth's passage: nothing to sample around
     tg.y_seen = np.array([-300.0, 50.0, 310.0])
     pick, eligible, frac = around_hits(tg, opts, taken, budget=40)
@@ -440,3 +447,7 @@ def test_a_refinement_round_integrates_what_the_hits_still_lack():
     assert refinement_size(parts, opts, probe=75) == 158
     near_full = [_crossings_at(np.zeros(300), np.r_[np.zeros(290), np.full(10, 90.0)])]
     assert refinement_size(near_full, opts, probe=75) == 75
+    assert not _needs_refinement(near_full, opts)
+    # a narrow branch: 6 integrated, 4 met Earth's passage (most, but too few to judge)
+    few = [_crossings_at(np.zeros(6), np.r_[np.zeros(4), np.full(2, 90.0)])]
+    assert _needs_refinement(few, opts)
