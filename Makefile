@@ -27,9 +27,8 @@ run: $(STAMP)
 test: $(STAMP)
 	$(BIN)/python -m pytest
 
-# The hindcast catalogue, every row, on all cores (about an hour or more on 2 cores):
-# writes validation/report/hindcast.{json,md,png,svg}.
-# The whole hindcast catalogue (report under validation/report), then the long class hindcasts.
+# The hindcast catalogue, every row, on all cores (about 25 minutes on 2 cores): writes
+# validation/report/hindcast.{json,md,png,svg}; then the long class hindcasts (a few minutes).
 validate: $(STAMP)
 	$(BIN)/trailcast hindcast validation/hindcasts.json --out validation/report
 	$(BIN)/python -m pytest -m validation tests/test_hindcast_classes.py
