@@ -260,7 +260,7 @@ def _record(tg: Target, tr: Trail, idx, cr: Crossings) -> None:
 
 def main_rounds(targets, trails, options, executor, say, integrated):
     """A probe round, the targeted integration, then refinement rounds for targets whose
-    meteoroids mostly missed.
+    meteoroids mostly missed Earth's passage or of which fewer than PROBE_MIN_HITS met it.
 
     Returns per-target crossings, the pool indices behind them, and the running count of
     integrated meteoroids.
@@ -383,8 +383,9 @@ def around_hits(tg: Target, options, taken: np.ndarray, budget: int):
         # integrated neighbours crowd it (a plateau narrower than the picks that found it),
         # the gap holds none, yet the plateau goes on right next to it
         idx = np.flatnonzero(same)
-        if len(idx):
-            near[idx[np.argsort(d[idx], kind="stable")[:per_hit]]] = True
+        if len(idx) > per_hit:  # the per_hit nearest, without sorting the whole pool
+            idx = idx[np.argpartition(d[idx], per_hit - 1)[:per_hit]]
+        near[idx] = True
     eligible = np.flatnonzero(near & free)
     if len(eligible) == 0:
         return eligible, eligible, 0.0
