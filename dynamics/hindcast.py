@@ -120,8 +120,9 @@ def _pick(row, res, revolutions=None):
     """The crossing the observation refers to, and the ZHR there; (None, 0) if there is none.
 
     Candidates: crossings of the row's named trails (all crossings when it names none), inside
-    its ``check_window_utc`` when it has one. The chosen one is the nearest to the observed peak,
-    or without one the strongest. Its ZHR adds the profiles of the other candidates at its peak
+    its ``check_window_utc`` when it has one, and of those the ones after the revolutions the row
+    names, if the engine found any. The chosen one is the nearest to the observed peak, or
+    without one the strongest. Its ZHR adds the profiles of the other candidates at its peak
     within :data:`BLEND_DAYS` (two trails observed as one outburst).
     """
     trails = row_trails(row)
@@ -145,6 +146,12 @@ def _pick(row, res, revolutions=None):
         cands = [e for e in cands if window[0] <= e.peak_tdb_jd <= window[1]]
     if not cands:
         return None, 0.0
+    # the branch the published analysis names (its revolutions) when the engine found it: a
+    # nearer-in-time branch of the same trail far from Earth's path is not what was observed
+    named = {t.get("revolutions") for t in row.get("trails") or []} - {None}
+    chosen = [e for e in cands if e.revolutions in named] if named else []
+    if revolutions is None and chosen:
+        cands = chosen
     t_obs = _observed_peak_tdb(row)
     if t_obs is not None:
         enc = min(cands, key=lambda e: abs(e.peak_tdb_jd - t_obs))

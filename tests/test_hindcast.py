@@ -211,7 +211,7 @@ def test_report_files_are_complete(quick_report):
     assert "Partial" not in md
 
 
-def _crossing(trail_tp_tdb_jd, peak_tdb_jd, zhr, width_days=0.02):
+def _crossing(trail_tp_tdb_jd, peak_tdb_jd, zhr, width_days=0.02, revolutions=None):
     grid = peak_tdb_jd + np.linspace(-0.2, 0.2, 401)
     prof = SimpleNamespace(
         t_tdb_jd=grid, zhr=zhr * np.exp(-0.5 * ((grid - peak_tdb_jd) / width_days) ** 2)
@@ -221,6 +221,7 @@ def _crossing(trail_tp_tdb_jd, peak_tdb_jd, zhr, width_days=0.02):
         peak_tdb_jd=peak_tdb_jd,
         zhr_estimate=zhr,
         profile=prof,
+        revolutions=revolutions,
     )
 
 
@@ -238,3 +239,23 @@ def test_two_named_trails_seen_as_one_outburst_add_up():
     enc, zhr = _pick(row, res)
     assert enc is a
     assert zhr == pytest.approx(1000.0 + 2000.0 * math.exp(-0.5), rel=1e-3)  # grid interpolation
+
+
+@pytest.mark.invariant
+def test_the_branch_the_row_names_is_scored_when_the_engine_found_it():
+    # One trail, two branches: 17 revolutions 2 h before the observed peak (far from Earth's
+    # path), 20 revolutions 36 h after. The row attributes the outburst to 20 revolutions
+    # (its published analysis): that branch is scored, however late. A row naming a branch
+    # the engine did not find falls back to the crossing nearest the observed peak.
+    t_obs = float(iso_to_tdb_jd("1998-11-17T02:45:00Z"))
+    tp = float(iso_to_tdb_jd("1333-09-18T00:00:00Z"))
+    b17 = _crossing(tp, t_obs - 2.0 / 24.0, 0.0, revolutions=17)
+    b20 = _crossing(tp, t_obs + 1.5, 0.0, revolutions=20)
+    res = SimpleNamespace(
+        encounters=(), near_misses=(b17, b20), history=SimpleNamespace(returns=())
+    )
+    row = _row("x", 1998, zhr=510, peak="1998-11-17T02:45:00Z")
+    row["trails"] = [{"perihelion_year": 1333, "revolutions": 20}]
+    assert _pick(row, res)[0] is b20
+    row["trails"] = [{"perihelion_year": 1333, "revolutions": 21}]
+    assert _pick(row, res)[0] is b17
