@@ -54,6 +54,10 @@ class Crossings:
     vinf_km_s: np.ndarray
     vz_au_d: np.ndarray  # meteoroid speed across the crossing plane (au/day), see below
 
+    def take(self, idx) -> "Crossings":
+        """The crossings of the meteoroids ``idx`` (indices or a boolean mask)."""
+        return Crossings(*(getattr(self, f)[idx] for f in self.__dataclass_fields__))
+
 
 # The crossing plane is the osculating plane of Earth's path at Earth's closest point (it holds
 # Earth's path exactly, as the J2000 ecliptic does only approximately). ``vz_au_d`` is the

@@ -511,12 +511,8 @@ def split_results(meta, results):
     out = []
     for parts, cr in zip(meta, results, strict=True):
         for ti, sub, mask in parts:
-            out.append((ti, sub, _take_crossings(cr, mask)))
+            out.append((ti, sub, cr.take(mask)))
     return out
-
-
-def _take_crossings(cr: Crossings, mask) -> Crossings:
-    return Crossings(*(getattr(cr, f)[mask] for f in Crossings.__dataclass_fields__))
 
 
 def chunks(pick: np.ndarray, options):
