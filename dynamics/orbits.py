@@ -53,6 +53,7 @@ from .errors import InvalidOrbit
 
 __all__ = [
     "Elements",
+    "distance_after",
     "elements_to_state",
     "mean_anomaly_deg",
     "orbit_basis",
@@ -671,6 +672,92 @@ def propagate(r_au, v_au_d, t0_tdb_jd, t_tdb_jd, mu=GM_SUN_AU3_D2):
     """
     el = state_to_elements(r_au, v_au_d, t0_tdb_jd, mu)
     return el.state_at(t_tdb_jd)
+
+
+# 1/(2k+2)! and 1/(2k+3)!, k = STUMPFF_TERMS .. 0 (Horner order), for the scalar series.
+_STUMPFF_C_COEF = tuple(1.0 / math.factorial(2 * k + 2) for k in range(_STUMPFF_TERMS, -1, -1))
+_STUMPFF_S_COEF = tuple(1.0 / math.factorial(2 * k + 3) for k in range(_STUMPFF_TERMS, -1, -1))
+
+
+def _stumpff_scalar(z: float) -> tuple[float, float]:
+    """:func:`_stumpff_cs` for one float, without numpy (for per-step force callbacks)."""
+    if abs(z) < _STUMPFF_SERIES_LIMIT:
+        c = s = 0.0
+        for cc, ss in zip(_STUMPFF_C_COEF, _STUMPFF_S_COEF, strict=True):
+            c = cc - z * c
+            s = ss - z * s
+        return c, s
+    if z > 0.0:
+        x = math.sqrt(z)
+        return 2.0 * math.sin(0.5 * x) ** 2 / z, (x - math.sin(x)) / (z * x)
+    x = math.sqrt(-z)
+    return 2.0 * math.sinh(0.5 * x) ** 2 / -z, (math.sinh(x) - x) / (-z * x)
+
+
+def distance_after(r_au, v_au_d, dt_days: float, mu: float = GM_SUN_AU3_D2) -> float:
+    """Heliocentric distance ``dt_days`` after (before, if negative) the state ``r, v``, on
+    its two-body orbit: any conic, scalar and numpy-free (it runs inside force callbacks).
+
+    Universal Kepler equation from the given state (Vallado 2013, Algorithm 8; Battin 1999,
+    sec. 4.5): sqrt(mu) dt = sigma0 chi^2 C + (1 - alpha r0) chi^3 S + r0 chi, with
+    sigma0 = r0.v0/sqrt(mu), z = alpha chi^2; its chi-derivative is the distance
+    r = chi^2 C + sigma0 chi (1 - z S) + r0 (1 - z C) > 0: the root is bracketed by doubling
+    from the first-order guess chi = sqrt(mu) dt / r0, then found by Newton steps from that
+    guess that fall back to bisection when they leave the bracket or converge slowly.
+    """
+    x0, y0, z0 = float(r_au[0]), float(r_au[1]), float(r_au[2])
+    vx, vy, vz = float(v_au_d[0]), float(v_au_d[1]), float(v_au_d[2])
+    r0 = math.sqrt(x0 * x0 + y0 * y0 + z0 * z0)
+    if dt_days == 0.0:
+        return r0
+    sqmu = math.sqrt(mu)
+    sigma0 = (x0 * vx + y0 * vy + z0 * vz) / sqmu
+    alpha = 2.0 / r0 - (vx * vx + vy * vy + vz * vz) / mu
+    target = sqmu * dt_days
+
+    def time_and_distance(chi):
+        zz = alpha * chi * chi
+        c, s = _stumpff_scalar(zz)
+        t = sigma0 * chi * chi * c + (1.0 - alpha * r0) * chi**3 * s + r0 * chi
+        return t - target, chi * chi * c + sigma0 * chi * (1.0 - zz * s) + r0 * (1.0 - zz * c)
+
+    # Bracket the root (f increases with chi) from the first-order guess chi = dt sqrt(mu)/r0,
+    # doubling outwards; then Newton steps from that guess, bisecting when one leaves the
+    # bracket (a short |dt| needs two or three evaluations in all).
+    # On a hyperbola sinh(sqrt(-alpha) chi) overflows beyond chi_max; the root lies far inside
+    # it for any time shorter than the age of the Solar System.
+    chi_max = 700.0 / math.sqrt(-alpha) if alpha < 0.0 else math.inf
+    guess = math.copysign(min(abs(target) / r0, 0.5 * chi_max), target)
+    lo, hi = (0.0, guess) if target > 0 else (guess, 0.0)
+    step = guess
+    while True:
+        if target > 0:
+            if time_and_distance(hi)[0] >= 0.0:
+                break
+            lo, hi = hi, min(hi + step, chi_max)
+        else:
+            if time_and_distance(lo)[0] <= 0.0:
+                break
+            hi, lo = lo, max(lo + step, -chi_max)
+        step *= 2.0
+    chi = guess
+    dx_before, dx = math.inf, hi - lo
+    for _ in range(200):
+        f, r = time_and_distance(chi)
+        if f > 0.0:
+            hi = chi
+        else:
+            lo = chi
+        new = chi - f / r
+        # bisect when Newton leaves the bracket or has not halved the step of two rounds ago
+        # (slow on the exponential branch of a hyperbola; Press et al. 2007, rtsafe)
+        if not lo < new < hi or abs(new - chi) > 0.5 * abs(dx_before):
+            new = 0.5 * (lo + hi)
+        dx_before, dx = dx, new - chi
+        chi = new
+        if abs(dx) <= 1e-14 * max(1.0, abs(chi)) or hi - lo <= 1e-14 * max(1.0, abs(chi)):
+            break
+    return time_and_distance(chi)[1]
 
 
 def solve_kepler(mean_anomaly_rad, e):
