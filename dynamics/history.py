@@ -10,6 +10,8 @@ non-gravitational forces act on the parent (Marsden, Sekanina & Yeomans 1973, AJ
 
 with R radial (from the Sun), T transverse (in the orbit plane, towards the motion) and N normal,
 alpha = 0.1112620426, r0 = 2.808 au, m = 2.15, n = 5.093, k = 4.6142 (the water-ice law).
+Where an orbit solution gives the asymmetric model's DT (Yeomans & Chodas 1989, AJ 98, 1083),
+g is taken at the distance r(t - DT) the comet has DT days earlier on its osculating orbit.
 
 For every perihelion passage trailcast keeps the perihelion state and the parent's states on a
 one-day grid over its *active arc* (heliocentric distance below ``active_r_max_au``), together
@@ -134,7 +136,9 @@ def _parent_simulation(orbit: OrbitInput) -> ParentSimulation:
         orbit.epoch_tdb_jd,
     )
     ng = orbit.nongrav
-    nongrav = None if ng is None else (ng.a1_au_d2, ng.a2_au_d2, ng.a3_au_d2, nongrav_g)
+    nongrav = (
+        None if ng is None else (ng.a1_au_d2, ng.a2_au_d2, ng.a3_au_d2, nongrav_g, ng.dt_days)
+    )
     return ParentSimulation(bodies, r, v, nongrav)
 
 

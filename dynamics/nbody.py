@@ -26,9 +26,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .constants import C_AU_DAY
+from .constants import C_AU_DAY, GM_SUN_AU3_D2
 from .ephemeris import barycentric_states, gm_au3_d2
 from .errors import TrailcastError
+from .orbits import distance_after
 
 #: Massive bodies of every trailcast simulation: Sun, 8 planets, Earth and Moon as their
 #: barycentre (the Moon's effect on trails is a few 1e-6 au; domain notes).
@@ -298,9 +299,10 @@ class ParentSimulation:
     r_helio_au, v_helio_au_d : array (3,)
         The parent's heliocentric state at ``bodies.t_tdb_jd``.
     nongrav : tuple, optional
-        ``(a1, a2, a3, g)``: the Marsden coefficients (au/day^2) and the g(r) law; the
-        acceleration ``g(r) (A1 R + A2 T + A3 N)`` is applied through a Python callback on this
-        one particle. General relativity (REBOUNDx) is used only without non-gravitational
+        ``(a1, a2, a3, g)`` or ``(a1, a2, a3, g, dt)``: the Marsden coefficients (au/day^2),
+        the g(r) law and the asymmetric model's offset dt (days; Yeomans & Chodas 1989: g is
+        taken at the distance of ``t - dt`` on the osculating orbit); the acceleration
+        ``g (A1 R + A2 T + A3 N)`` is applied through a Python callback on this one particle. General relativity (REBOUNDx) is used only without non-gravitational
         forces: a Python force callback and REBOUNDx cannot share one simulation.
     """
 
@@ -364,7 +366,9 @@ class ParentSimulation:
         return 2.0 / r - float(np.dot(vel[-1], vel[-1])) / gm_total
 
 
-def _nongrav_callback(sim, index: int, a1: float, a2: float, a3: float, g_of_r: Callable):
+def _nongrav_callback(
+    sim, index: int, a1: float, a2: float, a3: float, g_of_r: Callable, dt_days: float = 0.0
+):
     """Python force callback for one particle (only the parent: its cost is one particle)."""
 
     def force(sim_pointer):
@@ -379,7 +383,11 @@ def _nongrav_callback(sim, index: int, a1: float, a2: float, a3: float, g_of_r: 
         rx, ry, rz = x / r, y / r, z / r
         nx, ny, nz = hx / h, hy / h, hz / h
         tx, ty, tz = ny * rz - nz * ry, nz * rx - nx * rz, nx * ry - ny * rx
-        g = float(g_of_r(r))
+        if dt_days:
+            r_g = distance_after((x, y, z), (vx, vy, vz), -dt_days, GM_SUN_AU3_D2)
+        else:
+            r_g = r
+        g = float(g_of_r(r_g))
         p.ax += g * (a1 * rx + a2 * tx + a3 * nx)
         p.ay += g * (a1 * ry + a2 * ty + a3 * ny)
         p.az += g * (a1 * rz + a2 * tz + a3 * nz)

@@ -8,6 +8,9 @@ JSON form (keys kept stable; units fixed)::
      "i": 71.4, "node": 141.2, "peri": 196.8,   # deg, ecliptic and equinox J2000
      "tp": "2031-09-14T06:00:00 TDB",   # perihelion time, JD TDB or ISO 8601 with a scale
      "nongrav": {"a1": 1e-9, "a2": 1e-10, "a3": 0.0},   # optional, au/day^2 (Marsden et al. 1973)
+                                         # optional "dt": days, the asymmetric model's offset
+                                         # of peak outgassing from perihelion (Yeomans &
+                                         # Chodas 1989), as orbit solutions list it
      "m1": 11.5, "k1": 10.0,             # optional total absolute magnitude m = M1 + 5 log D
                                          # + K1 log r (K1 defaults to 10): sets the dust production
      "covariance": [[...6 x 6...]],      # optional, over (q, e, i, node, peri, tp) in
@@ -55,6 +58,10 @@ COVARIANCE_ORDER = (
     ("peri", "deg"),
     ("tp", "day"),
 )
+#: Largest |dt| of the asymmetric non-gravitational model accepted (days): published fits lie
+#: within about +-100 d of perihelion (Yeomans & Chodas 1989; the bound is common practice,
+#: no source, and wide).
+MAX_NONGRAV_DT_DAYS = 365.0
 #: Upper limit on eccentricity accepted (interstellar objects so far have e < 7).
 MAX_ECCENTRICITY = 100.0
 #: Smallest perihelion distance accepted (au): the Sun's radius (IAU 2015 Resolution B3). An
@@ -87,12 +94,16 @@ class NonGravParams:
     """Marsden, Sekanina & Yeomans (1973) non-gravitational parameters (au/day^2).
 
     The acceleration is ``(A1 R + A2 T + A3 N) g(r)`` with the standard water-ice g(r) law
-    (see :mod:`dynamics.constants` and domain notes); R radial, T transverse, N normal.
+    (see :mod:`dynamics.history`); R radial, T transverse, N normal. With ``dt_days`` != 0 the
+    law is the asymmetric one of Yeomans & Chodas (1989, AJ 98, 1083): g is taken at the
+    heliocentric distance the comet has at ``t - dt`` on its osculating orbit, so outgassing
+    peaks ``dt`` days after perihelion (before it when negative).
     """
 
     a1_au_d2: float = 0.0
     a2_au_d2: float = 0.0
     a3_au_d2: float = 0.0
+    dt_days: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -153,6 +164,8 @@ class OrbitInput:
                 "a2": self.nongrav.a2_au_d2,
                 "a3": self.nongrav.a3_au_d2,
             }
+            if self.nongrav.dt_days:
+                out["nongrav"]["dt"] = self.nongrav.dt_days
         if self.m1 is not None:
             out["m1"] = self.m1
             out["k1"] = self.k1
@@ -279,12 +292,14 @@ def parse_orbit(
         ng = data["nongrav"]
         if not isinstance(ng, Mapping):
             raise InvalidOrbit(
-                path + "nongrav", 'expected an object {"a1", "a2", "a3"} in au/day^2'
+                path + "nongrav",
+                'expected an object {"a1", "a2", "a3"} in au/day^2 (and "dt" in days)',
             )
-        extra = sorted(set(ng) - {"a1", "a2", "a3"})
+        extra = sorted(set(ng) - {"a1", "a2", "a3", "dt"})
         if extra:
             raise InvalidOrbit(
-                f"{path}nongrav.{extra[0]}", "unknown key; expected a1, a2, a3 (au/day^2)"
+                f"{path}nongrav.{extra[0]}",
+                "unknown key; expected a1, a2, a3 (au/day^2) and dt (days)",
             )
         vals = [_number(ng, k, f"{path}nongrav.", default=0.0) for k in ("a1", "a2", "a3")]
         for k, v in zip(("a1", "a2", "a3"), vals, strict=True):
@@ -292,7 +307,14 @@ def parse_orbit(
                 raise InvalidOrbit(
                     f"{path}nongrav.{k}", f"|{k}| = {abs(v)!r} au/day^2 is implausibly large"
                 )
-        nongrav = NonGravParams(*vals)
+        dt = _number(ng, "dt", f"{path}nongrav.", default=0.0)
+        if abs(dt) > MAX_NONGRAV_DT_DAYS:
+            raise InvalidOrbit(
+                f"{path}nongrav.dt",
+                f"|dt| = {abs(dt)!r} days: the peak of outgassing more than "
+                f"{MAX_NONGRAV_DT_DAYS:g} days from perihelion is not an orbit fit",
+            )
+        nongrav = NonGravParams(*vals, dt_days=dt)
 
     inherit = _inherit or {}
     m1, k1 = inherit.get("m1"), inherit.get("k1", DEFAULT_K1)

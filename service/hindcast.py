@@ -55,6 +55,8 @@ def orbit_json(name: str, entry: dict) -> dict:
     ng = entry.get("nongrav_au_d2")
     if ng:
         out["nongrav"] = {k: ng[k] for k in ("a1", "a2", "a3") if k in ng}
+        if entry.get("nongrav_dt_days"):  # the asymmetric model's offset (days)
+            out["nongrav"]["dt"] = entry["nongrav_dt_days"]
     mag = entry.get("magnitude")
     if mag:  # the parent's brightness sets its dust production (absolute mode)
         out["m1"] = mag["m1"]

@@ -17,3 +17,21 @@ PARENT_55P = {
     "tp": 2450872.5977341123,
     "nongrav": {"a1": 1.580981463194e-9, "a2": 9.186415933073e-11, "a3": 0.0},
 }
+
+# 21P/Giacobini-Zinner, orbit solution K123/6 of the 2012 apparition with its non-gravitational
+# terms A1, A2, A3 (au/day^2) and DT (days) of the asymmetric model: the public near-Earth-comet
+# orbital-elements open dataset of the small-body service (epoch MJD 56498 TDB, Tp JD
+# 2455969.126 TDB), as stored in a public repository (user HARSHCRR, file
+# app/api/comets/route.ts, commit bf4bbadf5fd70647ad802bc74f16f4658e64d2e8). The same elements
+# without those terms appear in the public comet elements file (another stored copy).
+PARENT_21P_2012 = {
+    "name": "21P/Giacobini-Zinner K123/6 (reference case)",
+    "epoch": 2456498.5,
+    "q": 1.030696274,
+    "e": 0.7068178874,
+    "i": 31.90810099,
+    "node": 195.3970145,
+    "peri": 172.5844249,
+    "tp": 2455969.126,
+    "nongrav": {"a1": 3.35e-9, "a2": -4.29e-10, "a3": -9.57e-10, "dt": -32.8},
+}

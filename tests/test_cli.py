@@ -140,6 +140,20 @@ def test_batch_rows_that_used_to_abort_the_batch(tmp_path):
     rows[2].name.encode("utf-8")  # a printable name: reports and CSV can be written
 
 
+def test_csv_batch_carries_the_asymmetric_nongrav_offset(tmp_path):
+    from service.batch import CSV_COLUMNS, read_batch
+
+    path = tmp_path / "batch.csv"
+    cells = {**{k: DEMO[k] for k in ("name", "epoch", "q", "e", "i", "node", "peri", "tp")}}
+    cells.update({"nongrav.a2": -4e-10, "nongrav.dt": -32.8})
+    header = [c for c in CSV_COLUMNS if c in cells]
+    path.write_text(
+        ",".join(header) + "\n" + ",".join(str(cells[c]) for c in header) + "\n", encoding="utf-8"
+    )
+    (row,) = read_batch(path)
+    assert row.orbit.nongrav.dt_days == -32.8 and row.orbit.nongrav.a2_au_d2 == -4e-10
+
+
 @pytest.mark.slow
 def test_forecast_table_names_each_crossing_by_its_activity():
     # Regression (what the engine gives today, the example): the demo comet's 2026

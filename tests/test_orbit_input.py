@@ -73,6 +73,8 @@ def test_iso_times_with_scale_are_accepted():
         ({"incl": 10.0}, "incl"),  # unknown key (typo for i)
         ({"nongrav": {"a1": "x"}}, "nongrav.a1"),
         ({"nongrav": {"b1": 1e-9}}, "nongrav.b1"),
+        ({"nongrav": {"a1": 1e-9, "dt": 400.0}}, "nongrav.dt"),
+        ({"nongrav": {"a1": 1e-9, "dt": "late"}}, "nongrav.dt"),
         ({"covariance": [[1.0] * 5] * 5}, "covariance"),
         ({"covariance": (-np.eye(6)).tolist()}, "covariance"),
         ({"solutions": [with_(e=-1.0)]}, "solutions.0.e"),
@@ -113,7 +115,11 @@ def test_covariance_and_solutions_are_kept():
     assert o.covariance.shape == (6, 6)
     assert [s.e for s in o.solutions] == [0.51, 0.49]
     assert o.nongrav.a1_au_d2 == 1e-9 and o.nongrav.a3_au_d2 == 0.0
+    assert o.nongrav.dt_days == 0.0  # the symmetric law unless a DT is given
     assert parse_orbit(o.to_json()) == o  # the JSON form round-trips
+    asym = parse_orbit(with_(nongrav={"a2": -4e-10, "dt": -32.8}))
+    assert asym.nongrav.dt_days == -32.8
+    assert parse_orbit(asym.to_json()) == asym
 
 
 @pytest.mark.parametrize("e", [1.0, 1.000000001, 4.5])

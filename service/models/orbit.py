@@ -20,6 +20,7 @@ from dynamics.orbit_input import (
     MAX_EVENTS,
     MAX_K1,
     MAX_NAME_LENGTH,
+    MAX_NONGRAV_DT_DAYS,
     MAX_PERIHELION_AU,
     MAX_SOLUTIONS,
     MAX_SPEED_MULTIPLIER,
@@ -85,6 +86,14 @@ class NonGravIn(RequestModel):
         0.0,
         json_schema_extra={"minimum": -MAX_NONGRAV_AU_D2, "maximum": MAX_NONGRAV_AU_D2},
         description="Normal A3 (au/day^2); same bound",
+        examples=[0.0],
+    )
+    dt: float = Field(
+        0.0,
+        json_schema_extra={"minimum": -MAX_NONGRAV_DT_DAYS, "maximum": MAX_NONGRAV_DT_DAYS},
+        description="Asymmetric model (Yeomans & Chodas 1989): days from perihelion to the peak "
+        "of outgassing, as the orbit solution lists it (negative: before perihelion); 0 for the "
+        "symmetric law",
         examples=[0.0],
     )
 
