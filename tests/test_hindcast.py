@@ -12,6 +12,7 @@ import numpy as np
 import pytest
 
 from dynamics.hindcast import STORM_ZHR, _pick, calibration_rows, row_revolutions, score
+from dynamics.orbit_input import parse_orbit
 from dynamics.timescales import iso_to_tdb_jd
 from service.hindcast import CatalogueError, load_catalogue
 
@@ -119,6 +120,11 @@ def test_a_parent_with_one_outburst_is_not_calibrated():
 def test_catalogue_loads_and_errors_name_the_field(tmp_path):
     rows, orbits, doc = load_catalogue(CATALOGUE)
     assert len(rows) == len(doc["rows"]) and set(orbits) == set(doc["orbits"])
+    for name, entry in doc["orbits"].items():  # every catalogued force term reaches the engine
+        ng = parse_orbit(orbits[name]).nongrav
+        assert (ng is None) == (entry.get("nongrav_au_d2") is None)
+        if ng is not None:
+            assert ng.dt_days == entry.get("nongrav_dt_days", 0.0)
     doc = copy.deepcopy(doc)
     doc["rows"][0]["trails"][0]["perihelion_year"] = doc["rows"][0]["year"]
     bad = tmp_path / "bad.json"
