@@ -58,8 +58,10 @@ BLEND_DAYS = 1.0
 CALIBRATION_RULE = (
     "per parent, one outburst row calibrates the dust production: among the outburst rows whose "
     "predicted crossing puts Earth inside the modelled trail (the engine's distance test: within "
-    "0.005 au and within 3 cross-section widths plus Earth's radius; elsewhere the ratio "
-    "measures the trail's position, not its dust), the one with the smallest relative "
+    "0.005 au and within 3 cross-section widths plus Earth's radius) with predicted activity at "
+    "least that of an encounter (peak ZHR 10; below it the prediction is the far tail of the "
+    "visual sizes' cross-section: elsewhere the ratio measures the trail's position, not its "
+    "dust), the one with the smallest relative "
     "uncertainty of its observed ZHR (ties and missing uncertainties: the most recent). Its "
     "observed/predicted ZHR ratio multiplies every other row of that parent; the "
     "calibration row itself is left out of the calibrated scores; parents with a single outburst "
@@ -280,12 +282,19 @@ def _rel_uncertainty(row) -> float:
 
 
 def _earth_inside_trail(pred) -> bool:
-    """True when a predicted crossing passes the engine's distance test for an encounter."""
+    """True when a predicted crossing passes the engine's distance test for an encounter and
+    its predicted peak ZHR reaches :data:`~dynamics.activity.ENCOUNTER_MIN_ZHR`.
+
+    The distance test uses the spread of all sizes; the ZHR, the visual sizes alone, which can
+    lie elsewhere and be narrower: a crossing inside the first with a ZHR of 1e-8 (Earth many
+    of the visual sizes' widths away) would calibrate by a factor of 1e11.
+    """
     if not pred:
         return False
     miss = abs(float(pred["miss_distance_au"]))
     spread = float(pred.get("miss_distance_spread_au") or 0.0)
-    return miss <= min(ENCOUNTER_MAX_MISS_AU, ENCOUNTER_SIGMAS * spread + EARTH_RADIUS_AU)
+    inside = miss <= min(ENCOUNTER_MAX_MISS_AU, ENCOUNTER_SIGMAS * spread + EARTH_RADIUS_AU)
+    return inside and float(pred.get("zhr") or 0.0) >= ENCOUNTER_MIN_ZHR
 
 
 def calibration_rows(rows: Sequence[dict], results: Sequence[dict]) -> dict[str, dict]:
@@ -310,7 +319,8 @@ def calibration_rows(rows: Sequence[dict], results: Sequence[dict]) -> dict[str,
             out[parent] = {
                 "row": None,
                 "factor": None,
-                "reason": "no outburst row puts Earth inside the modelled trail: stays absolute",
+                "reason": "no outburst row puts Earth inside the modelled trail with activity "
+                "at the encounter level: stays absolute",
             }
             continue
         best = min(inside, key=lambda r: (_rel_uncertainty(r), -int(r["year"])))

@@ -104,6 +104,12 @@ def test_calibration_skips_rows_where_earth_passes_outside_the_modelled_trail():
     far = [_pred(r["id"], 1.0, miss=0.002) for r in rows]
     cal = calibration_rows(rows, far)["P"]
     assert cal["factor"] is None and "inside the modelled trail" in cal["reason"]
+    # inside by distance, but the visual sizes predict a ZHR below an encounter's (10): the
+    # ratio would be the far tail of their cross-section (a factor 4e11 in one real run)
+    faint = [_pred("best", 1.4e-8), _pred("other", 600.0), _pred("old", 500.0)]
+    assert calibration_rows(rows, faint)["P"]["row"] == "other"
+    faint_all = [_pred(r["id"], 5.0) for r in rows]
+    assert calibration_rows(rows, faint_all)["P"]["factor"] is None
 
 
 @pytest.mark.invariant
