@@ -145,9 +145,7 @@ class ForecastOptions:
     pilot_window_days : float
         Half-width of the arrival window the pilot set spans.
     integrator, dt_days : str, float
-        REBOUND integrator and WHFast step (days; see the README's comparison with IAS15: at
-        1 day the default 1999 forecast gave the same encounters as at 0.5 day, peaks within
-        15 s and miss distances within 1e-6 au, in 0.77x the time).
+        REBOUND integrator and WHFast step (see the README's comparison with IAS15).
     workers : int
         Worker processes for the chunks (1 = in this process; default: one per core).
     chunk_size : int
@@ -170,7 +168,7 @@ class ForecastOptions:
     window_days: float = 20.0
     pilot_window_days: float = 150.0
     integrator: str = "whfast"
-    dt_days: float = 1.0
+    dt_days: float = 0.5
     workers: int = field(default_factory=default_workers)
     chunk_size: int = 250
     candidates: int = 200_000

@@ -187,7 +187,7 @@ def integrate_particles(
     output_t_tdb_jd,
     *,
     integrator: str = "whfast",
-    dt_days: float = 1.0,
+    dt_days: float = 0.5,
     radiation: bool = True,
     relativity: bool = True,
 ) -> Snapshots:

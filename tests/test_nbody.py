@@ -96,9 +96,8 @@ def test_results_do_not_depend_on_chunking():
 def test_whfast_agrees_with_ias15_on_meteoroid_like_orbits():
     # IAS15 is the accuracy reference. Domain measurements (WHFast democratic heliocentric,
     # dt = 0.5 d, 100 years, no corrector): median position difference ~1.5e-5 au; over these
-    # 5 years 1.9e-7 au without the corrector, 2e-10 au with the order-3 corrector at 0.5 d
-    # and 1.1e-9 au at the engine's 1-day step (measured here). 1e-8 au fails if the corrector
-    # is lost.
+    # 5 years 1.9e-7 au without the corrector, 2e-10 au with the order-3 corrector the engine
+    # uses (measured here). 1e-8 au fails if the corrector is lost.
     tol_au = 1e-8
     bodies = massive_bodies_from_ephemeris(T0)
     r, v, beta = _particles(20)
@@ -131,7 +130,7 @@ def test_unsynchronised_whfast_matches_safe_mode_rebound():
     release = step_grid(T0, np.full(12, T0 + 10.0), 0.5)
     release[6:] += 20.0
     out_t = step_grid(T0, np.array([T0 + 200.0, T0 + 700.0]), 0.5)
-    ours = integrate_particles(bodies, release, r, v, beta, out_t, dt_days=0.5)
+    ours = integrate_particles(bodies, release, r, v, beta, out_t)
 
     sim = _new_simulation(bodies, "whfast", 0.5)
     sim.integrator.safe_mode = 1
