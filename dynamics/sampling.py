@@ -304,16 +304,18 @@ def main_rounds(targets, trails, options, executor, say, integrated):
             if len(pick) == 0 and (round_ == 0 or (fallback and round_ == 1)) and len(tg.idx_seen):
                 # shooting found no branch through Earth's passage: sample the whole pilot
                 # span uniformly instead, so that what is reported rests on real arrivals
-                inside = np.flatnonzero(
-                    (np.abs(tg.x_pool) <= tg.span_days) & np.isfinite(tg.x_pool) & ~taken[ti]
-                )
-                eligible, pick = inside, inside[:n_pick]
-                frac = len(pick) / max(1, len(inside))
-                tg.selection_mode = (
-                    "uniform fallback (shooting found no arrival at Earth's passage)"
+                pick, eligible, frac = uniform_fallback(
+                    tg, taken[ti], n_pick, "shooting found no arrival at Earth's passage"
                 )
             if len(pick) == 0 and round_ >= 1:
                 pick, eligible, frac = around_hits(tg, options, taken[ti], n_pick)
+            if shooting_exhausted(pick, round_, tg, _hits(per_target.get(ti, []), options)):
+                # the map's candidates are spent and none of its meteoroids met Earth's
+                # passage: the map misleads here (a folded, chaotic trail); the rest of the
+                # budget goes to the whole pilot span, uniformly
+                pick, eligible, frac = uniform_fallback(
+                    tg, taken[ti], n_pick, "shooting's meteoroids all missed Earth's passage"
+                )
             if len(pick) == 0:
                 continue
             tg.keep_prob[eligible] *= 1.0 - frac
@@ -347,6 +349,30 @@ def main_rounds(targets, trails, options, executor, say, integrated):
         if round_ >= 1:
             active = [ti for ti in active if _needs_refinement(per_target.get(ti, []), options)]
     return per_target, picked, integrated
+
+
+def uniform_fallback(tg: Target, taken: np.ndarray, budget: int, why: str):
+    """Up to ``budget`` free candidates drawn uniformly over the whole pilot span (the pool is
+    in random order): (picked, eligible, fraction) as :func:`select_for_window` gives them."""
+    inside = np.flatnonzero((np.abs(tg.x_pool) <= tg.span_days) & np.isfinite(tg.x_pool) & ~taken)
+    pick = inside[:budget]
+    tg.selection_mode = f"uniform fallback ({why})"
+    return pick, inside, len(pick) / max(1, len(inside))
+
+
+def shooting_exhausted(pick, round_: int, tg: Target, hits: int) -> bool:
+    """True when a targeted passage has nothing left to integrate after the first round (the
+    arrival map offers no candidate, and no hit to sample around) although none of its
+    meteoroids met Earth's passage: then, rather than end 'not reached' with budget unspent,
+    it falls back to uniform sampling once (the uniform stop rule ends it if that finds
+    nothing either)."""
+    return (
+        len(pick) == 0
+        and round_ >= 1
+        and hits == 0
+        and not tg.selection_mode.startswith("uniform")
+        and len(tg.idx_seen) > 0
+    )
 
 
 def around_hits(tg: Target, options, taken: np.ndarray, budget: int):

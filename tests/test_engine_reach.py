@@ -451,3 +451,31 @@ def test_a_refinement_round_integrates_what_the_hits_still_lack():
     # a narrow branch: 6 integrated, 4 met Earth's passage (most, but too few to judge)
     few = [_crossings_at(np.zeros(6), np.r_[np.zeros(4), np.full(2, 90.0)])]
     assert _needs_refinement(few, opts)
+
+
+@pytest.mark.invariant
+def test_spent_shooting_without_a_hit_falls_back_to_uniform_sampling():
+    # Issue 11: "fall back to wider uniform sampling when shooting fails". A folded old trail
+    # (the 1767 Leonid trail in 2001, 7 revolutions) could spend its arrival map's candidates
+    # with every meteoroid 15-25 days from Earth's passage and end "not reached" with most of
+    # its budget unspent (2 of 4 seeds at a 1-day step, 1 of 4 at 0.5 day). Then the rest of
+    # the budget goes to the whole pilot span, uniformly, once.
+    from dynamics.sampling import shooting_exhausted, uniform_fallback
+
+    tg = Target(0, 2001, "descending", 2452232.0, 7, 2452200.0, 12000.0, 12000.0)
+    tg.span_days = 100.0
+    tg.idx_seen = np.arange(40)
+    tg.x_pool = np.r_[np.linspace(-300.0, 300.0, 61), np.nan]
+    taken = np.zeros(len(tg.x_pool), dtype=bool)
+    taken[30] = True
+    none = np.zeros(0, dtype=int)
+    assert shooting_exhausted(none, 1, tg, hits=0)
+    assert not shooting_exhausted(none, 0, tg, hits=0)  # round 0 has its own fallback
+    assert not shooting_exhausted(none, 2, tg, hits=1)  # a hit: sample around it instead
+    assert not shooting_exhausted(np.arange(3), 2, tg, hits=0)  # the map still offers some
+    pick, eligible, frac = uniform_fallback(tg, taken, 50, "shooting's meteoroids all missed")
+    # the pilot span (|x| <= 100 d: 21 points), finite, not yet integrated: 20 of them
+    assert len(eligible) == 20 and set(pick) == set(eligible) and frac == 1.0
+    assert np.all(np.abs(tg.x_pool[pick]) <= 100.0) and 30 not in pick
+    assert tg.selection_mode.startswith("uniform fallback")
+    assert not shooting_exhausted(none, 2, tg, hits=0)  # once only
