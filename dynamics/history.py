@@ -136,9 +136,7 @@ def _parent_simulation(orbit: OrbitInput) -> ParentSimulation:
         orbit.epoch_tdb_jd,
     )
     ng = orbit.nongrav
-    nongrav = (
-        None if ng is None else (ng.a1_au_d2, ng.a2_au_d2, ng.a3_au_d2, nongrav_g, ng.dt_days)
-    )
+    nongrav = None if ng is None else (ng.a1_au_d2, ng.a2_au_d2, ng.a3_au_d2, nongrav_g, ng.dt_days)
     return ParentSimulation(bodies, r, v, nongrav)
 
 

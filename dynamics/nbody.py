@@ -302,8 +302,9 @@ class ParentSimulation:
         ``(a1, a2, a3, g)`` or ``(a1, a2, a3, g, dt)``: the Marsden coefficients (au/day^2),
         the g(r) law and the asymmetric model's offset dt (days; Yeomans & Chodas 1989: g is
         taken at the distance of ``t - dt`` on the osculating orbit); the acceleration
-        ``g (A1 R + A2 T + A3 N)`` is applied through a Python callback on this one particle. General relativity (REBOUNDx) is used only without non-gravitational
-        forces: a Python force callback and REBOUNDx cannot share one simulation.
+        ``g (A1 R + A2 T + A3 N)`` is applied through a Python callback on this one particle.
+        General relativity (REBOUNDx) is used only without non-gravitational forces: a Python
+        force callback and REBOUNDx cannot share one simulation.
     """
 
     def __init__(self, bodies: MassiveBodies, r_helio_au, v_helio_au_d, nongrav=None):

@@ -17,8 +17,8 @@ from dynamics.errors import InvalidOrbit
 from dynamics.orbit_input import ORBIT_KEYS
 
 #: Columns of a CSV batch: the orbit JSON's keys (README, "The orbit input"); ``nongrav.a1`` etc.
-#: for the optional non-gravitational parameters (``nongrav.dt`` in days). Covariances and alternative solutions need the
-#: JSON-lines form.
+#: for the optional non-gravitational parameters (``nongrav.dt`` in days). Covariances and
+#: alternative solutions need the JSON-lines form.
 _NONGRAV_COLUMNS = ("nongrav.a1", "nongrav.a2", "nongrav.a3", "nongrav.dt")
 #: ``m1`` and ``k1``, the total magnitude that sets the dust production, are optional columns.
 CSV_COLUMNS = (*ORBIT_KEYS[: ORBIT_KEYS.index("nongrav")], *_NONGRAV_COLUMNS, "m1", "k1")

@@ -76,7 +76,11 @@ BAD_SUBMISSIONS = [
     ({**TINY, "orbit": {**DEMO_ORBIT, "q": 1e-9}}, 422, "orbit.q"),
     ({**TINY, "orbit": {**DEMO_ORBIT, "q": 1e308}}, 422, "orbit.q"),  # no dust reaches Earth
     ({**TINY, "orbit": {**DEMO_ORBIT, "epoch": 2_000_000.5}}, 422, "orbit.epoch"),  # not DE423
-    ({**TINY, "orbit": {**DEMO_ORBIT, "nongrav": {"a1": 1e-9, "dt": 500}}}, 422, "orbit.nongrav.dt"),
+    (
+        {**TINY, "orbit": {**DEMO_ORBIT, "nongrav": {"a1": 1e-9, "dt": 500}}},
+        422,
+        "orbit.nongrav.dt",
+    ),
     ({**TINY, "orbit": {**DEMO_ORBIT, "name": "P/x\r\nEND:VCALENDAR"}}, 422, "orbit.name"),
     ({**TINY, "options": {"trails": [-5000]}}, 422, "options.trails.0"),
     ({**TINY, "options": {"trails": [99999]}}, 422, "options.trails.0"),

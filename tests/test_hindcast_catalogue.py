@@ -152,7 +152,9 @@ def _check_orbit(name: str, orbit: dict, sources: dict, problems: list[str]) -> 
         problems.append(f"{where}: nongrav_au_d2 must be null or a1/a2/a3 below 1e-6 au/day^2")
     dt = orbit.get("nongrav_dt_days")
     if dt is not None and (nongrav is None or not isinstance(dt, float) or not abs(dt) <= 365.0):
-        problems.append(f"{where}: nongrav_dt_days needs a1/a2/a3 and a number of days within a year")
+        problems.append(
+            f"{where}: nongrav_dt_days needs a1/a2/a3 and a number of days within a year"
+        )
     mag = orbit.get("magnitude", "missing")
     if mag == "missing" and " / " in name:
         pass  # an alternative solution shares its parent's magnitude

@@ -478,7 +478,9 @@ def test_distance_after_hyperbola_against_brentq():
     for dt in (-400.0, -30.0, 3.0, 250.0):
         m = n * dt
         h = brentq(lambda x, m=m: e * math.sinh(x) - x - m, -50.0, 50.0, xtol=1e-15)
-        assert orbits.distance_after(r0, v0, dt) == pytest.approx(a * (1 - e * math.cosh(h)), rel=1e-11)
+        assert orbits.distance_after(r0, v0, dt) == pytest.approx(
+            a * (1 - e * math.cosh(h)), rel=1e-11
+        )
 
 
 @pytest.mark.invariant
