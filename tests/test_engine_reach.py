@@ -458,8 +458,9 @@ def test_spent_shooting_without_a_hit_falls_back_to_uniform_sampling():
     # Issue 11: "fall back to wider uniform sampling when shooting fails". A folded old trail
     # (the 1767 Leonid trail in 2001, 7 revolutions) could spend its arrival map's candidates
     # with every meteoroid 15-25 days from Earth's passage and end "not reached" with most of
-    # its budget unspent (2 of 4 seeds at a 1-day step, 1 of 4 at 0.5 day). Then the rest of
-    # the budget goes to the whole pilot span, uniformly, once.
+    # its budget unspent (seen in 2 of 4 seeds at a trial 1-day step; the one seed of 4 that
+    # missed at 0.5 day had a hit, and is sampled around it instead). Then the rest of the
+    # budget goes to the whole pilot span, uniformly, once.
     from dynamics.sampling import shooting_exhausted, uniform_fallback
 
     tg = Target(0, 2001, "descending", 2452232.0, 7, 2452200.0, 12000.0, 12000.0)
