@@ -71,6 +71,9 @@ __all__ = [
 # closed forms lose digits to cancellation; 12 terms reach 4**12 / 27! < 1e-18 there.
 _STUMPFF_SERIES_LIMIT = 4.0
 _STUMPFF_TERMS = 12
+# Their coefficients 1/(2k+2)! (C) and 1/(2k+3)! (S), k = _STUMPFF_TERMS .. 0 (Horner order).
+_STUMPFF_C_COEF = tuple(1.0 / math.factorial(2 * k + 2) for k in range(_STUMPFF_TERMS, -1, -1))
+_STUMPFF_S_COEF = tuple(1.0 / math.factorial(2 * k + 3) for k in range(_STUMPFF_TERMS, -1, -1))
 # G(x) = atan(sqrt x)/sqrt x uses its series for |x| below this; 20 terms give 0.1**20/41 < 1e-21.
 _G_SERIES_LIMIT = 0.1
 _G_TERMS = 20
@@ -121,11 +124,11 @@ def _stumpff_cs(z):
     if np.any(small):
         zs = z[small]
         # C = sum (-z)^k/(2k+2)!, S = sum (-z)^k/(2k+3)!, by Horner's rule from the last term.
-        cc = np.full_like(zs, 1.0 / math.factorial(2 * _STUMPFF_TERMS + 2))
-        ss = np.full_like(zs, 1.0 / math.factorial(2 * _STUMPFF_TERMS + 3))
-        for k in range(_STUMPFF_TERMS - 1, -1, -1):
-            cc = 1.0 / math.factorial(2 * k + 2) - zs * cc
-            ss = 1.0 / math.factorial(2 * k + 3) - zs * ss
+        cc = np.full_like(zs, _STUMPFF_C_COEF[0])
+        ss = np.full_like(zs, _STUMPFF_S_COEF[0])
+        for c_k, s_k in zip(_STUMPFF_C_COEF[1:], _STUMPFF_S_COEF[1:], strict=True):
+            cc = c_k - zs * cc
+            ss = s_k - zs * ss
         c[small] = cc
         s[small] = ss
     pos = (~small) & (z > 0.0)
@@ -672,11 +675,6 @@ def propagate(r_au, v_au_d, t0_tdb_jd, t_tdb_jd, mu=GM_SUN_AU3_D2):
     """
     el = state_to_elements(r_au, v_au_d, t0_tdb_jd, mu)
     return el.state_at(t_tdb_jd)
-
-
-# 1/(2k+2)! and 1/(2k+3)!, k = STUMPFF_TERMS .. 0 (Horner order), for the scalar series.
-_STUMPFF_C_COEF = tuple(1.0 / math.factorial(2 * k + 2) for k in range(_STUMPFF_TERMS, -1, -1))
-_STUMPFF_S_COEF = tuple(1.0 / math.factorial(2 * k + 3) for k in range(_STUMPFF_TERMS, -1, -1))
 
 
 def _stumpff_scalar(z: float) -> tuple[float, float]:

@@ -309,7 +309,9 @@ def main_rounds(targets, trails, options, executor, say, integrated):
                 )
             if len(pick) == 0 and round_ >= 1:
                 pick, eligible, frac = around_hits(tg, options, taken[ti], n_pick)
-            if shooting_exhausted(pick, round_, tg, _hits(per_target.get(ti, []), options)):
+            if len(pick) == 0 and shooting_exhausted(
+                pick, round_, tg, _hits(per_target.get(ti, []), options)
+            ):
                 # the map's candidates are spent and none of its meteoroids met Earth's
                 # passage: the map misleads here (a folded, chaotic trail); the rest of the
                 # budget goes to the whole pilot span, uniformly
