@@ -268,10 +268,14 @@ def draw_candidates(
     dirs = sunward_directions(-r / rn[:, None], rng, law=model.direction_law)
     sample_weight = np.ones(n)
     t = ret.arc_t_tdb_jd[ia]
-    el_c = state_to_elements(r, v_parent, t, GM_SUN_AU3_D2)
+    # the parent's osculating period and perihelion time at each release: computed once per
+    # arc sample (hundreds) and indexed, not once per candidate (hundreds of thousands)
+    el_arc = state_to_elements(ret.arc_r_au, ret.arc_v_au_d, ret.arc_t_tdb_jd, GM_SUN_AU3_D2)
+    per_c = np.asarray(el_arc.period_days, dtype=float).reshape(-1)[ia]
+    tp_c = np.asarray(el_arc.tp_tdb_jd, dtype=float).reshape(-1)[ia]
     if inverse_a_window is not None and model.speed_spread == "uniform":
         kp = 2.0 * np.pi / np.sqrt(GM_SUN_AU3_D2)
-        inv_a_c = (np.asarray(el_c.period_days) / kp) ** (-2.0 / 3.0)
+        inv_a_c = (per_c / kp) ** (-2.0 / 3.0)
         lo_inv, hi_inv = inv_a_c + inverse_a_window[0], inv_a_c + inverse_a_window[1]
         window = (
             kp * np.where(hi_inv > 0, hi_inv, np.nan) ** -1.5,  # larger 1/a: shorter period
@@ -297,10 +301,10 @@ def draw_candidates(
         beta=beta,
         speed_m_s=speed,
         weight=weight,
-        dperiod_days=per_p - np.asarray(el_c.period_days),
-        dtp_days=tp_p - np.asarray(el_c.tp_tdb_jd),
+        dperiod_days=per_p - per_c,
+        dtp_days=tp_p - tp_c,
         sample_weight=sample_weight,
-        parent_period_days=np.asarray(el_c.period_days, dtype=float),
+        parent_period_days=per_c,
     )
     return cand.take(np.flatnonzero(bound))
 
