@@ -301,14 +301,20 @@ def main_rounds(targets, trails, options, executor, say, integrated):
                 amap, tg.x_pool, tg.cls, options.window_days, taken[ti], n_pick
             )
             fallback = tg.selection_mode.startswith("uniform")
+            if len(pick) == 0 and round_ >= 1:
+                pick, eligible, frac = around_hits(tg, options, taken[ti], n_pick)
+            if len(pick) == 0:
+                # the smoothed map misses Earth's passage, but integrated arrivals on either
+                # side of it (in one beta class, adjacent in prediction) enclose a root of the
+                # real arrival function: bisect there, a probe's worth a round (exploration:
+                # a few meteoroids a bracket narrow it; hits hand over to the map)
+                pick, eligible, frac = between_brackets(tg, options, taken[ti], min(n_pick, probe))
             if len(pick) == 0 and (round_ == 0 or (fallback and round_ == 1)) and len(tg.idx_seen):
                 # shooting found no branch through Earth's passage: sample the whole pilot
                 # span uniformly instead, so that what is reported rests on real arrivals
                 pick, eligible, frac = uniform_fallback(
                     tg, taken[ti], n_pick, "shooting found no arrival at Earth's passage"
                 )
-            if len(pick) == 0 and round_ >= 1:
-                pick, eligible, frac = around_hits(tg, options, taken[ti], n_pick)
             if len(pick) == 0 and shooting_exhausted(
                 pick, round_, tg, _hits(per_target.get(ti, []), options)
             ):
@@ -377,6 +383,66 @@ def shooting_exhausted(pick, round_: int, tg: Target, hits: int) -> bool:
     )
 
 
+def arrival_brackets(tg: Target, window_days: float) -> list[tuple[int, float, float]]:
+    """(beta class, x_lo, x_hi) of every pair of integrated meteoroids, adjacent in predicted
+    offset within one beta class, that arrived on opposite sides of Earth's passage (both
+    outside the window), those whose arrivals came nearest to it first. The real arrival
+    function, continuous in the ejection's 1/a offset between folds, crosses Earth's passage in
+    between, or jumps there; bisection narrows both kinds, only a root gives meteoroids at
+    Earth's passage."""
+    found = []
+    ok = np.isfinite(tg.x_seen) & np.isfinite(tg.y_seen)
+    for c in np.unique(tg.c_seen[ok]):
+        sel = ok & (tg.c_seen == c)
+        order = np.argsort(tg.x_seen[sel], kind="stable")
+        xs, ys = tg.x_seen[sel][order], tg.y_seen[sel][order]
+        side = np.where(ys > window_days, 1, np.where(ys < -window_days, -1, 0))
+        for i in np.flatnonzero((side[:-1] * side[1:] < 0) & (xs[1:] > xs[:-1])):
+            near = min(abs(ys[i]), abs(ys[i + 1]))
+            found.append((near, int(c), float(xs[i]), float(xs[i + 1])))
+    found.sort()
+    return [(c, lo, hi) for _, c, lo, hi in found]
+
+
+def between_brackets(tg: Target, options, taken: np.ndarray, budget: int):
+    """Candidates inside the arrival brackets (:func:`arrival_brackets`): (picked, eligible,
+    per-candidate inclusion probability) as :func:`select_for_window` gives them.
+
+    Each bracket (at most ``budget`` of them, the nearest arrivals first) gets an equal share
+    of the budget, spent on a random subset of the free candidates of its beta class strictly
+    inside it (the pool is in random order), each with its bracket's inclusion probability; a
+    candidate inside two brackets counts in the first. Later rounds repeat it on the narrower
+    brackets the new arrivals leave: bisection shooting, for maps folded or scattered beyond
+    what a running median follows (old, strongly perturbed trails).
+    """
+    empty = np.zeros(0, dtype=int)
+    if budget <= 0:
+        return empty, empty, 0.0
+    brackets = arrival_brackets(tg, options.window_days)[:budget]
+    free = ~taken & np.isfinite(tg.x_pool)
+    assigned = np.zeros(len(tg.x_pool), dtype=bool)
+    groups = []
+    for c, lo, hi in brackets:
+        inside = np.flatnonzero(
+            free & ~assigned & (tg.cls == c) & (tg.x_pool > lo) & (tg.x_pool < hi)
+        )
+        if len(inside):
+            assigned[inside] = True
+            groups.append(inside)
+    if not groups:
+        return empty, empty, 0.0
+    share = max(1, budget // len(groups))
+    pick = np.concatenate([g[:share] for g in groups])
+    eligible = np.concatenate(groups)
+    prob = np.concatenate([np.full(len(g), min(share, len(g)) / len(g)) for g in groups])
+    n = len(groups)
+    tg.selection_mode = (
+        "shooting, then bisection between arrivals on either side of Earth's passage "
+        f"({n} bracket{'s' if n != 1 else ''})"
+    )
+    return pick, eligible, prob
+
+
 def around_hits(tg: Target, options, taken: np.ndarray, budget: int):
     """Candidates next to the meteoroids that did meet Earth's passage, when the arrival map
     offers no new ones: (picked, eligible, fraction) as :func:`select_for_window` gives them.
@@ -439,7 +505,11 @@ def enough_said(tg: Target, parts, options) -> str | None:
     at_passage = np.isfinite(cr.t_cross_tdb_jd) & (
         np.abs(cr.t_cross_tdb_jd - tg.t_earth) <= options.window_days
     )
-    if tg.selection_mode.startswith("uniform") and not at_passage.any():
+    if (
+        tg.selection_mode.startswith("uniform")
+        and not at_passage.any()
+        and not arrival_brackets(tg, options.window_days)
+    ):
         return (
             f"a uniform sample of {n} meteoroids had none within {options.window_days:g} days "
             "of Earth's passage"

@@ -368,6 +368,52 @@ def test_a_plateau_finer_than_the_pilot_is_sampled_around_its_hits():
 
 
 @pytest.mark.invariant
+def test_arrivals_on_either_side_of_earths_passage_are_bisected():
+    # An old trail's arrival map is folded and scattered: the running median misses Earth's
+    # passage, yet two meteoroids adjacent in predicted offset (same beta class) that arrived
+    # 60 d early and 80 d late enclose a root of the real arrival function (continuity in the
+    # ejection's 1/a). Candidates of that class strictly between them are eligible, each
+    # bracket with its own inclusion probability; pairs on one side, pairs with a hit, pairs
+    # of another class and pairs at one predicted offset enclose nothing.
+    from dynamics.sampling import arrival_brackets, between_brackets, enough_said
+
+    opts = ForecastOptions(1999, 1999, workers=1)
+    tg = Target(0, 1999, "descending", 2451500.5, 14, 2451500.0, 12000.0, 12000.0)
+    tg.x_seen = np.array([0.0, 10.0, 20.0, 30.0, 40.0, 50.0, 60.0, 60.0, 5.0, 15.0])
+    tg.y_seen = np.array([-100.0, -60.0, 80.0, 120.0, 5.0, -400.0, 300.0, -300.0, -90, 500])
+    tg.c_seen = np.r_[np.zeros(8, dtype=int), np.ones(2, dtype=int)]
+    # class 0: (10, 20) -60 -> +80 brackets; (40, 50) holds a hit (5 d); (50, 60) -400 ->
+    # +300 brackets (farther arrivals: listed second); the pair at x = 60 has no width.
+    # class 1: (5, 15) -90 -> +500 brackets
+    got = arrival_brackets(tg, opts.window_days)
+    assert got == [(0, 10.0, 20.0), (1, 5.0, 15.0), (0, 50.0, 60.0)]
+    tg.x_pool = np.linspace(0.0, 60.0, 601)  # 0.1 d apart
+    tg.cls = np.zeros(601, dtype=int)
+    tg.cls[::4] = 1
+    taken = np.zeros(601, dtype=bool)
+    pick, eligible, prob = between_brackets(tg, opts, taken, budget=30)
+    x, c = tg.x_pool, tg.cls
+    inside = ((c == 0) & (((x > 10) & (x < 20)) | ((x > 50) & (x < 60)))) | (
+        (c == 1) & (x > 5) & (x < 15)
+    )
+    assert set(eligible) == set(np.flatnonzero(inside))
+    assert len(pick) == 30 and set(pick) <= set(eligible)
+    # 10 picks per bracket: class 0 brackets hold 74 candidates each, class 1's 25
+    n_in = {0: np.sum(inside & (c == 0) & (x < 30)), 1: np.sum(inside & (c == 1))}
+    first = eligible[(c[eligible] == 0) & (x[eligible] < 30)]
+    assert prob[np.isin(eligible, first)] == pytest.approx(10 / n_in[0])
+    assert prob[c[eligible] == 1] == pytest.approx(10 / n_in[1])
+    assert "bisection" in tg.selection_mode and "3 brackets" in tg.selection_mode
+    # a uniform fallback that met Earth's passage not at all but left brackets goes on
+    tg.selection_mode = "uniform fallback (shooting found no arrival at Earth's passage)"
+    none = _crossings_at(np.full(75, 0.03), np.full(75, 90.0))
+    assert enough_said(tg, [none], opts) is None
+    tg.y_seen = np.abs(tg.y_seen) + 30.0  # every arrival late: no bracket, stop
+    assert arrival_brackets(tg, opts.window_days) == []
+    assert "none within" in enough_said(tg, [none], opts)
+
+
+@pytest.mark.invariant
 @pytest.mark.parametrize(("n", "workers"), [(750, 2), (1000, 2), (7, 2), (1, 2), (750, 1), (5, 8)])
 def test_chunks_keep_every_worker_busy_and_every_meteoroid_once(n, workers):
     # 750 meteoroids in chunks of at most 250 on 2 workers: 4 chunks, not 3 (one worker idle a
