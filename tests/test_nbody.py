@@ -158,3 +158,18 @@ def test_unsynchronised_whfast_matches_safe_mode_rebound():
         ref[j] = [[p.x - sun.x, p.y - sun.y, p.z - sun.z] for p in sim.particles[sim.N_active :]]
     del rebx
     assert np.max(np.abs(ours.r_au - ref)) < 1e-9
+
+
+@pytest.mark.invariant
+def test_forecast_pools_start_their_workers_at_once():
+    # make_executor starts each worker as it opens the pool (one warm-up submission per
+    # worker), so worker start-up overlaps the serial stages instead of the first round.
+    import os
+
+    from dynamics.executors import make_executor, warm_up
+
+    assert warm_up() == os.getpid()
+    with make_executor(2) as pool:
+        running = len(pool._processes)  # CPython's pool: processes started so far
+        pids = {pool.submit(warm_up).result() for _ in range(4)}
+    assert running == 2 and os.getpid() not in pids
