@@ -398,7 +398,7 @@ def test_arrivals_on_either_side_of_earths_passage_are_bisected():
     )
     assert set(eligible) == set(np.flatnonzero(inside))
     assert len(pick) == 30 and set(pick) <= set(eligible)
-    # 10 picks per bracket: class 0 brackets hold 74 candidates each, class 1's 25
+    # 10 picks per bracket (budget 30, 3 brackets), each bracket's own probability
     n_in = {0: np.sum(inside & (c == 0) & (x < 30)), 1: np.sum(inside & (c == 1))}
     first = eligible[(c[eligible] == 0) & (x[eligible] < 30)]
     assert prob[np.isin(eligible, first)] == pytest.approx(10 / n_in[0])
