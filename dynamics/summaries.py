@@ -47,6 +47,12 @@ VISUAL_LIMITING_MAGNITUDE = 6.5
 PEAK_BASIS_PROFILE = "maximum of the modelled ZHR profile (visual-size meteoroids)"
 PEAK_BASIS_CENTRE = "centre of the visual-size meteoroids (their modelled ZHR is 0)"
 PEAK_BASIS_ALL = "centre of all sizes (too few visual-size meteoroids)"
+#: The mass of a +6.5 mag meteor is uncertain by a factor of a few (limiting_mass_g); the
+#: reported ZHR range also spans the peak with the visual limit this factor heavier and
+#: lighter. Most encounters barely move; one made of meteoroids at the threshold (small,
+#: high-beta grains that alone reach a trail's far portions) can fall to nothing, and its
+#: range says so. No source for the factor: the lower end of "a few".
+LIMITING_MASS_RANGE_FACTOR = 2.0
 VISUAL_SIZE_SOURCE = (
     "meteoroids above the mass of a +6.5 mag meteor at their speed (ZHR definition; "
     "mass-magnitude-speed relation of Jenniskens 1994 after Verniani 1973)"
@@ -275,7 +281,8 @@ def summarise(
         / inclusion[keep]
         * options.zhr_scale
     )
-    visual = met.mass_g >= limiting_mass_g(sub.vinf_km_s, VISUAL_LIMITING_MAGNITUDE)
+    m_lim = limiting_mass_g(sub.vinf_km_s, VISUAL_LIMITING_MAGNITUDE)
+    visual = met.mass_g >= m_lim
     te, miss = sub.t_earth_tdb_jd, sub.miss_distance_au
     if visual.sum() >= MIN_PARTICLES:
         basis = PEAK_BASIS_CENTRE
@@ -293,19 +300,28 @@ def summarise(
     ra, dec = circular_median_radec(sub.ra_deg[pick], sub.dec_deg[pick])
     dilution = 1.0 / max(1.0, abs(slope) * tg.revolutions) if np.isfinite(slope) else float("nan")
     _, v_e = heliocentric_state("earth", centre)
-    prof = trail_activity(
-        te,
-        miss,
-        (sub.t_cross_tdb_jd - sub.t_earth_tdb_jd),
-        met.mass_g,
-        np.where(visual, counts, 0.0),
-        sub.vg_km_s,
-        sub.vz_au_d,  # speed through the plane of Earth's path (crossings.py)
-        earth_speed_au_d=float(np.linalg.norm(v_e)),
-        population_index=r_pop,
-        window_days=options.window_days,
-        rng=options.seed,
-    )
+
+    def activity(weights, **kw) -> Profile:
+        return trail_activity(
+            te,
+            miss,
+            (sub.t_cross_tdb_jd - sub.t_earth_tdb_jd),
+            met.mass_g,
+            weights,
+            sub.vg_km_s,
+            sub.vz_au_d,  # speed through the plane of Earth's path (crossings.py)
+            earth_speed_au_d=float(np.linalg.norm(v_e)),
+            population_index=r_pop,
+            window_days=options.window_days,
+            **kw,
+        )
+
+    prof = activity(np.where(visual, counts, 0.0), rng=options.seed)
+    # the visual limit's own uncertainty: the peak with it heavier and lighter
+    limit_peaks = [
+        activity(np.where(met.mass_g >= m_lim * f, counts, 0.0), n_boot=0).peak_zhr
+        for f in (LIMITING_MASS_RANGE_FACTOR, 1.0 / LIMITING_MASS_RANGE_FACTOR)
+    ]
     peak = centre
     if basis == PEAK_BASIS_CENTRE and prof.peak_zhr > 0:
         # the peak observers see: where the modelled rate is highest. Each mass class is taken
@@ -338,8 +354,8 @@ def summarise(
         profile=prof,
         population_index=r_pop,
         zhr_estimate=prof.peak_zhr,
-        zhr_low=min(b16, prof.peak_zhr) / factor,
-        zhr_high=max(b84, prof.peak_zhr) * factor,
+        zhr_low=min(b16, prof.peak_zhr, limit_peaks[0]) / factor,
+        zhr_high=max(b84, prof.peak_zhr, limit_peaks[1]) * factor,
         zhr_mode=mode,
         peak_basis=basis,
         centre_tdb_jd=centre,
