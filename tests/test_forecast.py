@@ -300,7 +300,7 @@ def test_zhr_range_spans_the_visual_limits_uncertainty():
     # rests on the mass-magnitude relation's threshold. Observed: a ZHR of about 80-100 near
     # 04:45 UT on November 19 (from memory). With the limit twice heavier almost no meteoroid
     # counts: the range now reaches down past the observed rate (before: its low end was the
-    # bootstrap's 16th percentile over the model factor, ~340).
+    # bootstrap's 16th percentile over the model factor: 254 at this budget, measured here).
     orbit = parse_orbit(PARENT_55P)
     res = forecast(orbit, ForecastOptions(2006, 2006, trails=(1932,), particles=150, workers=2))
     enc = [
