@@ -11,9 +11,21 @@ which the dust-trail engine uses by default after the measurement in ``benchmark
 
 Radiation pressure and Poynting-Robertson drag act per particle through REBOUNDx
 ``radiation_forces`` (Tamayo et al. 2020; Burns, Lamy & Soter 1979), with the speed of light set
-in au/day. General relativity acts on every body through REBOUNDx ``gr`` with the Sun as its
+in au/day. General relativity acts on the planets through REBOUNDx ``gr`` with the Sun as its
 source (Anderson et al. 1975): without it Mercury drifts from DE423 by ~5e4 km and Venus by ~9e3
-km per century (measured in ``tests/test_nbody.py``).
+km per century (measured in ``tests/``).
+
+Planets held to a track. In a meteoroid integration the planets are put back every
+:data:`PLANET_HOLD_DAYS` on a track computed once per start state (:func:`planet_track`): DE423
+inside its span, before it a planets-only integration with ``gr``. REBOUNDx ``gr`` acts on every
+particle of a simulation and cost ~35 % of a meteoroid step (measured in ``benchmarks/``), so
+the meteoroids go without it. What that changes, measured: the perihelion advances ~0.02" less
+a revolution (6 pi GM / (c^2 a (1 - e^2)) for q ~ 1 au, e ~ 0.9; Weinberg 1972), and the period
+of an orbit released with a given state differs by ~1e-6 (the relativistic term at perihelion,
+GM / (c^2 r) ~ 1e-8, weighs 2a/r more in the energy of a long ellipse): over a century
+Leonid-like meteoroids sit ~1e-4 au further along their orbits, the same as ejection speeds
+~1 mm/s apart, while the trail's crossing of Earth's path, which is what a forecast reads,
+moved by 0-4 s in time and < 1e-6 au in distance (default 1999 forecast of the README).
 
 The parent comet's own integration (:class:`ParentSimulation`, IAS15 with optional Marsden
 non-gravitational forces) is here too, so that no other module touches REBOUND.
@@ -21,6 +33,7 @@ non-gravitational forces) is here too, so that no other module touches REBOUND.
 
 import math
 import warnings
+from collections import OrderedDict
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -105,6 +118,14 @@ def _new_simulation(bodies: MassiveBodies, integrator: str, dt_days: float):
         sim.add(m=float(gm), x=r[0], y=r[1], z=r[2], vx=v[0], vy=v[1], vz=v[2])
     sim.N_active = len(bodies.names)
     sim.testparticle_type = 0  # test particles feel the planets, never the reverse
+    _set_integrator(sim, integrator, dt_days)
+    return sim
+
+
+def _set_integrator(sim, integrator: str, dt_days: float) -> None:
+    """Select and configure the integrator. Selecting it again after particle states were set
+    from outside makes it start from those states (measured: WHFast otherwise keeps stepping its
+    own internal coordinates and ignores them)."""
     if integrator == "whfast":
         sim.integrator = "whfast"
         sim.integrator.coordinates = "democraticheliocentric"
@@ -125,7 +146,6 @@ def _new_simulation(bodies: MassiveBodies, integrator: str, dt_days: float):
         sim.integrator = "ias15"
         sim.integrator.epsilon = IAS15_EPSILON
         sim.dt = float(dt_days)
-    return sim
 
 
 def _attach_forces(sim, radiation: bool, relativity: bool = True):
@@ -152,6 +172,106 @@ def _attach_forces(sim, radiation: bool, relativity: bool = True):
     return rebx
 
 
+#: How often the planets of a meteoroid integration are put back on their track (days). Between
+#: two holds they move without relativity: Mercury then leaves DE423 by up to ~150 km, the other
+#: planets by < 20 km (measured in ``tests/test_nbody.py``). Holding every 10 days instead moved
+#: Leonid-like meteoroids by 2e-9 au (median) over a century and cost 1.7x the time; holding
+#: every 100 days costs ~5 % over none (measured here, 200 meteoroids).
+PLANET_HOLD_DAYS = 100.0
+#: Planet tracks kept per process (a worker meets the same trail's start in every round).
+_TRACK_CACHE_SIZE = 8
+_TRACKS: "OrderedDict[tuple, PlanetTrack]" = OrderedDict()
+
+
+@dataclass(frozen=True)
+class PlanetTrack:
+    """Barycentric states of the massive bodies at hold times (ecliptic J2000).
+
+    ``r_au`` and ``v_au_d`` have shape (n_times, n_bodies, 3). ``source`` says, per time,
+    ``"de423"`` or ``"integrated"`` (before DE423's span: WHFast with ``gr`` from the start
+    state, at the meteoroids' step).
+    """
+
+    t_tdb_jd: np.ndarray
+    r_au: np.ndarray
+    v_au_d: np.ndarray
+    source: tuple[str, ...]
+
+
+def planet_track(
+    bodies: MassiveBodies,
+    t_end_tdb_jd: float,
+    dt_days: float,
+    every_days: float = PLANET_HOLD_DAYS,
+) -> PlanetTrack:
+    """The planets' states every ``every_days`` (a whole number of steps) after ``bodies.t``
+    up to ``t_end_tdb_jd``: DE423 (Folkner 2010) inside its span, where no integration can do
+    better; before it, the planets integrated with WHFast and REBOUNDx ``gr`` from ``bodies``
+    (the meteoroid integration's own start state, e.g. a parent history's planets before 1800).
+
+    Kept in a small per-process cache: every chunk of a trail starts from the same state.
+    """
+    from .ephemeris import EPHEMERIS_SPAN_TDB_JD
+
+    step = max(1, int(round(every_days / dt_days))) * dt_days
+    t0 = bodies.t_tdb_jd
+    key = (t0, bodies.r_au.tobytes(), bodies.v_au_d.tobytes(), float(t_end_tdb_jd), dt_days, step)
+    hit = _TRACKS.get(key)
+    if hit is not None:
+        _TRACKS.move_to_end(key)
+        return hit
+    n = int(math.floor((t_end_tdb_jd - t0) / step + 1e-9))
+    times = t0 + step * np.arange(1, max(n, 0) + 1)
+    r = np.empty((len(times), len(bodies.names), 3))
+    v = np.empty_like(r)
+    inside = (times >= EPHEMERIS_SPAN_TDB_JD[0]) & (times <= EPHEMERIS_SPAN_TDB_JD[1])
+    if inside.any():
+        rr, vv = barycentric_states(bodies.names, times[inside], stacked=True)
+        r[inside] = np.swapaxes(rr, 0, 1)
+        v[inside] = np.swapaxes(vv, 0, 1)
+    before = np.flatnonzero(~inside & (times < EPHEMERIS_SPAN_TDB_JD[0]))
+    if len(before):
+        sim = _new_simulation(bodies, "whfast", dt_days)
+        with warnings.catch_warnings():
+            # gr is velocity dependent: under WHFast its error is of the order of the force
+            # itself times the step (checked against IAS15 in tests/test_nbody.py: < 1 km).
+            warnings.filterwarnings("ignore", message=".*velocity-dependent force.*")
+            rebx = _attach_forces(sim, radiation=False, relativity=True)
+            xyz = np.empty((sim.N, 3))
+            vel = np.empty((sim.N, 3))
+            for i in before:
+                _advance(sim, times[i], t0, dt_days, True)
+                sim.synchronize()
+                sim.serialize_particle_data(xyz=xyz, vxvyvz=vel)
+                r[i], v[i] = xyz, vel
+            del rebx
+    after = ~inside & (times > EPHEMERIS_SPAN_TDB_JD[1])
+    if after.any():
+        raise ValueError("a planet track cannot run past DE423's span (2200)")
+    source = tuple("de423" if k else "integrated" for k in inside)
+    track = PlanetTrack(times, r, v, source)
+    _TRACKS[key] = track
+    while len(_TRACKS) > _TRACK_CACHE_SIZE:
+        _TRACKS.popitem(last=False)
+    return track
+
+
+def _hold_planets(sim, integrator: str, dt_days: float, r_au, v_au_d) -> None:
+    """Put the massive bodies on (r_au, v_au_d) (barycentric) and move every test particle with
+    the Sun, so that heliocentric states, the ones that matter for meteoroids, are unchanged.
+    The simulation must be synchronised."""
+    n_active = sim.N_active
+    xyz = np.empty((sim.N, 3))
+    vel = np.empty((sim.N, 3))
+    sim.serialize_particle_data(xyz=xyz, vxvyvz=vel)
+    xyz[n_active:] += r_au[0] - xyz[0]
+    vel[n_active:] += v_au_d[0] - vel[0]
+    xyz[:n_active] = r_au
+    vel[:n_active] = v_au_d
+    sim.set_serialized_particle_data(xyz=xyz, vxvyvz=vel)
+    _set_integrator(sim, integrator, dt_days)
+
+
 def _read_states(sim, n_active: int):
     n = sim.N
     xyz = np.empty((n, 3))
@@ -170,12 +290,14 @@ class Snapshots:
     """Heliocentric states of test particles at output times (ecliptic J2000).
 
     ``r_au`` and ``v_au_d`` have shape (n_times, n_particles, 3); a particle not yet released at
-    an output time has NaN there.
+    an output time has NaN there. ``bodies_r_au`` (n_times, n_bodies, 3): the massive bodies'
+    barycentric positions in the simulation at those times (to check them against DE423).
     """
 
     t_tdb_jd: np.ndarray
     r_au: np.ndarray
     v_au_d: np.ndarray
+    bodies_r_au: np.ndarray | None = None
 
 
 def integrate_particles(
@@ -189,7 +311,7 @@ def integrate_particles(
     integrator: str = "whfast",
     dt_days: float = 0.5,
     radiation: bool = True,
-    relativity: bool = True,
+    planets: str = "held",
 ) -> Snapshots:
     """Integrate test particles released at given times with the Sun and planets.
 
@@ -211,8 +333,11 @@ def integrate_particles(
         WHFast step (days); IAS15's initial step.
     radiation : bool
         Apply REBOUNDx radiation forces when any beta > 0.
-    relativity : bool
-        Apply REBOUNDx general relativity (Sun as source) to every body.
+    planets : {"held", "integrated"}
+        ``"held"`` (default): the planets are put back on :func:`planet_track` every
+        :data:`PLANET_HOLD_DAYS` and no body feels relativity in this simulation (the track
+        carries it). ``"integrated"``: the planets move only by this integration, with REBOUNDx
+        ``gr`` (Sun as source) on every body, meteoroids included (the slower reference).
 
     Returns
     -------
@@ -232,20 +357,27 @@ def integrate_particles(
     n, m = len(release), len(out_t)
     if n and release.min() < bodies.t_tdb_jd - 1e-9:
         raise ValueError("a particle is released before the simulation starts")
+    if planets not in ("held", "integrated"):
+        raise ValueError(f"planets must be 'held' or 'integrated', not {planets!r}")
     order = np.argsort(release, kind="stable")
     sim = _new_simulation(bodies, integrator, dt_days)
     n_active = sim.N_active
     fixed_step = integrator == "whfast"
+    held = planets == "held" and m > 0
+    track = planet_track(bodies, float(out_t[-1]), dt_days) if held else None
 
     snaps_r = np.full((m, n, 3), np.nan)
     snaps_v = np.full((m, n, 3), np.nan)
-    # Events in time order: releases (kind 0) before outputs (kind 1) at the same instant.
+    snaps_bodies = np.empty((m, n_active, 3))
+    # Events in time order: holds (kind -1), then releases (kind 0), then outputs (kind 1) at
+    # the same instant.
+    holds = [] if track is None else [(t, -1, j) for j, t in enumerate(track.t_tdb_jd)]
     events = sorted(
-        [(release[i], 0, i) for i in order] + [(out_t[j], 1, j) for j in range(m)],
+        holds + [(release[i], 0, i) for i in order] + [(out_t[j], 1, j) for j in range(m)],
         key=lambda ev: (ev[0], ev[1]),
     )
     added: list[int] = []  # particle index of each simulation slot
-    rebx = _attach_forces(sim, bool(radiation and np.any(beta > 0)), relativity)
+    rebx = _attach_forces(sim, bool(radiation and np.any(beta > 0)), relativity=not held)
     with warnings.catch_warnings():
         # REBOUNDx warns that P-R drag is velocity dependent under WHFast: its error is of the
         # order of the drag itself (tiny for mm grains over centuries; see the README's
@@ -262,6 +394,9 @@ def integrate_particles(
             releases = [i for (_, kind, i) in batch if kind == 0]
             if fixed_step:  # WHFast steps unsynchronised: the states are needed now
                 sim.synchronize()
+            for _, kind, j in batch:
+                if kind == -1:
+                    _hold_planets(sim, integrator, dt_days, track.r_au[j], track.v_au_d[j])
             if releases:
                 sun = sim.particles[0]
                 sx, sy, sz, svx, svy, svz = sun.x, sun.y, sun.z, sun.vx, sun.vy, sun.vz
@@ -281,12 +416,12 @@ def integrate_particles(
                     added.append(i)
             for _, kind, j in batch:
                 if kind == 1:
-                    rh, vh, _, _ = _read_states(sim, n_active)
+                    rh, vh, snaps_bodies[j], _ = _read_states(sim, n_active)
                     idx = np.asarray(added, dtype=int)
                     snaps_r[j, idx] = rh
                     snaps_v[j, idx] = vh
     del rebx  # keep the REBOUNDx extras alive until the integration is over
-    return Snapshots(out_t, snaps_r, snaps_v)
+    return Snapshots(out_t, snaps_r, snaps_v, snaps_bodies)
 
 
 class ParentSimulation:
