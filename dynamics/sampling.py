@@ -301,6 +301,13 @@ def main_rounds(targets, trails, options, executor, say, integrated):
                 amap, tg.x_pool, tg.cls, options.window_days, taken[ti], n_pick
             )
             fallback = tg.selection_mode.startswith("uniform")
+            misled = map_misleads(round_, tg, _hits(per_target.get(ti, []), options))
+            if misled:
+                # two rounds of the map's picks and not one met Earth's passage: its window
+                # is a smoothing artefact here (a resonant plateau or a fold between pilot
+                # points); bisect, or sample the pilot span uniformly, a probe's worth
+                pick = np.zeros(0, dtype=int)
+                n_pick = min(n_pick, probe)
             if len(pick) == 0 and round_ >= 1:
                 pick, eligible, frac = around_hits(tg, options, taken[ti], n_pick)
             if len(pick) == 0:
@@ -314,6 +321,10 @@ def main_rounds(targets, trails, options, executor, say, integrated):
                 # span uniformly instead, so that what is reported rests on real arrivals
                 pick, eligible, frac = uniform_fallback(
                     tg, taken[ti], n_pick, "shooting found no arrival at Earth's passage"
+                )
+            if len(pick) == 0 and misled and len(tg.idx_seen):
+                pick, eligible, frac = uniform_fallback(
+                    tg, taken[ti], n_pick, "the arrival map's picks all missed Earth's passage"
                 )
             if len(pick) == 0 and shooting_exhausted(
                 pick, round_, tg, _hits(per_target.get(ti, []), options)
@@ -366,6 +377,17 @@ def uniform_fallback(tg: Target, taken: np.ndarray, budget: int, why: str):
     pick = inside[:budget]
     tg.selection_mode = f"uniform fallback ({why})"
     return pick, inside, len(pick) / max(1, len(inside))
+
+
+def map_misleads(round_: int, tg: Target, hits: int) -> bool:
+    """True from the first refinement round on for a passage still in shooting mode none of
+    whose meteoroids met Earth's passage: the probe and the selection round both sampled the
+    smoothed map's window and found nothing there. Rather than spend the refinement rounds on
+    the same window (a handful of candidates each round: a resonant trail's arrivals barely
+    depend on the predicted offset, so the map's window is narrow and wrong), the passage goes
+    to bisection of arrival brackets, else to a uniform sample of the pilot span, a probe's
+    worth a round; the uniform stop rule ends it when that finds nothing either."""
+    return round_ >= 2 and hits == 0 and tg.selection_mode == "shooting"
 
 
 def shooting_exhausted(pick, round_: int, tg: Target, hits: int) -> bool:
