@@ -178,8 +178,9 @@ def _attach_forces(sim, radiation: bool, relativity: bool = True):
 #: Leonid-like meteoroids by 2e-9 au (median) over a century and cost 1.7x the time; holding
 #: every 100 days costs ~5 % over none (measured here, 200 meteoroids).
 PLANET_HOLD_DAYS = 100.0
-#: Planet tracks kept per process (a worker meets the same trail's start in every round).
-_TRACK_CACHE_SIZE = 8
+#: Planet tracks kept per process (a worker meets the same trail's start in every round; a
+#: default forecast follows ~20 returns; a 500-year track takes ~1 MB).
+_TRACK_CACHE_SIZE = 32
 _TRACKS: "OrderedDict[tuple, PlanetTrack]" = OrderedDict()
 
 
@@ -188,7 +189,7 @@ class PlanetTrack:
     """Barycentric states of the massive bodies at hold times (ecliptic J2000).
 
     ``r_au`` and ``v_au_d`` have shape (n_times, n_bodies, 3). ``source`` says, per time,
-    ``"de423"`` or ``"integrated"`` (before DE423's span: WHFast with ``gr`` from the start
+    ``"de423"`` or ``"integrated"`` (outside DE423's span: WHFast with ``gr`` from the start
     state, at the meteoroids' step).
     """
 
@@ -206,21 +207,23 @@ def planet_track(
 ) -> PlanetTrack:
     """The planets' states every ``every_days`` (a whole number of steps) after ``bodies.t``
     up to ``t_end_tdb_jd``: DE423 (Folkner 2010) inside its span, where no integration can do
-    better; before it, the planets integrated with WHFast and REBOUNDx ``gr`` from ``bodies``
+    better; outside it, the planets integrated with WHFast and REBOUNDx ``gr`` from ``bodies``
     (the meteoroid integration's own start state, e.g. a parent history's planets before 1800).
 
-    Kept in a small per-process cache: every chunk of a trail starts from the same state.
+    Kept in a per-process cache by start state: every chunk of a trail starts from the same
+    state, and a track computed further serves every shorter need.
     """
     from .ephemeris import EPHEMERIS_SPAN_TDB_JD
 
     step = max(1, int(round(every_days / dt_days))) * dt_days
     t0 = bodies.t_tdb_jd
-    key = (t0, bodies.r_au.tobytes(), bodies.v_au_d.tobytes(), float(t_end_tdb_jd), dt_days, step)
-    hit = _TRACKS.get(key)
-    if hit is not None:
-        _TRACKS.move_to_end(key)
-        return hit
     n = int(math.floor((t_end_tdb_jd - t0) / step + 1e-9))
+    key = (t0, bodies.r_au.tobytes(), bodies.v_au_d.tobytes(), dt_days, step)
+    hit = _TRACKS.get(key)
+    if hit is not None and len(hit.t_tdb_jd) >= n:  # a longer track serves a shorter need
+        _TRACKS.move_to_end(key)
+        k = max(n, 0)
+        return PlanetTrack(hit.t_tdb_jd[:k], hit.r_au[:k], hit.v_au_d[:k], hit.source[:k])
     times = t0 + step * np.arange(1, max(n, 0) + 1)
     r = np.empty((len(times), len(bodies.names), 3))
     v = np.empty_like(r)
@@ -229,8 +232,8 @@ def planet_track(
         rr, vv = barycentric_states(bodies.names, times[inside], stacked=True)
         r[inside] = np.swapaxes(rr, 0, 1)
         v[inside] = np.swapaxes(vv, 0, 1)
-    before = np.flatnonzero(~inside & (times < EPHEMERIS_SPAN_TDB_JD[0]))
-    if len(before):
+    outside = np.flatnonzero(~inside)  # before 1800 (or, never in a forecast, after 2200)
+    if len(outside):
         sim = _new_simulation(bodies, "whfast", dt_days)
         with warnings.catch_warnings():
             # gr is velocity dependent: under WHFast its error is of the order of the force
@@ -239,15 +242,12 @@ def planet_track(
             rebx = _attach_forces(sim, radiation=False, relativity=True)
             xyz = np.empty((sim.N, 3))
             vel = np.empty((sim.N, 3))
-            for i in before:
+            for i in outside:
                 _advance(sim, times[i], t0, dt_days, True)
                 sim.synchronize()
                 sim.serialize_particle_data(xyz=xyz, vxvyvz=vel)
                 r[i], v[i] = xyz, vel
             del rebx
-    after = ~inside & (times > EPHEMERIS_SPAN_TDB_JD[1])
-    if after.any():
-        raise ValueError("a planet track cannot run past DE423's span (2200)")
     source = tuple("de423" if k else "integrated" for k in inside)
     track = PlanetTrack(times, r, v, source)
     _TRACKS[key] = track

@@ -227,3 +227,24 @@ def test_planet_track_before_de423_follows_an_ias15_integration():
     ref = forward.massive_bodies()
     off_km = np.linalg.norm(track.r_au[k] - ref.r_au, axis=-1) * 1.495978707e8
     assert np.all(off_km[1:] < 500.0), dict(zip(MASSIVE_BODIES, off_km, strict=True))
+
+
+@pytest.mark.invariant
+def test_a_cached_planet_track_gives_the_same_holds_as_a_fresh_one():
+    # Tracks are cached per worker by start state, a longer one serving a shorter need: which
+    # chunks a worker ran before must never change the planets a chunk sees (bitwise).
+    import dynamics.nbody as nbody
+
+    start = massive_bodies_from_ephemeris(2378500.5)
+    far = np.array([30.0, 0.0, 5.0])
+    back = nbody.ParentSimulation(start, far, np.array([0.0, 0.003, 0.0]))
+    back.integrate(2378500.5 - 3 * 365.25)
+    bodies = back.massive_bodies()
+    nbody._TRACKS.clear()
+    short = nbody.planet_track(bodies, bodies.t_tdb_jd + 2000.0, 0.5)
+    nbody._TRACKS.clear()
+    nbody.planet_track(bodies, bodies.t_tdb_jd + 4000.0, 0.5)
+    again = nbody.planet_track(bodies, bodies.t_tdb_jd + 2000.0, 0.5)
+    assert "integrated" in short.source and "de423" in short.source
+    assert np.array_equal(short.t_tdb_jd, again.t_tdb_jd)
+    assert np.array_equal(short.r_au, again.r_au) and np.array_equal(short.v_au_d, again.v_au_d)
