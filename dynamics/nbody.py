@@ -11,21 +11,19 @@ which the dust-trail engine uses by default after the measurement in ``benchmark
 
 Radiation pressure and Poynting-Robertson drag act per particle through REBOUNDx
 ``radiation_forces`` (Tamayo et al. 2020; Burns, Lamy & Soter 1979), with the speed of light set
-in au/day. General relativity acts on the planets through REBOUNDx ``gr`` with the Sun as its
+in au/day. General relativity acts on every body through REBOUNDx ``gr`` with the Sun as its
 source (Anderson et al. 1975): without it Mercury drifts from DE423 by ~5e4 km and Venus by ~9e3
 km per century (measured in ``tests/``).
 
 Planets held to a track. In a meteoroid integration the planets are put back every
 :data:`PLANET_HOLD_DAYS` on a track computed once per start state (:func:`planet_track`): DE423
-inside its span, before it a planets-only integration with ``gr``. REBOUNDx ``gr`` acts on every
-particle of a simulation and cost ~35 % of a meteoroid step (measured in ``benchmarks/``), so
-the meteoroids go without it. What that changes, measured: the perihelion advances ~0.02" less
-a revolution (6 pi GM / (c^2 a (1 - e^2)) for q ~ 1 au, e ~ 0.9; Weinberg 1972), and the period
-of an orbit released with a given state differs by ~1e-6 (the relativistic term at perihelion,
-GM / (c^2 r) ~ 1e-8, weighs 2a/r more in the energy of a long ellipse): over a century
-Leonid-like meteoroids sit ~1e-4 au further along their orbits, the same as ejection speeds
-~1 mm/s apart, while the trail's crossing of Earth's path, which is what a forecast reads,
-moved by 0-4 s in time and < 1e-6 au in distance (default 1999 forecast of the README).
+inside its span, outside it a planets-only integration with ``gr``; integrated freely for a
+century they drifted up to 9,200 km from DE423 (the Earth-Moon barycentre), held they stay
+within a few km. The meteoroids keep ``gr`` (~35 % of their steps): without it a century moves
+Leonid-like meteoroids ~1e-4 au along their orbits (periods ~1e-6 different) and the default
+1999 forecast's encounters by 0-4 s, but the 7-revolution passage of the 1767 trail in 2001 was
+reached in 22 of 32 seeds without it against 15 of 16 with it and held planets, 31 of 32 with
+it and integrated planets (measured; cause not found), and reach comes first.
 
 The parent comet's own integration (:class:`ParentSimulation`, IAS15 with optional Marsden
 non-gravitational forces) is here too, so that no other module touches REBOUND.
@@ -172,11 +170,10 @@ def _attach_forces(sim, radiation: bool, relativity: bool = True):
     return rebx
 
 
-#: How often the planets of a meteoroid integration are put back on their track (days). Between
-#: two holds they move without relativity: Mercury then leaves DE423 by up to ~150 km, the other
-#: planets by < 20 km (measured in ``tests/test_nbody.py``). Holding every 10 days instead moved
-#: Leonid-like meteoroids by 2e-9 au (median) over a century and cost 1.7x the time; holding
-#: every 100 days costs ~5 % over none (measured here, 200 meteoroids).
+#: How often the planets of a meteoroid integration are put back on their track (days).
+#: Holding every 10 days instead moved Leonid-like meteoroids by 2e-9 au (median) over a
+#: century and cost 1.7x the time; holding every 100 days costs ~5 % over none (measured here,
+#: 200 meteoroids).
 PLANET_HOLD_DAYS = 100.0
 #: Planet tracks kept per process (a worker meets the same trail's start in every round; a
 #: default forecast follows ~20 returns; a 500-year track takes ~1 MB).
@@ -312,6 +309,7 @@ def integrate_particles(
     dt_days: float = 0.5,
     radiation: bool = True,
     planets: str = "held",
+    relativity: bool = True,
 ) -> Snapshots:
     """Integrate test particles released at given times with the Sun and planets.
 
@@ -335,9 +333,9 @@ def integrate_particles(
         Apply REBOUNDx radiation forces when any beta > 0.
     planets : {"held", "integrated"}
         ``"held"`` (default): the planets are put back on :func:`planet_track` every
-        :data:`PLANET_HOLD_DAYS` and no body feels relativity in this simulation (the track
-        carries it). ``"integrated"``: the planets move only by this integration, with REBOUNDx
-        ``gr`` (Sun as source) on every body, meteoroids included (the slower reference).
+        :data:`PLANET_HOLD_DAYS`. ``"integrated"``: they move only by this integration.
+    relativity : bool
+        REBOUNDx ``gr`` (Sun as source) on every body, meteoroids included.
 
     Returns
     -------
@@ -377,7 +375,7 @@ def integrate_particles(
         key=lambda ev: (ev[0], ev[1]),
     )
     added: list[int] = []  # particle index of each simulation slot
-    rebx = _attach_forces(sim, bool(radiation and np.any(beta > 0)), relativity=not held)
+    rebx = _attach_forces(sim, bool(radiation and np.any(beta > 0)), relativity)
     with warnings.catch_warnings():
         # REBOUNDx warns that P-R drag is velocity dependent under WHFast: its error is of the
         # order of the drag itself (tiny for mm grains over centuries; see the README's

@@ -180,8 +180,8 @@ def test_meteoroid_integrations_keep_their_planets_on_de423():
     # A century of meteoroid integration from 1899: the planets are put back on DE423 (Folkner
     # 2010) every PLANET_HOLD_DAYS, so at an output between two holds they are off by the drift
     # of less than a hold interval. Reference: DE423 itself. Measured here, 60 days after the
-    # last hold: Mercury 152 km (it moves without relativity between holds), Venus 17 km, the
-    # Earth-Moon barycentre 5 km, the others < 2 km. Integrated alone (no holds, REBOUNDx gr
+    # last hold: the Earth-Moon barycentre 11 km, every other body < 1 km (without relativity
+    # between holds Mercury was 152 km off). Integrated alone (no holds, REBOUNDx gr
     # on every body) the same planets drift over the century: EMB 9,200 km (the Sun's tide on
     # the Earth-Moon pair is not modelled), Neptune 600, Jupiter 300, Saturn 200, Mercury 80.
     # Tolerance 300 km: a fiftieth of the narrowest trail widths (~1e-4 au).
