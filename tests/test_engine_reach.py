@@ -419,8 +419,9 @@ def test_a_map_whose_picks_all_missed_hands_over_to_bisection_or_uniform_samplin
     # offers a narrow, wrong window and a handful of candidates each round. Measured on the
     # 1333 trail's 20-revolution passage in 1998 (seed 1, meteoroids without relativity, as
     # on fca1a0f): five rounds of such picks, 126 meteoroids, "not reached"; handed over after
-    # the selection round, a near miss of 10 meteoroids, compact (1.9e-4 au). The hand-over happens from the first refinement round
-    # on, only in shooting mode and only with no hit yet.
+    # the selection round, a near miss of 10 meteoroids, compact (1.9e-4 au). The hand-over
+    # happens from the first refinement round on, only in shooting mode and only with no hit
+    # yet.
     from dynamics.sampling import map_misleads
 
     tg = Target(0, 1998, "descending", 2451135.3, 20, 2451100.0, 12000.0, 12000.0)
