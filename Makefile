@@ -27,7 +27,7 @@ run: $(STAMP)
 test: $(STAMP)
 	$(BIN)/python -m pytest
 
-# The hindcast catalogue, every row, on all cores (about 25 minutes on 2 cores): writes
+# The hindcast catalogue, every row, on all cores (about 25 minutes on 2 cores with the parents' histories cached, over an hour on a new machine): writes
 # validation/report/hindcast.{json,md,png,svg}; then the long class hindcasts (a few minutes).
 validate: $(STAMP)
 	$(BIN)/trailcast hindcast validation/hindcasts.json --out validation/report
