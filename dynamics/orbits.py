@@ -750,7 +750,7 @@ def distance_after(r_au, v_au_d, dt_days: float, mu: float = GM_SUN_AU3_D2) -> f
         if abs(new - chi) <= 1e-14 * max(1.0, abs(chi)):
             # converged: Newton's own step is at round-off. Tested before the safeguard below,
             # which would otherwise read round-off steps as slow convergence and bisect a wide
-            # bracket (up to ~50 evaluations instead of ~5; measured on a 21P-like orbit)
+            # bracket (up to ~50 evaluations instead of ~5; measured on a Jupiter-family orbit)
             chi = new
             break
         # bisect when Newton leaves the bracket or has not halved the step of two rounds ago
