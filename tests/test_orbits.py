@@ -508,7 +508,7 @@ def test_distance_after_converges_in_a_few_evaluations(monkeypatch):
     # DT. Newton converges quadratically from the first-order guess, so a few evaluations of
     # the universal Kepler equation suffice (measured: 5-7 on this orbit); before the round-off
     # test was moved ahead of the safeguard, round-off steps read as slow convergence and the
-    # solver bisected a wide bracket: up to 50. Orbit like a Jupiter-family comet's (q 1.03 au,
+    # solver bisected a wide bracket: 48 here. Orbit like a Jupiter-family comet's (q 1.03 au,
     # e 0.707), twelve anomalies, delays of 10-40 days either way (orbit catalogues list DT
     # of tens of days; common practice, no source).
     calls = []
@@ -523,6 +523,8 @@ def test_distance_after_converges_in_a_few_evaluations(monkeypatch):
             calls.clear()
             got = orbits.distance_after(r0, v0, dt)
             expect = float(np.linalg.norm(orbits.propagate(r0, v0, t0, t0 + dt)[0]))
+            # the vectorised propagate as a second implementation; rel 1e-12: round-off only
+            # (measured 7.6e-16 here; the property test above covers every conic at 1e-9)
             assert got == pytest.approx(expect, rel=1e-12)
             most = max(most, len(calls))
     assert most <= 10, most
