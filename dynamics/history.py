@@ -266,7 +266,7 @@ def cached_parent_history(
     lo = math.floor(t_min_tdb_jd / q) * q
     hi = math.ceil(t_max_tdb_jd / q) * q
     key_src = json.dumps(
-        [orbit.to_json(), lo, hi, active_r_max_au, __version__, "history-v3"], sort_keys=True
+        [orbit.to_json(), lo, hi, active_r_max_au, __version__, "history-v4"], sort_keys=True
     )
     key = hashlib.sha256(key_src.encode()).hexdigest()[:32]
     if key in _memory_cache:
