@@ -79,6 +79,9 @@ CLOSEST_APPROACH_ITERATIONS = 6
 #: far minimum; numerical safeguard, no source.
 MAX_STEP_DAYS = 2.0
 MAX_STEP_DEG = 2.0
+#: Snapshot-particle pairs converted to elements in one vectorised call by
+#: :func:`node_crossings` (bounds the temporary arrays to a few tens of MB; no source).
+CROSSING_BLOCK_PAIRS = 100_000
 
 
 def elements_under_radiation(r_au, v_au_d, t_tdb_jd, beta):
@@ -114,6 +117,70 @@ def earth_passage_tdb(longitude_deg, t_guess_tdb_jd, iterations=4):
     return t
 
 
+def predicted_crossings(snapshots, beta, node: str) -> dict:
+    """Each particle's node crossing as predicted by its osculating orbit (under mu (1 - beta))
+    at the snapshot nearest that prediction (the earliest of equally near ones).
+
+    Returns arrays (n,) keyed ``q``, ``e``, ``i``, ``node``, ``peri`` (that snapshot's
+    elements), ``tc`` (the predicted crossing, TDB JD) and ``P`` (period, days); NaN for a
+    particle never present.
+    """
+    beta = np.asarray(beta, dtype=float)
+    t_out = snapshots.t_tdb_jd
+    m, n = len(t_out), len(beta)
+    # All (snapshot, particle) pairs at once, in blocks of snapshots: one vectorised call per
+    # block, not one per snapshot (numpy's per-call cost dominated the search before).
+    scale = np.sqrt(1.0 - beta)
+    nan = np.full(n, np.nan)
+    best_gap = np.full(n, np.inf)
+    best = {k: nan.copy() for k in ("q", "e", "i", "node", "peri", "tc", "P")}
+    step = max(1, CROSSING_BLOCK_PAIRS // max(n, 1))
+    for j0 in range(0, m, step):
+        r, v = snapshots.r_au[j0 : j0 + step], snapshots.v_au_d[j0 : j0 + step]
+        jj, ii = np.nonzero(np.all(np.isfinite(r), axis=-1))
+        if len(jj) == 0:
+            continue
+        t_j = t_out[j0 + jj]
+        el, tp, period = elements_under_radiation(r[jj, ii], v[jj, ii], t_j, beta[ii])
+        bound = np.asarray(el.e) < 1.0
+        nu_node = (
+            -np.asarray(el.peri_deg) if node == "ascending" else 180.0 - np.asarray(el.peri_deg)
+        )
+        dt_node, _, _ = _time_from_perihelion(
+            np.asarray(el.q_au),
+            np.asarray(el.e),
+            np.asarray(el.incl_deg),
+            np.asarray(el.node_deg),
+            np.asarray(el.peri_deg),
+            nu_node,
+            scale[ii],
+        )
+        tc = tp + dt_node
+        # the crossing of this revolution nearest the snapshot
+        tc = np.where(bound, tc - period * np.round((tc - t_j) / np.where(bound, period, 1.0)), tc)
+        gap = np.abs(tc - t_j)
+        gap = np.where(np.isnan(gap), np.inf, gap)
+        # per particle, its nearest pair in this block (pairs come in snapshot order, so a
+        # stable sort on the gap keeps the earliest of equal ones first)
+        order = np.lexsort((jj, gap, ii))
+        first = order[np.r_[True, ii[order][1:] != ii[order][:-1]]]
+        better = gap[first] < best_gap[ii[first]]
+        pick = first[better]
+        sel = ii[pick]
+        best_gap[sel] = gap[pick]
+        for key, val in (
+            ("q", el.q_au),
+            ("e", el.e),
+            ("i", el.incl_deg),
+            ("node", el.node_deg),
+            ("peri", el.peri_deg),
+            ("tc", tc),
+            ("P", period),
+        ):
+            best[key][sel] = np.asarray(val)[pick]
+    return best
+
+
 def node_crossings(snapshots, beta, node: str) -> Crossings:
     """Node crossings of particles from their output snapshots.
 
@@ -139,50 +206,8 @@ def node_crossings(snapshots, beta, node: str) -> Crossings:
     if n == 0 or m == 0:
         return Crossings(*(nan.copy() for _ in range(11)))
 
-    # Crossing time predicted from every snapshot; keep the snapshot nearest its own prediction.
-    best_gap = np.full(n, np.inf)
-    best = {k: nan.copy() for k in ("q", "e", "i", "node", "peri", "tc", "P")}
     scale = np.sqrt(1.0 - beta)
-    for j in range(m):
-        r, v = snapshots.r_au[j], snapshots.v_au_d[j]
-        ok = np.all(np.isfinite(r), axis=-1)
-        if not np.any(ok):
-            continue
-        el, tp, period = elements_under_radiation(r[ok], v[ok], t_out[j], beta[ok])
-        bound = np.asarray(el.e) < 1.0
-        nu_node = (
-            -np.asarray(el.peri_deg) if node == "ascending" else 180.0 - np.asarray(el.peri_deg)
-        )
-        dt_node, _, _ = _time_from_perihelion(
-            np.asarray(el.q_au),
-            np.asarray(el.e),
-            np.asarray(el.incl_deg),
-            np.asarray(el.node_deg),
-            np.asarray(el.peri_deg),
-            nu_node,
-            scale[ok],
-        )
-        tc = tp + dt_node
-        # the crossing of this revolution nearest the snapshot
-        tc = np.where(
-            bound, tc - period * np.round((tc - t_out[j]) / np.where(bound, period, 1.0)), tc
-        )
-        gap = np.abs(tc - t_out[j])
-        idx = np.flatnonzero(ok)
-        better = gap < best_gap[idx]
-        sel = idx[better]
-        best_gap[sel] = gap[better]
-        for key, val in (
-            ("q", el.q_au),
-            ("e", el.e),
-            ("i", el.incl_deg),
-            ("node", el.node_deg),
-            ("peri", el.peri_deg),
-            ("tc", tc),
-            ("P", period),
-        ):
-            best[key][sel] = np.asarray(val)[better]
-
+    best = predicted_crossings(snapshots, beta, node)
     have = np.isfinite(best["tc"])
     out = {
         k: nan.copy()
