@@ -59,7 +59,14 @@ class FirstPassage(TrailcastError):
 
 
 def nongrav_g(r_au):
-    """Marsden et al. (1973) g(r), normalised so that g(1 au) = 1 (approximately)."""
+    """Marsden et al. (1973) g(r), normalised so that g(1 au) = 1 (approximately).
+
+    A float gives a float by plain arithmetic (the force callback's case, once per force
+    evaluation: 0.3 us against 2.6 us through numpy, bitwise the same over 200,000 radii).
+    """
+    if isinstance(r_au, float):
+        x = r_au / NONGRAV_R0_AU
+        return NONGRAV_ALPHA * x ** (-NONGRAV_M) * (1.0 + x**NONGRAV_N) ** (-NONGRAV_K)
     x = np.asarray(r_au, dtype=float) / NONGRAV_R0_AU
     return NONGRAV_ALPHA * x ** (-NONGRAV_M) * (1.0 + x**NONGRAV_N) ** (-NONGRAV_K)
 

@@ -14,6 +14,19 @@ def test_nongrav_g_is_one_at_one_au():
     assert nongrav_g(1.0) == pytest.approx(1.0, abs=2e-4)
 
 
+@pytest.mark.invariant
+def test_nongrav_g_of_a_float_equals_the_array_path():
+    # The force callback passes plain floats, which take a numpy-free path: the same numbers
+    # to the last bit (so parent histories, and their cache, do not depend on the path), and
+    # a float back, not an array.
+    import numpy as np
+
+    r = np.geomspace(0.05, 60.0, 5001)
+    scalar = np.array([nongrav_g(float(x)) for x in r])
+    assert all(type(nongrav_g(float(x))) is float for x in r[:3])
+    np.testing.assert_array_equal(scalar, nongrav_g(r))
+
+
 @pytest.fixture(scope="module")
 def history_55p():
     orbit = parse_orbit(PARENT_55P)
