@@ -80,7 +80,7 @@ CLOSEST_APPROACH_ITERATIONS = 6
 MAX_STEP_DAYS = 2.0
 MAX_STEP_DEG = 2.0
 #: Snapshot-particle pairs converted to elements in one vectorised call by
-#: :func:`node_crossings` (bounds the temporary arrays to a few tens of MB; no source).
+#: :func:`predicted_crossings` (bounds the temporary arrays to a few tens of MB; no source).
 CROSSING_BLOCK_PAIRS = 100_000
 
 
