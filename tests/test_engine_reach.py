@@ -607,8 +607,9 @@ def _nearest_crossing_one_snapshot_at_a_time(snapshots, beta, node):
 def test_vectorised_crossing_search_equals_the_per_snapshot_search(monkeypatch, block_pairs):
     # Leonid-like meteoroids (55P's elements, spread in q, e, angles and perihelion time), some
     # released only after the first snapshots (NaN there), one unbound; snapshots 40 days
-    # apart, velocities jittered. The vectorised search, in blocks of any size, must choose for every meteoroid the
-    # snapshot the per-snapshot loop it replaced chose, and so the same predicted crossing.
+    # apart, velocities jittered. The vectorised search, in blocks of any size, must choose
+    # for every meteoroid the snapshot the per-snapshot loop it replaced chose, and so the
+    # same predicted crossing.
     from dynamics import crossings
     from dynamics.nbody import Snapshots
     from dynamics.orbits import elements_to_state
