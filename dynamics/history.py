@@ -155,6 +155,59 @@ def _bodies_at(sim: ParentSimulation) -> MassiveBodies:
     return sim.massive_bodies()
 
 
+#: Beyond the active arc, the parent is stepped one day at a time within this distance of its
+#: edge (au), so that no step jumps deep into the arc (no source).
+ARC_APPROACH_MARGIN_AU = 0.5
+#: An observed perihelion time is matched to the integrated return whose osculating perihelion
+#: time lies within this fraction of a period of it (a quarter: never the neighbouring return;
+#: no source).
+OBSERVED_MATCH_FRACTION = 0.25
+
+
+class _Anchors:
+    """Observed perihelion times still to be applied by a backward march, and what was done."""
+
+    def __init__(self, observed):
+        self.pending = sorted(observed, key=lambda o: -o.tp_tdb_jd)  # latest first
+        self.applied: list[tuple] = []  # (observed, shift in days)
+        self.next_check_before = math.inf  # one look per return: after it, wait until here
+
+    def due(self, t: float) -> bool:
+        return bool(self.pending) and t < self.next_check_before
+
+    def match(self, tp_osc: float, period_days: float):
+        for k, obs in enumerate(self.pending):
+            if abs(obs.tp_tdb_jd - tp_osc) <= OBSERVED_MATCH_FRACTION * period_days:
+                return self.pending.pop(k)
+        return None
+
+
+def _hold_to_observed(sim, t: float, r, v, anchors: _Anchors):
+    """Before the parent (going back in time) enters a return's active arc: when an observed
+    perihelion time names that return, move the parent along its osculating orbit so that it
+    reaches perihelion then. Returns the new (r, v), or None when nothing was changed.
+
+    The shape and orientation of the orbit are kept; only the time of passage changes, which
+    is what unmodelled non-gravitational forces get wrong first (they act on the period).
+    Earlier returns then follow from the corrected one.
+    """
+    el = state_to_elements(r, v, t, GM_SUN_AU3_D2)
+    if not float(el.e) < 1.0:  # no period to match by: look again a month earlier
+        anchors.next_check_before = t - 30.0
+        return None
+    tp_osc = float(el.tp_tdb_jd)
+    anchors.next_check_before = tp_osc - OBSERVED_MATCH_FRACTION * float(el.period_days)
+    obs = anchors.match(tp_osc, float(el.period_days))
+    if obs is None:
+        return None
+    r_new, v_new = elements_to_state(
+        el.q_au, el.e, el.incl_deg, el.node_deg, el.peri_deg, obs.tp_tdb_jd, t, GM_SUN_AU3_D2
+    )
+    sim.set_parent_state(r_new, v_new)
+    anchors.applied.append((obs, obs.tp_tdb_jd - tp_osc))
+    return sim.parent_state()
+
+
 def _march(
     sim,
     t_stop: float,
@@ -163,6 +216,7 @@ def _march(
     stop_after_perihelia=None,
     counting_before_tdb_jd=math.inf,
     should_stop=None,
+    anchors: _Anchors | None = None,
 ):
     """Step the parent simulation towards ``t_stop``; return samples and perihelion passages.
 
@@ -170,7 +224,8 @@ def _march(
     orbital time scale outside it. Returns (samples, perihelia) where samples are tuples
     (t, r, v, bodies or None) and perihelia are (t_before, r, v) at the sample preceding a
     sign change of r.v. ``should_stop()``, when given, is asked before every step; True raises
-    :class:`~dynamics.errors.ComputationStopped`.
+    :class:`~dynamics.errors.ComputationStopped`. ``anchors`` (backward marches only): observed
+    perihelion times, applied by :func:`_hold_to_observed` where the parent nears a return.
     """
     samples = []
     perihelia = []
@@ -185,7 +240,21 @@ def _march(
         if should_stop is not None and should_stop():
             raise ComputationStopped("parent history stopped on request")
         rn = float(np.linalg.norm(prev[1]))
-        if rn < active_r_max_au + 0.5:
+        if (
+            anchors is not None
+            and direction < 0
+            and anchors.due(t)
+            and rn < active_r_max_au + ARC_APPROACH_MARGIN_AU
+            and prev[3] > 0.0  # outbound: going back in time, the return is ahead
+        ):
+            moved = _hold_to_observed(sim, t, prev[1], prev[2], anchors)
+            if moved is not None:
+                r, v = moved
+                prev = (t, r, v, float(np.dot(r, v)))
+                rn = float(np.linalg.norm(r))
+                if samples and samples[-1][0] == t:
+                    samples[-1] = (t, r, v, samples[-1][3])
+        if rn < active_r_max_au + ARC_APPROACH_MARGIN_AU:
             step = ARC_STEP_DAYS
         else:
             step = float(np.clip(0.02 * 365.25 * rn**1.5, ARC_STEP_DAYS, 20_000.0))
@@ -342,7 +411,10 @@ def parent_history(
     """
     notes = []
     sim = _parent_simulation(orbit)
-    back, peri_back = _march(sim, t_min_tdb_jd, -1, active_r_max_au, should_stop=should_stop)
+    anchors = _Anchors(orbit.observed_perihelia) if orbit.observed_perihelia else None
+    back, peri_back = _march(
+        sim, t_min_tdb_jd, -1, active_r_max_au, should_stop=should_stop, anchors=anchors
+    )
     # The epoch's own passage and any before it within the span are in peri_back. Long-period
     # parents need the previous return even beyond t_min.
     n_before = sum(1 for (t, _, _) in peri_back if t < orbit.tp_tdb_jd - 1.0)
@@ -359,6 +431,7 @@ def parent_history(
             stop_after_perihelia=min_previous_returns - n_before,
             counting_before_tdb_jd=orbit.tp_tdb_jd - 1.0,
             should_stop=should_stop,
+            anchors=anchors,
         )
         back += more
         peri_back += peri_more
@@ -390,6 +463,8 @@ def parent_history(
                     "more: run the orbit's alternative solutions or clones to see the spread"
                 )
 
+    if anchors is not None:
+        notes += _anchor_notes(anchors, min((s[0] for s in back), default=orbit.epoch_tdb_jd))
     sim = _parent_simulation(orbit)
     fwd, peri_fwd = _march(sim, t_max_tdb_jd, +1, active_r_max_au, should_stop=should_stop)
 
@@ -405,6 +480,26 @@ def parent_history(
         seen.append(tp)
         returns.append(_collect_return(el, tp, samples))
     return ParentHistory(tuple(returns), orbit.epoch_tdb_jd, original_inv_a, tuple(notes))
+
+
+def _anchor_notes(anchors: _Anchors, earliest_tdb_jd: float) -> list[str]:
+    """What the observed perihelion times did: each applied shift, each one not matched."""
+    out = []
+    for obs, shift in sorted(anchors.applied, key=lambda a: a[0].tp_tdb_jd):
+        src = f" ({obs.source})" if obs.source else ""
+        out.append(
+            f"return of {format_iso(obs.tp_tdb_jd, 'TDB')[:10]}: perihelion held to the observed "
+            f"time{src}; the integrated orbit alone put it {abs(shift):.2f} d "
+            f"{'earlier' if shift > 0 else 'later'}, and the returns before it follow from "
+            "the corrected one"
+        )
+    for obs in anchors.pending:
+        if obs.tp_tdb_jd >= earliest_tdb_jd:
+            out.append(
+                f"observed perihelion {format_iso(obs.tp_tdb_jd, 'TDB')[:10]} not used: no "
+                f"integrated return within {OBSERVED_MATCH_FRACTION:g} of a period of it"
+            )
+    return out
 
 
 def _collect_return(el: Elements, tp: float, samples) -> ParentReturn:

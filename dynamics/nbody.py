@@ -441,6 +441,11 @@ class ParentSimulation:
     """
 
     def __init__(self, bodies: MassiveBodies, r_helio_au, v_helio_au_d, nongrav=None):
+        self._nongrav = nongrav
+        self._build(bodies, r_helio_au, v_helio_au_d)
+
+    def _build(self, bodies: MassiveBodies, r_helio_au, v_helio_au_d) -> None:
+        nongrav = self._nongrav
         sim = _new_simulation(bodies, "ias15", 1.0)
         sun_r, sun_v = bodies.r_au[0], bodies.v_au_d[0]
         pos = np.asarray(r_helio_au, dtype=float) + sun_r
@@ -467,6 +472,14 @@ class ParentSimulation:
             self._sim.integrate(float(t_tdb_jd), exact_finish_time=1)
         except rebound.GenericError as exc:  # pragma: no cover - depends on REBOUND internals
             raise IntegrationFailed(f"REBOUND stopped at t = {self._sim.t}: {exc}") from exc
+
+    def set_parent_state(self, r_helio_au, v_helio_au_d) -> None:
+        """Put the parent at another heliocentric state now; the Sun and planets stay.
+
+        A new REBOUND simulation is built from the bodies as they are now: IAS15 predicts each
+        step from the last one, and that memory must not carry across a jump of the parent.
+        """
+        self._build(self.massive_bodies(), r_helio_au, v_helio_au_d)
 
     def parent_state(self):
         """Heliocentric position (au) and velocity (au/day) of the parent."""

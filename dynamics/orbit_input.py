@@ -15,6 +15,9 @@ JSON form (keys kept stable; units fixed)::
                                          # + K1 log r (K1 defaults to 10): sets the dust production
      "covariance": [[...6 x 6...]],      # optional, over (q, e, i, node, peri, tp) in
                                          # (au, 1, deg, deg, deg, day)
+     "observed_perihelia": [             # optional: perihelion times of earlier returns
+         {"tp": 2461234.5, "source": "..."}],   # observed or fitted at the time (JD TDB or
+                                         # ISO 8601); the parent history passes through them
      "solutions": [{...}, ...]}          # optional alternative orbit fits, same keys
 
 Elements are heliocentric osculating elements at ``epoch``. :func:`parse_orbit` validates a
@@ -48,6 +51,7 @@ ORBIT_KEYS = (
     "covariance",
     "solutions",
     "ejection_events",
+    "observed_perihelia",
 )
 #: Order of the covariance matrix rows and columns, with their units.
 COVARIANCE_ORDER = (
@@ -87,6 +91,25 @@ DEFAULT_K1 = 10.0
 MAX_K1 = 50.0
 #: Most alternative solutions accepted in one input.
 MAX_SOLUTIONS = 64
+#: Most observed perihelion times accepted in one input (a comet seen at every return since
+#: antiquity has about 30; no source).
+MAX_OBSERVED_PERIHELIA = 100
+
+
+@dataclass(frozen=True)
+class ObservedPerihelion:
+    """The perihelion time of an earlier return, from that apparition's own observations.
+
+    An orbit solution fixes the comet's motion over its data arc; integrated back over many
+    revolutions, unmodelled or changing non-gravitational forces make its returns drift (days
+    per century for active Jupiter-family comets). Perihelion times determined at the time, as
+    orbit catalogues list them, are how back integrations are held to the real comet (the
+    practice of linking apparitions; e.g. Yeomans & Kiang 1981, MNRAS 197, 633, for a comet
+    followed over two millennia; from memory).
+    """
+
+    tp_tdb_jd: float
+    source: str = ""
 
 
 @dataclass(frozen=True)
@@ -129,6 +152,7 @@ class OrbitInput:
     ejection_events: tuple = ()  # dynamics.release.EjectionEvent: break-ups, outbursts
     m1: float | None = None  # total absolute magnitude (mag), None when not given
     k1: float = DEFAULT_K1  # its heliocentric slope: m = M1 + 5 log10 Delta + K1 log10 r
+    observed_perihelia: tuple[ObservedPerihelion, ...] = ()  # earlier returns, oldest first
 
     @property
     def a_au(self) -> float:
@@ -188,6 +212,11 @@ class OrbitInput:
                     else {"mass_range_g": [ev.mass_min_g, ev.mass_max_g]}
                 )
                 for ev in self.ejection_events
+            ]
+        if self.observed_perihelia:
+            out["observed_perihelia"] = [
+                {"tp": p.tp_tdb_jd} | ({"source": p.source} if p.source else {})
+                for p in self.observed_perihelia
             ]
         return out
 
@@ -318,6 +347,11 @@ def parse_orbit(
 
     inherit = _inherit or {}
     m1, k1 = inherit.get("m1"), inherit.get("k1", DEFAULT_K1)
+    observed = inherit.get("observed_perihelia", ())
+    if data.get("observed_perihelia") is not None:
+        observed = _observed_perihelia(
+            data["observed_perihelia"], path + "observed_perihelia", q, e, tp
+        )
     if data.get("m1") is not None:
         m1 = _number(data, "m1", path)
         if not MAGNITUDE_RANGE[0] <= m1 <= MAGNITUDE_RANGE[1]:
@@ -349,7 +383,7 @@ def parse_orbit(
                 s,
                 path=f"{path}solutions.{k}.",
                 allow_solutions=False,
-                _inherit={"m1": m1, "k1": k1},
+                _inherit={"m1": m1, "k1": k1, "observed_perihelia": observed},
             )
             for k, s in enumerate(sols)
         )
@@ -373,7 +407,57 @@ def parse_orbit(
         ejection_events=events,
         m1=m1,
         k1=k1,
+        observed_perihelia=observed,
     )
+
+
+def _observed_perihelia(value, field_name, q, e, tp) -> tuple[ObservedPerihelion, ...]:
+    """Observed perihelion times of earlier returns, validated; oldest first.
+
+    Each must lie at least half a period before the orbit's own perihelion (that return is the
+    orbit solution's own), and two may not fall within half a period of each other (they
+    would name the same return).
+    """
+    if not isinstance(value, list | tuple) or len(value) > MAX_OBSERVED_PERIHELIA:
+        raise InvalidOrbit(
+            field_name,
+            f'expected a list of at most {MAX_OBSERVED_PERIHELIA} objects {{"tp", "source"}}',
+        )
+    half = (
+        0.5 * 2.0 * math.pi * (q / (1.0 - e)) ** 1.5 / math.sqrt(GM_SUN_AU3_D2)
+        if e < 1.0
+        else 365.25
+    )
+    out = []
+    for k, item in enumerate(value):
+        p = f"{field_name}.{k}."
+        if not isinstance(item, Mapping):
+            raise InvalidOrbit(p[:-1], 'expected an object {"tp", "source"}')
+        extra = sorted(set(item) - {"tp", "source"})
+        if extra:
+            raise InvalidOrbit(p + extra[0], "unknown key; expected tp and source")
+        if "tp" not in item:
+            raise InvalidOrbit(p + "tp", "missing (required): the observed perihelion time")
+        t = _time(item, "tp", p)
+        if t > tp - half:
+            raise InvalidOrbit(
+                p + "tp",
+                "must lie at least half a period before the orbit's own perihelion (that "
+                "return is fixed by the orbit solution itself)",
+            )
+        source = item.get("source", "")
+        if not isinstance(source, str) or len(source) > 500:
+            raise InvalidOrbit(p + "source", "expected a string of at most 500 characters")
+        out.append(ObservedPerihelion(t, source))
+    out.sort(key=lambda o: o.tp_tdb_jd)
+    for a, b in zip(out, out[1:], strict=False):
+        if b.tp_tdb_jd - a.tp_tdb_jd < half:
+            raise InvalidOrbit(
+                field_name,
+                f"two perihelion times within half a period of each other (JD {a.tp_tdb_jd:.2f} "
+                f"and {b.tp_tdb_jd:.2f}): they would name the same return",
+            )
+    return tuple(out)
 
 
 #: Keys of one ejection event in the orbit file.

@@ -157,3 +157,61 @@ def test_an_epoch_outside_the_ephemeris_is_refused_with_what_to_do():
         check_epoch_in_ephemeris(late)
     with pytest.raises(OutsideTimeSpan, match="2250-01-01"):
         parent_history(late, late.epoch_tdb_jd - 3650.0, late.epoch_tdb_jd)
+
+
+#: An invented Jupiter-family comet (P about 5.9 yr), gravity only: a quick history.
+JUPITER_FAMILY = {
+    "name": "invented Jupiter-family comet",
+    "epoch": 2461000.5,
+    "q": 1.05,
+    "e": 0.68,
+    "i": 12.0,
+    "node": 80.0,
+    "peri": 170.0,
+    "tp": 2460950.5,
+}
+
+
+@pytest.fixture(scope="module")
+def jf_span():
+    orbit = parse_orbit(JUPITER_FAMILY)
+    t0, t1 = orbit.epoch_tdb_jd - 30 * 365.25, orbit.epoch_tdb_jd + 365.0
+    return orbit, t0, t1, parent_history(orbit, t0, t1)
+
+
+@pytest.mark.invariant
+def test_an_observed_perihelion_holds_its_return_and_leaves_later_ones_alone(jf_span):
+    # Three returns back, say the comet was seen to pass perihelion 6 days after the
+    # integrated orbit has it (unmodelled non-gravitational forces move returns by days per
+    # century). The history must pass perihelion at the observed time (to the perturbations
+    # between the arc's edge and perihelion: 0.05 d), keep every later return bit for bit
+    # (the integration up to that point is the same), and say what it did.
+    orbit, t0, t1, plain = jf_span
+    target = plain.returns[-4]
+    observed = target.tp_tdb_jd + 6.0
+    held_orbit = parse_orbit(
+        dict(JUPITER_FAMILY, observed_perihelia=[{"tp": observed, "source": "test"}])
+    )
+    held = parent_history(held_orbit, t0, t1)
+    tps = [r.tp_tdb_jd for r in held.returns]
+    k = min(range(len(tps)), key=lambda j: abs(tps[j] - observed))
+    assert tps[k] == pytest.approx(observed, abs=0.05)
+    later = [r.tp_tdb_jd for r in plain.returns if r.tp_tdb_jd > target.tp_tdb_jd + 100]
+    assert tps[k + 1 :] == later
+    assert tps[k - 1] != pytest.approx(plain.returns[-5].tp_tdb_jd, abs=0.5)  # earlier ones move
+    (note,) = [n for n in held.notes if "held to the observed" in n]
+    assert "(test)" in note and "6.0" in note and "earlier" in note
+
+
+@pytest.mark.invariant
+def test_an_observed_perihelion_between_returns_is_reported_unused(jf_span):
+    # Four tenths of a period from any integrated return: no return is named by it (a typing
+    # error or a different comet), so nothing moves and the notes say so.
+    orbit, t0, t1, plain = jf_span
+    target = plain.returns[-4]
+    odd = target.tp_tdb_jd + 0.4 * target.period_days
+    held = parent_history(
+        parse_orbit(dict(JUPITER_FAMILY, observed_perihelia=[{"tp": odd}])), t0, t1
+    )
+    assert [r.tp_tdb_jd for r in held.returns] == [r.tp_tdb_jd for r in plain.returns]
+    assert any("not used" in n for n in held.notes)

@@ -83,6 +83,14 @@ def test_iso_times_with_scale_are_accepted():
         ({"m1": 40.0}, "m1"),
         ({"m1": "bright"}, "m1"),
         ({"k1": -1.0}, "k1"),
+        ({"observed_perihelia": "1900"}, "observed_perihelia"),
+        ({"observed_perihelia": [{}]}, "observed_perihelia.0.tp"),
+        ({"observed_perihelia": [{"tp": 2459000.5, "when": 1}]}, "observed_perihelia.0.when"),
+        # within half a period (516 d here) of the orbit's own perihelion: its own return
+        ({"observed_perihelia": [{"tp": 2459890.5}]}, "observed_perihelia.0.tp"),
+        ({"observed_perihelia": [{"tp": 2459000.5, "source": 5}]}, "observed_perihelia.0.source"),
+        # two times for one return
+        ({"observed_perihelia": [{"tp": 2459000.5}, {"tp": 2459100.5}]}, "observed_perihelia"),
     ],
 )
 def test_invalid_orbits_name_the_field(changes, field):
@@ -98,6 +106,23 @@ def test_total_magnitude_is_kept_and_shared_by_solutions():
     assert o.solutions[1].m1 == 13.0  # its own
     assert parse_orbit(o.to_json()).m1 == 11.5  # round trip
     assert parse_orbit(with_()).m1 is None
+
+
+def test_observed_perihelia_are_sorted_shared_by_solutions_and_round_trip():
+    o = parse_orbit(
+        with_(
+            observed_perihelia=[
+                {"tp": 2457920.5, "source": "b"},
+                {"tp": "2014-08-18T12:00:00 TDB", "source": "a"},  # JD 2456888.0
+            ],
+            solutions=[with_(e=0.5)],
+        )
+    )
+    assert [p.tp_tdb_jd for p in o.observed_perihelia] == [2456888.0, 2457920.5]  # oldest first
+    assert [p.source for p in o.observed_perihelia] == ["a", "b"]
+    assert o.solutions[0].observed_perihelia == o.observed_perihelia  # observations are shared
+    assert parse_orbit(o.to_json()) == o
+    assert parse_orbit(with_()).observed_perihelia == ()
 
 
 def test_not_an_object():
