@@ -45,8 +45,8 @@ _ORBIT_FIELDS = {
 
 
 def orbit_json(name: str, entry: dict) -> dict:
-    """The orbit JSON of one catalogue parent (nominal solution; non-gravitational terms when
-    the catalogue gives them)."""
+    """The orbit JSON of one catalogue parent (nominal solution; non-gravitational terms and
+    observed perihelion times of earlier returns when the catalogue gives them)."""
     out = {"name": name}
     for src, dst in _ORBIT_FIELDS.items():
         if src not in entry:
@@ -57,6 +57,13 @@ def orbit_json(name: str, entry: dict) -> dict:
         out["nongrav"] = {k: ng[k] for k in ("a1", "a2", "a3") if k in ng}
         if entry.get("nongrav_dt_days"):  # the asymmetric model's offset (days)
             out["nongrav"]["dt"] = entry["nongrav_dt_days"]
+    observed = entry.get("observed_perihelia")
+    if observed:  # earlier returns' perihelion times, which hold the parent history
+        out["observed_perihelia"] = [
+            {"tp": p["tp_tdb_jd"], "source": p.get("source", "")}
+            | ({"source": f"{p.get('source', '')} (from memory)"} if p.get("from_memory") else {})
+            for p in observed
+        ]
     mag = entry.get("magnitude")
     if mag:  # the parent's brightness sets its dust production (absolute mode)
         out["m1"] = mag["m1"]

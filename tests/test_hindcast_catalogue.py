@@ -179,6 +179,16 @@ def _check_orbit(name: str, orbit: dict, sources: dict, problems: list[str]) -> 
             problems.append(
                 f"{where}: tp_tdb_jd {orbit['tp_tdb_jd']} != {tp} from the elements row"
             )
+    for k, obs in enumerate(orbit.get("observed_perihelia") or []):
+        # an earlier return's perihelion time: a plausible JD before the solution's own,
+        # with its source, which is either checked in a stored copy or flagged from memory
+        tp = obs.get("tp_tdb_jd")
+        if not isinstance(tp, (int, float)) or not 1.0e6 < tp < orbit["tp_tdb_jd"] - 365.0:
+            problems.append(f"{where}: observed_perihelia[{k}] is not a JD before the orbit's tp")
+        if obs.get("source") not in sources:
+            problems.append(f"{where}: observed_perihelia[{k}] source not in sources")
+        elif not _source_verified(sources, obs["source"]) and not obs.get("from_memory"):
+            problems.append(f"{where}: observed_perihelia[{k}] unverified, not flagged from memory")
     for alt in orbit.get("alternative_solutions", []):
         _check_orbit(f"{name} / {alt.get('designation')}", alt, sources, problems)
 
@@ -446,6 +456,12 @@ BROKEN_COPIES = {
     "magnitude without a source": (
         "cam-2014",
         lambda r, c: c["orbits"]["209P/LINEAR"]["magnitude"].update(source="nowhere"),
+    ),
+    "observed perihelion from memory, not flagged": (
+        "dra-2011-1900",
+        lambda r, c: c["orbits"]["21P/Giacobini-Zinner"]["observed_perihelia"][0].update(
+            from_memory=False
+        ),
     ),
     "fast shower at 20 km/s": ("aur-2007-1rev", lambda r, c: r.update(speed_km_s=20)),
     "missing ZHR on an outburst": ("dra-2011-1900", lambda r, c: r["observed"].update(zhr=None)),
