@@ -482,13 +482,22 @@ def parent_history(
     return ParentHistory(tuple(returns), orbit.epoch_tdb_jd, original_inv_a, tuple(notes))
 
 
+def _date(t_tdb_jd: float) -> str:
+    """The calendar date (TDB) of a Julian date, years before 1 included.
+
+    >>> _date(1259000.5), _date(2415351.5)
+    ('-1266-12-05', '1900-11-28')
+    """
+    return format_iso(t_tdb_jd, "TDB").split("T")[0]
+
+
 def _anchor_notes(anchors: _Anchors, earliest_tdb_jd: float) -> list[str]:
     """What the observed perihelion times did: each applied shift, each one not matched."""
     out = []
     for obs, shift in sorted(anchors.applied, key=lambda a: a[0].tp_tdb_jd):
         src = f" ({obs.source})" if obs.source else ""
         out.append(
-            f"return of {format_iso(obs.tp_tdb_jd, 'TDB')[:10]}: perihelion held to the observed "
+            f"return of {_date(obs.tp_tdb_jd)}: perihelion held to the observed "
             f"time{src}; the integrated orbit alone put it {abs(shift):.2f} d "
             f"{'earlier' if shift > 0 else 'later'}, and the returns before it follow from "
             "the corrected one"
@@ -496,7 +505,7 @@ def _anchor_notes(anchors: _Anchors, earliest_tdb_jd: float) -> list[str]:
     for obs in anchors.pending:
         if obs.tp_tdb_jd >= earliest_tdb_jd:
             out.append(
-                f"observed perihelion {format_iso(obs.tp_tdb_jd, 'TDB')[:10]} not used: no "
+                f"observed perihelion {_date(obs.tp_tdb_jd)} not used: no "
                 f"integrated return within {OBSERVED_MATCH_FRACTION:g} of a period of it"
             )
     return out
