@@ -167,9 +167,11 @@ OBSERVED_MATCH_FRACTION = 0.25
 class _Anchors:
     """Observed perihelion times still to be applied by a backward march, and what was done."""
 
-    def __init__(self, observed):
+    def __init__(self, observed, reference_tp_tdb_jd: float):
         self.pending = sorted(observed, key=lambda o: -o.tp_tdb_jd)  # latest first
-        self.applied: list[tuple] = []  # (observed, shift in days)
+        self.reference_tp = reference_tp_tdb_jd  # the last return known to be right
+        self.period_factor: float | None = None  # still to apply to the earlier revolutions
+        self.applied: list[tuple] = []  # (observed, shift, period change before it; days)
         self.next_check_before = math.inf  # one look per return: after it, wait until here
 
     def due(self, t: float) -> bool:
@@ -200,11 +202,44 @@ def _hold_to_observed(sim, t: float, r, v, anchors: _Anchors):
     obs = anchors.match(tp_osc, float(el.period_days))
     if obs is None:
         return None
+    shift = obs.tp_tdb_jd - tp_osc
+    period = float(el.period_days)
+    n_rev = max(1, round((anchors.reference_tp - obs.tp_tdb_jd) / period))
+    # A steady transverse non-gravitational force changes the period by about the same amount
+    # every revolution (Marsden, Sekanina & Yeomans 1973), so the period of an orbit that is
+    # right at its reference return errs by one more step each revolution going back, and the
+    # perihelion time drifts as the sum: shift = step n (n + 1) / 2 over n revolutions. The
+    # revolution before this return errs by step (n + 1) = 2 shift / n: the revolutions before
+    # it run with that removed (from when the parent has left this return's arc, going back;
+    # the further growth of the error is not extrapolated).
+    d_period = -2.0 * shift / n_rev
+    anchors.period_factor = (period + d_period) / period
+    anchors.reference_tp = obs.tp_tdb_jd
+    anchors.applied.append((obs, shift, d_period))
     r_new, v_new = elements_to_state(
         el.q_au, el.e, el.incl_deg, el.node_deg, el.peri_deg, obs.tp_tdb_jd, t, GM_SUN_AU3_D2
     )
     sim.set_parent_state(r_new, v_new)
-    anchors.applied.append((obs, obs.tp_tdb_jd - tp_osc))
+    return sim.parent_state()
+
+
+def _correct_period(sim, t: float, r, v, anchors: _Anchors):
+    """Going back, just outside a held return's arc on its inbound leg: scale the period of
+    the revolutions before it by the drift per revolution that holding it revealed
+    (perihelion distance, orientation and the held perihelion time kept; the eccentricity
+    takes up the change of semi-major axis). Unmodelled non-gravitational forces change the
+    period a little every revolution, so the same error continues before the held return;
+    the correction extrapolates it linearly. Returns the new (r, v)."""
+    el = state_to_elements(r, v, t, GM_SUN_AU3_D2)
+    factor, anchors.period_factor = anchors.period_factor, None
+    if not float(el.e) < 1.0:
+        return r, v
+    a_new = float(el.q_au) / (1.0 - float(el.e)) * factor ** (2.0 / 3.0)
+    e_new = 1.0 - float(el.q_au) / a_new
+    r_new, v_new = elements_to_state(
+        el.q_au, e_new, el.incl_deg, el.node_deg, el.peri_deg, el.tp_tdb_jd, t, GM_SUN_AU3_D2
+    )
+    sim.set_parent_state(r_new, v_new)
     return sim.parent_state()
 
 
@@ -254,6 +289,17 @@ def _march(
                 rn = float(np.linalg.norm(r))
                 if samples and samples[-1][0] == t:
                     samples[-1] = (t, r, v, samples[-1][3])
+        if (
+            anchors is not None
+            and direction < 0
+            and anchors.period_factor is not None
+            and rn >= active_r_max_au + ARC_APPROACH_MARGIN_AU
+            and prev[3] < 0.0  # inbound, outside the held return's arc: the revolution before
+        ):
+            r, v = _correct_period(sim, t, prev[1], prev[2], anchors)
+            prev = (t, r, v, float(np.dot(r, v)))
+            if samples and samples[-1][0] == t:
+                samples[-1] = (t, r, v, samples[-1][3])
         if rn < active_r_max_au + ARC_APPROACH_MARGIN_AU:
             step = ARC_STEP_DAYS
         else:
@@ -341,8 +387,11 @@ def cached_parent_history(
     q = CACHE_SPAN_QUANTUM_DAYS
     lo = math.floor(t_min_tdb_jd / q) * q
     hi = math.ceil(t_max_tdb_jd / q) * q
+    # v4: every history; observed perihelia (held returns, corrected periods before them)
+    # carry their own tag, so a change there never reuses a history made before it
+    tag = ["history-v4"] + (["held-v2"] if orbit.observed_perihelia else [])
     key_src = json.dumps(
-        [orbit.to_json(), lo, hi, active_r_max_au, __version__, "history-v4"], sort_keys=True
+        [orbit.to_json(), lo, hi, active_r_max_au, __version__, *tag], sort_keys=True
     )
     key = hashlib.sha256(key_src.encode()).hexdigest()[:32]
     if key in _memory_cache:
@@ -411,7 +460,9 @@ def parent_history(
     """
     notes = []
     sim = _parent_simulation(orbit)
-    anchors = _Anchors(orbit.observed_perihelia) if orbit.observed_perihelia else None
+    anchors = (
+        _Anchors(orbit.observed_perihelia, orbit.tp_tdb_jd) if orbit.observed_perihelia else None
+    )
     back, peri_back = _march(
         sim, t_min_tdb_jd, -1, active_r_max_au, should_stop=should_stop, anchors=anchors
     )
@@ -494,13 +545,13 @@ def _date(t_tdb_jd: float) -> str:
 def _anchor_notes(anchors: _Anchors, earliest_tdb_jd: float) -> list[str]:
     """What the observed perihelion times did: each applied shift, each one not matched."""
     out = []
-    for obs, shift in sorted(anchors.applied, key=lambda a: a[0].tp_tdb_jd):
+    for obs, shift, d_period in sorted(anchors.applied, key=lambda a: a[0].tp_tdb_jd):
         src = f" ({obs.source})" if obs.source else ""
         out.append(
             f"return of {_date(obs.tp_tdb_jd)}: perihelion held to the observed "
             f"time{src}; the integrated orbit alone put it {abs(shift):.2f} d "
-            f"{'earlier' if shift > 0 else 'later'}, and the returns before it follow from "
-            "the corrected one"
+            f"{'earlier' if shift > 0 else 'later'}; the revolutions before it run with their "
+            f"period changed by {d_period:+.2f} d (the drift it revealed, continued)"
         )
     for obs in anchors.pending:
         if obs.tp_tdb_jd >= earliest_tdb_jd:
