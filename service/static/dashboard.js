@@ -13,7 +13,7 @@ const DEMO_ORBIT = {
   tp: "2026-10-30T06:00:00 TDB",
 };
 // dynamics.orbit_input.ORBIT_KEYS, in its order (the API's message lists them so).
-const ORBIT_KEYS = ["name", "epoch", "q", "e", "i", "node", "peri", "tp", "nongrav", "m1", "k1", "covariance", "solutions", "ejection_events"];
+const ORBIT_KEYS = ["name", "epoch", "q", "e", "i", "node", "peri", "tp", "nongrav", "m1", "k1", "covariance", "solutions", "ejection_events", "observed_perihelia"];
 const POLL_MS = 700;
 const $ = (sel, root = document) => root.querySelector(sel);
 
