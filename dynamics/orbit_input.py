@@ -20,6 +20,12 @@ JSON form (keys kept stable; units fixed)::
                                          # ISO 8601); the parent history passes through them
      "solutions": [{...}, ...]}          # optional alternative orbit fits, same keys
 
+A bound orbit may instead be placed by ``"a"`` (semi-major axis, au) and ``"mean_anomaly"``
+(deg, at ``epoch``), with ``"n"`` (mean motion, deg/day) as an optional check, in place of
+``q`` and ``tp``: the element set orbit catalogues give for asteroids (a parent such as a
+dormant comet) and many periodic comets. It is converted on reading (q = a (1 - e), tp the
+perihelion nearest the epoch); the result and :meth:`OrbitInput.to_json` carry q and tp.
+
 Elements are heliocentric osculating elements at ``epoch``. :func:`parse_orbit` validates a
 mapping and returns an :class:`OrbitInput`; every failure raises
 :class:`~dynamics.errors.InvalidOrbit` naming the field (dotted path for nested ones).
@@ -52,7 +58,19 @@ ORBIT_KEYS = (
     "solutions",
     "ejection_events",
     "observed_perihelia",
+    "a",
+    "mean_anomaly",
+    "n",
 )
+#: Keys of the second way to place a bound orbit: semi-major axis (au) and mean anomaly at the
+#: epoch (deg), with the mean motion (deg/day) optionally given as a check, as orbit catalogues
+#: list asteroids and many periodic comets. They replace ``q`` and ``tp``.
+MEAN_ANOMALY_KEYS = ("a", "mean_anomaly", "n")
+#: Largest relative difference accepted between a given mean motion and the one the
+#: semi-major axis implies (Kepler's third law with the Sun's GM). Catalogues print a and n to
+#: 7-9 significant digits, so their own rounding stays below 1e-6; a typing error in either
+#: does not (no source).
+MEAN_MOTION_TOLERANCE = 1e-5
 #: Order of the covariance matrix rows and columns, with their units.
 COVARIANCE_ORDER = (
     ("q", "au"),
@@ -263,7 +281,16 @@ def parse_orbit(
         raise InvalidOrbit(
             path + unknown[0], f"unknown key; expected some of {', '.join(ORBIT_KEYS)}"
         )
-    for key in ("name", "epoch", "q", "e", "i", "node", "peri", "tp"):
+    by_mean_anomaly = any(data.get(k) is not None for k in MEAN_ANOMALY_KEYS)
+    placed = ("a", "mean_anomaly") if by_mean_anomaly else ("q", "tp")
+    if by_mean_anomaly:
+        both = [k for k in ("q", "tp") if data.get(k) is not None]
+        if both:
+            raise InvalidOrbit(
+                path + both[0],
+                "give either q and tp, or a and mean_anomaly (with n as a check), not both",
+            )
+    for key in ("name", "epoch", placed[0], "e", "i", "node", "peri", placed[1]):
         if key not in data or data[key] is None:
             raise InvalidOrbit(path + key, "missing (required)")
 
@@ -277,22 +304,34 @@ def parse_orbit(
     if any(ord(c) < 0x20 or 0x7F <= ord(c) < 0xA0 or c in "\u2028\u2029" for c in name):
         raise InvalidOrbit(path + "name", "holds a control character or line break")
 
-    q = _number(data, "q", path)
     e = _number(data, "e", path)
+    q = _number(data, placed[0], path)  # with the mean anomaly: a, turned into q below
     incl = _number(data, "i", path)
     node = _number(data, "node", path)
     peri = _number(data, "peri", path)
+    if by_mean_anomaly:
+        a = q
+        if not 0.0 <= e < 1.0:
+            raise InvalidOrbit(
+                path + "a",
+                f"a semi-major axis and mean anomaly place a bound orbit (0 <= e < 1, got e = "
+                f"{e!r}); give q and tp for parabolic and hyperbolic orbits",
+            )
+        if a <= 0.0:
+            raise InvalidOrbit(path + "a", f"semi-major axis must be > 0 au, got {a!r}")
+        q = a * (1.0 - e)
+    q_field = path + placed[0]  # with a: the perihelion distance a (1 - e) it implies
     if q <= 0.0:
-        raise InvalidOrbit(path + "q", f"perihelion distance must be > 0 au, got {q!r}")
+        raise InvalidOrbit(q_field, f"perihelion distance must be > 0 au, got {q!r}")
     if q <= MIN_PERIHELION_AU:
         raise InvalidOrbit(
-            path + "q",
+            q_field,
             f"perihelion distance {q!r} au lies inside the Sun (radius {MIN_PERIHELION_AU:.5f} "
             "au): the parent would not survive its perihelion",
         )
     if q > MAX_PERIHELION_AU:
         raise InvalidOrbit(
-            path + "q",
+            q_field,
             f"perihelion distance {q!r} au is above {MAX_PERIHELION_AU:g} au: dust from such a "
             "parent cannot reach Earth's orbit",
         )
@@ -314,7 +353,10 @@ def parse_orbit(
         )
 
     epoch = _time(data, "epoch", path)
-    tp = _time(data, "tp", path)
+    if by_mean_anomaly:
+        tp = _tp_from_mean_anomaly(data, path, epoch, q / (1.0 - e))
+    else:
+        tp = _time(data, "tp", path)
 
     nongrav = None
     if data.get("nongrav") is not None:
@@ -533,6 +575,32 @@ def require_epoch_in_ephemeris(orbit: OrbitInput, path: str = "") -> None:
                 "forecast integrates the parent from its epoch; give the elements at an epoch "
                 "inside it",
             )
+
+
+def _tp_from_mean_anomaly(data, path, epoch_tdb_jd, a_au) -> float:
+    """Perihelion time (TDB JD) from the mean anomaly at the epoch: tp = epoch - M / n.
+
+    The nearest perihelion to the epoch (M taken in (-180, 180] deg), with n from Kepler's
+    third law, sqrt(GM_sun / a^3); a given ``n`` (deg/day) must agree with it to
+    :data:`MEAN_MOTION_TOLERANCE`.
+
+    >>> round(_tp_from_mean_anomaly({"mean_anomaly": 350.0}, "", 2460000.5, 1.0), 3)
+    2460010.646
+    """
+    m_deg = _number(data, "mean_anomaly", path)
+    n_rad_d = math.sqrt(GM_SUN_AU3_D2 / a_au**3)
+    if data.get("n") is not None:
+        n_given = _number(data, "n", path)
+        n_deg_d = math.degrees(n_rad_d)
+        if not abs(n_given - n_deg_d) <= MEAN_MOTION_TOLERANCE * n_deg_d:
+            raise InvalidOrbit(
+                path + "n",
+                f"mean motion {n_given!r} deg/day disagrees with the semi-major axis "
+                f"{a_au!r} au, which gives {n_deg_d:.9f} deg/day (Kepler's third law); check "
+                "both",
+            )
+    m_wrapped = -(((-m_deg + 180.0) % 360.0) - 180.0)  # in (-180, 180]
+    return epoch_tdb_jd - math.radians(m_wrapped) / n_rad_d
 
 
 def _number(data, key, path, default=None) -> float:

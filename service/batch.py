@@ -14,15 +14,23 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from dynamics.errors import InvalidOrbit
-from dynamics.orbit_input import ORBIT_KEYS
+from dynamics.orbit_input import MEAN_ANOMALY_KEYS, ORBIT_KEYS
 
 #: Columns of a CSV batch: the orbit JSON's keys (README, "The orbit input"); ``nongrav.a1`` etc.
 #: for the optional non-gravitational parameters (``nongrav.dt`` in days). Covariances and
 #: alternative solutions need the JSON-lines form.
 _NONGRAV_COLUMNS = ("nongrav.a1", "nongrav.a2", "nongrav.a3", "nongrav.dt")
-#: ``m1`` and ``k1``, the total magnitude that sets the dust production, are optional columns.
-CSV_COLUMNS = (*ORBIT_KEYS[: ORBIT_KEYS.index("nongrav")], *_NONGRAV_COLUMNS, "m1", "k1")
-_CSV_NUMBERS = ("q", "e", "i", "node", "peri", *_NONGRAV_COLUMNS, "m1", "k1")
+#: ``m1`` and ``k1``, the total magnitude that sets the dust production, are optional columns;
+#: so are ``a``, ``mean_anomaly`` and ``n``, which place a bound orbit in a row that leaves
+#: ``q`` and ``tp`` empty (:data:`dynamics.orbit_input.MEAN_ANOMALY_KEYS`).
+CSV_COLUMNS = (
+    *ORBIT_KEYS[: ORBIT_KEYS.index("nongrav")],
+    *_NONGRAV_COLUMNS,
+    "m1",
+    "k1",
+    *MEAN_ANOMALY_KEYS,
+)
+_CSV_NUMBERS = ("q", "e", "i", "node", "peri", *_NONGRAV_COLUMNS, "m1", "k1", *MEAN_ANOMALY_KEYS)
 
 
 @dataclass(frozen=True)

@@ -154,6 +154,32 @@ def test_csv_batch_carries_the_asymmetric_nongrav_offset(tmp_path):
     assert row.orbit.nongrav.dt_days == -32.8 and row.orbit.nongrav.a2_au_d2 == -4e-10
 
 
+def test_csv_batch_takes_rows_placed_by_mean_anomaly(tmp_path):
+    # A newly found asteroid comes as (a, e, i, node, peri, M) at an epoch: such a row leaves q
+    # and tp empty. The demo comet placed both ways must give the same q and tp.
+    import math
+
+    from dynamics.constants import GM_SUN_AU3_D2
+    from dynamics.orbit_input import parse_orbit
+    from service.batch import CSV_COLUMNS, read_batch
+
+    demo = parse_orbit(DEMO)
+    a = DEMO["q"] / (1.0 - DEMO["e"])
+    n_rad = math.sqrt(GM_SUN_AU3_D2 / a**3)
+    m_deg = math.degrees(n_rad * (demo.epoch_tdb_jd - demo.tp_tdb_jd))
+    keys = ("name", "epoch", "q", "e", "i", "node", "peri", "tp", "a", "mean_anomaly", "n")
+    by_m = {**DEMO, "q": "", "tp": "", "a": a, "mean_anomaly": m_deg, "n": math.degrees(n_rad)}
+    by_q = {**DEMO, "a": "", "mean_anomaly": "", "n": ""}
+    header = [c for c in CSV_COLUMNS if c in keys]
+    lines = [",".join(header)] + [",".join(str(r[c]) for c in header) for r in (by_m, by_q)]
+    path = tmp_path / "batch.csv"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    rows = read_batch(path)
+    assert [r.error for r in rows] == [None, None]
+    assert rows[0].orbit.q_au == pytest.approx(rows[1].orbit.q_au, rel=1e-12)
+    assert rows[0].orbit.tp_tdb_jd == pytest.approx(rows[1].orbit.tp_tdb_jd, abs=1e-6)
+
+
 @pytest.mark.slow
 def test_forecast_table_names_each_crossing_by_its_activity():
     # Regression (what the engine gives today, the example): the demo comet's 2026

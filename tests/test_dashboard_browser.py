@@ -52,6 +52,14 @@ BAD_BODIES = [
     {"orbit": {k: v for k, v in DEMO_ORBIT.items() if k != "tp"}, "years": [2040]},
     {"orbit": {**DEMO_ORBIT, "colour": "red"}, "years": [2040]},
     {"orbit": {**DEMO_ORBIT, "name": " "}, "years": [2040]},
+    {"orbit": {**DEMO_ORBIT, "a": 2.0, "mean_anomaly": 5.0}, "years": [2040]},
+    {
+        "orbit": {
+            **{k: v for k, v in DEMO_ORBIT.items() if k not in ("q", "tp")},
+            **{"a": 2.0, "mean_anomaly": 5.0, "e": 1.5},
+        },
+        "years": [2040],
+    },
     {"orbit": DEMO_ORBIT, "years": [1700, 2040]},
     {"orbit": DEMO_ORBIT, "years": [2041, 2040]},
     {"orbit": DEMO_ORBIT, "years": [2040], "particles": 2},

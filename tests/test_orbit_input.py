@@ -91,6 +91,15 @@ def test_iso_times_with_scale_are_accepted():
         ({"observed_perihelia": [{"tp": 2459000.5, "source": 5}]}, "observed_perihelia.0.source"),
         # two times for one return
         ({"observed_perihelia": [{"tp": 2459000.5}, {"tp": 2459100.5}]}, "observed_perihelia"),
+        # the mean-anomaly form: not mixed with q/tp, complete, bound, consistent
+        ({"a": 2.0, "mean_anomaly": 5.0}, "q"),
+        ({"q": ..., "tp": ..., "a": 2.0}, "mean_anomaly"),
+        ({"q": ..., "tp": ..., "mean_anomaly": 5.0}, "a"),
+        ({"q": ..., "tp": ..., "a": 2.0, "mean_anomaly": 5.0, "e": 1.2}, "a"),
+        ({"q": ..., "tp": ..., "a": -2.0, "mean_anomaly": 5.0}, "a"),
+        ({"q": ..., "tp": ..., "a": 0.004, "mean_anomaly": 5.0}, "a"),  # q inside the Sun
+        ({"q": ..., "tp": ..., "a": 2.0, "mean_anomaly": "5"}, "mean_anomaly"),
+        ({"q": ..., "tp": ..., "a": 2.0, "mean_anomaly": 5.0, "n": 0.35}, "n"),
     ],
 )
 def test_invalid_orbits_name_the_field(changes, field):
@@ -158,3 +167,74 @@ def test_demo_comet_is_valid_and_invented():
     o = parse_orbit(data)
     assert "invented" in o.name
     assert o.e < 1.0
+
+
+# 2P/Encke, solution K235/35 of the public comet elements file of the small-body service (a
+# stored copy; copied from ../shared/data/reference-orbits.json): heliocentric osculating,
+# ecliptic J2000, epoch and tp JD TDB.
+PARENT_2P = {
+    "epoch": 2457760.5,
+    "q": 0.335901,
+    "e": 0.84833408,
+    "i": 11.77823,
+    "node": 334.56005,
+    "peri": 186.56269,
+    "tp": 2457822.59253,
+}
+
+
+@pytest.mark.reference
+def test_mean_anomaly_form_gives_the_perihelion_time_rebound_gives():
+    # A periodic comet's catalogued elements (PARENT_2P, source above): REBOUND, a general-purpose N-body library, turns its perihelion time into the mean
+    # anomaly at the epoch (two-body, the Sun's GM in au^3/day^2); read back in the
+    # catalogue's other form (a, mean anomaly, n), the orbit must give the same q and tp.
+    import rebound
+
+    from dynamics.constants import GM_SUN_AU3_D2
+
+    ref = PARENT_2P
+    a = ref["q"] / (1.0 - ref["e"])
+    sim = rebound.Simulation()
+    sim.G = GM_SUN_AU3_D2
+    sim.t = ref["epoch"]
+    sim.add(m=1.0)
+    sim.add(
+        primary=sim.particles[0],
+        a=a,
+        e=ref["e"],
+        inc=math.radians(ref["i"]),
+        Omega=math.radians(ref["node"]),
+        omega=math.radians(ref["peri"]),
+        T=ref["tp"],
+    )
+    p = sim.particles[1]
+    m_deg = math.degrees(p.M) % 360.0
+    n_deg = math.degrees(p.n)
+    o = parse_orbit(
+        {
+            "name": "reference comet",
+            "epoch": ref["epoch"],
+            "a": a,
+            "e": ref["e"],
+            "i": ref["i"],
+            "node": ref["node"],
+            "peri": ref["peri"],
+            "mean_anomaly": m_deg,
+            "n": n_deg,
+        }
+    )
+    assert o.q_au == pytest.approx(ref["q"], rel=1e-12)
+    # round-off of M (1e-13 rad) over n (0.0188 rad/day): 1e-11 day
+    assert o.tp_tdb_jd == pytest.approx(ref["tp"], abs=1e-6)
+    assert "a" not in o.to_json() and o.to_json()["tp"] == o.tp_tdb_jd
+
+
+def test_mean_anomaly_form_takes_the_perihelion_nearest_the_epoch():
+    # M = 350 deg is 10 deg before perihelion: the perihelion comes 10 / n days after the epoch,
+    # not 350 / n days before it. n = k a^-1.5 with the Gaussian constant.
+    n_deg = math.degrees(GAUSSIAN_K) * 2.0**-1.5
+    d = with_(q=..., tp=..., a=2.0, mean_anomaly=350.0, n=n_deg)
+    o = parse_orbit(d)
+    assert o.q_au == pytest.approx(1.0)
+    assert o.tp_tdb_jd - GOOD["epoch"] == pytest.approx(10.0 / n_deg, rel=1e-9)
+    assert parse_orbit(dict(d, mean_anomaly=-10.0)).tp_tdb_jd == pytest.approx(o.tp_tdb_jd)

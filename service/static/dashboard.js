@@ -13,7 +13,7 @@ const DEMO_ORBIT = {
   tp: "2026-10-30T06:00:00 TDB",
 };
 // dynamics.orbit_input.ORBIT_KEYS, in its order (the API's message lists them so).
-const ORBIT_KEYS = ["name", "epoch", "q", "e", "i", "node", "peri", "tp", "nongrav", "m1", "k1", "covariance", "solutions", "ejection_events", "observed_perihelia"];
+const ORBIT_KEYS = ["name", "epoch", "q", "e", "i", "node", "peri", "tp", "nongrav", "m1", "k1", "covariance", "solutions", "ejection_events", "observed_perihelia", "a", "mean_anomaly", "n"];
 const POLL_MS = 700;
 const $ = (sel, root = document) => root.querySelector(sel);
 
@@ -106,16 +106,27 @@ function validateBody(body) {
   const orbit = body.orbit;
   const unknown = Object.keys(orbit).filter((k) => !ORBIT_KEYS.includes(k)).sort();
   if (unknown.length) throw new Invalid(`orbit.${unknown[0]}`, `unknown key; expected some of ${ORBIT_KEYS.join(", ")}`);
-  for (const k of ["name", "epoch", "q", "e", "i", "node", "peri", "tp"]) {
-    if (!(k in orbit) || orbit[k] === null) throw new Invalid(`orbit.${k}`, "missing (required)");
+  // a bound orbit may be placed by a and the mean anomaly instead of q and tp
+  const given = (k) => k in orbit && orbit[k] !== null;
+  const byMeanAnomaly = ["a", "mean_anomaly", "n"].some(given);
+  const placed = byMeanAnomaly ? ["a", "mean_anomaly"] : ["q", "tp"];
+  if (byMeanAnomaly) {
+    const both = ["q", "tp"].filter(given);
+    if (both.length) throw new Invalid(`orbit.${both[0]}`, "give either q and tp, or a and mean_anomaly (with n as a check), not both");
+  }
+  for (const k of ["name", "epoch", placed[0], "e", "i", "node", "peri", placed[1]]) {
+    if (!given(k)) throw new Invalid(`orbit.${k}`, "missing (required)");
   }
   if (typeof orbit.name !== "string" || !orbit.name.trim()) throw new Invalid("orbit.name", "must be a non-empty string");
   if (orbit.name.length > 200) throw new Invalid("orbit.name", "longer than 200 characters");
-  for (const k of ["q", "e", "i", "node", "peri"]) {
+  for (const k of ["e", placed[0], "i", "node", "peri"]) {
     if (typeof orbit[k] !== "number") throw new Invalid(`orbit.${k}`, `expected a number, got ${pyType(orbit[k])}`);
   }
-  const { q, e, i, node, peri } = orbit;
-  if (q <= 0) throw new Invalid("orbit.q", `perihelion distance must be > 0 au, got ${pyFloat(q)}`);
+  const { e, i, node, peri } = orbit;
+  if (byMeanAnomaly && !(e >= 0 && e < 1)) throw new Invalid("orbit.a", `a semi-major axis and mean anomaly place a bound orbit (0 <= e < 1, got e = ${pyFloat(e)}); give q and tp for parabolic and hyperbolic orbits`);
+  if (byMeanAnomaly && orbit.a <= 0) throw new Invalid("orbit.a", `semi-major axis must be > 0 au, got ${pyFloat(orbit.a)}`);
+  const q = byMeanAnomaly ? orbit.a * (1 - e) : orbit.q;
+  if (q <= 0) throw new Invalid(`orbit.${placed[0]}`, `perihelion distance must be > 0 au, got ${pyFloat(q)}`);
   if (e < 0) throw new Invalid("orbit.e", `eccentricity must be >= 0, got ${pyFloat(e)}`);
   if (e > 100) throw new Invalid("orbit.e", "eccentricity above 100.0 is not a comet orbit");
   if (!(i >= 0 && i <= 180)) throw new Invalid("orbit.i", `inclination must be in [0, 180] deg, got ${pyFloat(i)}`);
