@@ -51,6 +51,14 @@ def _problem(r, status: int, field: str | None = None) -> dict:
     return body
 
 
+#: The demo comet placed by semi-major axis and mean anomaly at its epoch (1.0 deg after its
+#: perihelion; q = a (1 - e) as in the demo file).
+BY_MEAN_ANOMALY = {
+    **{k: v for k, v in DEMO_ORBIT.items() if k not in ("q", "tp")},
+    "a": DEMO_ORBIT["q"] / (1.0 - DEMO_ORBIT["e"]),
+    "mean_anomaly": 1.0,
+}
+
 BAD_SUBMISSIONS = [
     # (body, status, field): each documented in the route's responses
     ({**TINY, "orbit": {**DEMO_ORBIT, "e": -0.5}}, 422, "orbit.e"),
@@ -85,7 +93,24 @@ BAD_SUBMISSIONS = [
     ({**TINY, "options": {"trails": [-5000]}}, 422, "options.trails.0"),
     ({**TINY, "options": {"trails": [99999]}}, 422, "options.trails.0"),
     ({**TINY, "options": {"trails": [2041]}}, 422, "options.trails"),  # after the last year
+    # the orbit placed by a and the mean anomaly: not mixed with q and tp, a consistent n
+    ({**TINY, "orbit": {**DEMO_ORBIT, "a": 5.5, "mean_anomaly": 1.0}}, 422, "orbit.q"),
+    ({**TINY, "orbit": {**BY_MEAN_ANOMALY, "n": 0.5}}, 422, "orbit.n"),
+    (
+        {**TINY, "orbit": {**DEMO_ORBIT, "observed_perihelia": [{"tp": 1}]}},
+        422,
+        "orbit.observed_perihelia.0.tp",
+    ),
 ]
+
+
+def test_orbit_by_mean_anomaly_and_observed_perihelia_are_accepted(idle):
+    # Every key of the orbit file is an API key too (README, "The orbit input"): the stored
+    # job's orbit is the same object the command line would read.
+    client, _ = idle
+    orbit = {**BY_MEAN_ANOMALY, "observed_perihelia": [{"tp": 2455000.5, "source": "test"}]}
+    r = client.post("/v1/forecasts", json={**TINY, "orbit": orbit})
+    assert r.status_code == 202, r.text
 
 
 @pytest.mark.parametrize(("body", "status", "field"), BAD_SUBMISSIONS)

@@ -21,9 +21,11 @@ from dynamics.orbit_input import (
     MAX_K1,
     MAX_NAME_LENGTH,
     MAX_NONGRAV_DT_DAYS,
+    MAX_OBSERVED_PERIHELIA,
     MAX_PERIHELION_AU,
     MAX_SOLUTIONS,
     MAX_SPEED_MULTIPLIER,
+    MEAN_MOTION_TOLERANCE,
     MIN_PERIHELION_AU,
     OrbitInput,
     parse_orbit,
@@ -119,10 +121,28 @@ class EjectionEventIn(RequestModel):
     source: str = Field("", max_length=500, description="Where the event's numbers come from")
 
 
+class ObservedPerihelionIn(RequestModel):
+    """The perihelion time of an earlier return, from that apparition's observations."""
+
+    tp: TimeIn = Field(
+        ...,
+        description="Perihelion time of that return: Julian date (TDB) or ISO 8601 text with "
+        "its scale; at least half a period before the orbit's own",
+    )
+    source: str = Field("", max_length=500, description="Where the time comes from")
+
+
+#: The two ways to place the orbit in time (JSON Schema): q and tp, or a and the mean anomaly.
+_PLACED_BY = [{"required": ["q", "tp"]}, {"required": ["a", "mean_anomaly"]}]
+
+
 class _OrbitFields(RequestModel):
     """The orbit's keys. The ranges are stated in the schema and checked by
     :func:`dynamics.orbit_input.parse_orbit` first, so that the API, the command line and the
     dashboard word every refusal the same way (``orbit.q: perihelion distance must be ...``)."""
+
+    # q and tp, or a and the mean anomaly: one of the two ways to place the orbit
+    model_config = {"json_schema_extra": {"anyOf": _PLACED_BY}}
 
     @model_validator(mode="before")
     @classmethod
@@ -148,10 +168,10 @@ class _OrbitFields(RequestModel):
         "quick-look geometry takes any epoch",
         examples=[DEMO_ORBIT["epoch"]],
     )
-    q: float = Field(
-        ...,
+    q: float | None = Field(
+        None,
         json_schema_extra={"exclusiveMinimum": MIN_PERIHELION_AU, "maximum": MAX_PERIHELION_AU},
-        description=f"Perihelion distance (au), above the Sun's radius ({MIN_PERIHELION_AU:.5f} "
+        description=f"Perihelion distance (au); with tp, or else a and mean_anomaly; above the Sun's radius ({MIN_PERIHELION_AU:.5f} "
         "au, IAU 2015 Resolution B3: at or below it the parent plunges into the Sun) and at "
         f"most {MAX_PERIHELION_AU:g} au (no known small body has q above about 80 au; dust "
         "from farther out cannot reach Earth's orbit)",
@@ -182,10 +202,28 @@ class _OrbitFields(RequestModel):
         description="Argument of perihelion (deg), ecliptic and equinox J2000, [0, 360)",
         examples=[DEMO_ORBIT["peri"]],
     )
-    tp: TimeIn = Field(
-        ...,
-        description="Perihelion time: Julian date (TDB) or ISO 8601 text with its scale",
+    tp: TimeIn | None = Field(
+        None,
+        description="Perihelion time: Julian date (TDB) or ISO 8601 text with its scale; with q",
         examples=[DEMO_ORBIT["tp"]],
+    )
+    a: float | None = Field(
+        None,
+        json_schema_extra={"exclusiveMinimum": 0.0},
+        description="Semi-major axis (au) of a bound orbit (e < 1), in place of q and tp with "
+        "mean_anomaly: the element set catalogues give for asteroids; q = a (1 - e) must lie "
+        "in q's range",
+    )
+    mean_anomaly: float | None = Field(
+        None,
+        description="Mean anomaly at the epoch (deg), with a; the perihelion nearest the epoch "
+        "becomes tp",
+    )
+    n: float | None = Field(
+        None,
+        json_schema_extra={"exclusiveMinimum": 0.0},
+        description="Optional mean motion (deg/day), a check on a: it must agree with Kepler's "
+        f"third law to a relative {MEAN_MOTION_TOLERANCE:g}",
     )
     nongrav: NonGravIn | None = Field(
         None, description="Optional non-gravitational parameters (au/day^2)"
@@ -201,6 +239,13 @@ class _OrbitFields(RequestModel):
         None,
         json_schema_extra={"minimum": 0.0, "maximum": MAX_K1},
         description="Slope K1 of the total magnitude law (default 10, i.e. n = 4)",
+    )
+    observed_perihelia: (
+        Annotated[list[ObservedPerihelionIn], Field(max_length=MAX_OBSERVED_PERIHELIA)] | None
+    ) = Field(
+        None,
+        description="Optional perihelion times of earlier returns, observed or fitted at the "
+        "time; the parent's history is held to them going back (README, 'Parent history')",
     )
     covariance: (
         Annotated[
@@ -222,7 +267,7 @@ class OrbitSolutionIn(_OrbitFields):
 class OrbitIn(_OrbitFields):
     """A parent's orbit: heliocentric osculating elements, ecliptic and equinox J2000."""
 
-    model_config = {"json_schema_extra": {"examples": [DEMO_ORBIT]}}
+    model_config = {"json_schema_extra": {"examples": [DEMO_ORBIT], "anyOf": _PLACED_BY}}
 
     solutions: list[OrbitSolutionIn] | None = Field(
         None,
