@@ -365,6 +365,12 @@ def cache_dir():
     return path
 
 
+def _may_stay_active(orbit: OrbitInput, active_r_max_au: float) -> bool:
+    """Whether the parent's aphelion lies within the active zone and its approach margin,
+    where :func:`_collect_return` cuts a return's arc at half a period (bound orbits only)."""
+    return orbit.e < 1.0 and orbit.aphelion_au < active_r_max_au + ARC_APPROACH_MARGIN_AU
+
+
 def cached_parent_history(
     orbit: OrbitInput,
     t_min_tdb_jd: float,
@@ -388,8 +394,13 @@ def cached_parent_history(
     lo = math.floor(t_min_tdb_jd / q) * q
     hi = math.ceil(t_max_tdb_jd / q) * q
     # v4: every history; observed perihelia (held returns, corrected periods before them)
-    # carry their own tag, so a change there never reuses a history made before it
-    tag = ["history-v4"] + (["held-v2"] if orbit.observed_perihelia else [])
+    # carry their own tag, so a change there never reuses a history made before it; so do
+    # parents whose whole orbit may lie in the active zone (arcs cut at half a period since)
+    tag = (
+        ["history-v4"]
+        + (["held-v2"] if orbit.observed_perihelia else [])
+        + (["arc-revolution-v1"] if _may_stay_active(orbit, active_r_max_au) else [])
+    )
     key_src = json.dumps(
         [orbit.to_json(), lo, hi, active_r_max_au, __version__, *tag], sort_keys=True
     )
@@ -563,20 +574,33 @@ def _anchor_notes(anchors: _Anchors, earliest_tdb_jd: float) -> list[str]:
 
 
 def _collect_return(el: Elements, tp: float, samples) -> ParentReturn:
-    """Gather the contiguous active-arc samples around perihelion ``tp``."""
+    """Gather the contiguous active-arc samples around perihelion ``tp``.
+
+    The arc ends where the parent leaves the active zone, and in any case half an osculating
+    period from perihelion: a parent whose aphelion lies inside the zone (a near-Sun asteroid,
+    a comet of a few years' period) would otherwise stay "active" for its whole history, and
+    every return would release its trail over all of it.
+    """
     times = np.array([s[0] for s in samples])
     active = np.array([s[3] is not None for s in samples])
     i0 = int(np.argmin(np.abs(times - tp)))
     if not active[i0]:
         return ParentReturn(tp, el, np.zeros(0), np.zeros((0, 3)), np.zeros((0, 3)), None)
+    half = 0.5 * float(el.period_days) if el.e < 1.0 else math.inf
     lo = i0
-    while lo > 0 and active[lo - 1] and times[lo] - times[lo - 1] <= ARC_STEP_DAYS + 1e-6:
+    while (
+        lo > 0
+        and active[lo - 1]
+        and times[lo] - times[lo - 1] <= ARC_STEP_DAYS + 1e-6
+        and times[lo - 1] > tp - half
+    ):
         lo -= 1
     hi = i0
     while (
         hi < len(samples) - 1
         and active[hi + 1]
         and times[hi + 1] - times[hi] <= ARC_STEP_DAYS + 1e-6
+        and times[hi + 1] <= tp + half
     ):
         hi += 1
     arc = samples[lo : hi + 1]

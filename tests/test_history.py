@@ -126,6 +126,42 @@ def test_long_period_parent_previous_return_is_found_beyond_500_years():
     assert "previous return" in " ".join(h.notes)
 
 
+# Invented: a near-Sun parent whose whole orbit lies inside the 3 au active zone (aphelion
+# 1.7 au, period 1 yr), as for an asteroidal parent or a comet of short period.
+NEAR_SUN = {
+    "name": "invented near-Sun parent",
+    "epoch": 2461000.5,
+    "q": 0.3,
+    "e": 0.7,
+    "i": 20.0,
+    "node": 30.0,
+    "peri": 150.0,
+    "tp": 2461010.5,
+}
+
+
+@pytest.mark.invariant
+def test_each_return_of_a_parent_always_in_the_active_zone_has_its_own_revolution():
+    # One return, one revolution of release: a return's arc ends half a period from its
+    # perihelion, arcs of consecutive returns do not overlap (before, each return's arc was the
+    # whole history: every trail was released over all of it).
+    import numpy as np
+
+    orbit = parse_orbit(NEAR_SUN)
+    h = parent_history(orbit, orbit.epoch_tdb_jd - 5 * 365.25, orbit.epoch_tdb_jd + 365.25)
+    assert len(h.returns) >= 5
+    for ret in h.returns:
+        t = ret.arc_t_tdb_jd
+        half = 0.5 * ret.period_days
+        assert t[0] > ret.tp_tdb_jd - half - 1.0 and t[-1] <= ret.tp_tdb_jd + half
+    for ret in h.returns[1:-1]:  # the first and last are cut by the history's span
+        t = ret.arc_t_tdb_jd
+        assert t[-1] - t[0] > 0.9 * ret.period_days  # the whole revolution is active
+    for a, b in zip(h.returns, h.returns[1:], strict=False):
+        assert a.arc_t_tdb_jd[-1] < b.arc_t_tdb_jd[0]
+    assert np.all(np.linalg.norm(h.returns[0].arc_r_au, axis=-1) < 3.0)
+
+
 @pytest.mark.invariant
 def test_hyperbolic_original_orbit_is_a_first_passage():
     orbit = parse_orbit(HYPERBOLIC)
