@@ -71,6 +71,7 @@ from .sampling import (
 )
 from .scope import (
     TRAIL_YEAR_MATCH_FRACTION,
+    default_trail_start,
     no_target_note,
     trails_in_scope,
     with_dust_production,
@@ -359,6 +360,9 @@ def _forecast(
     _, y_end = calendar_year_tdb_jd(options.last_year)
     say(0.0, "parent history")
     t_min = y_start - options.max_trail_age_years * DAYS_PER_JULIAN_YEAR
+    limit_words = None
+    if not options.trails:  # the default scope: also at most so many revolutions old
+        t_min, limit_words = default_trail_start(orbit, options, y_start)
     period = orbit.period_days if np.isfinite(orbit.period_days) else 0.0
     if options.trails:  # only the named trails: no need to go further back than the oldest
         # (and the return it may stand for: up to a quarter of a period before it)
@@ -377,7 +381,7 @@ def _forecast(
         history = ParentHistory((), orbit.epoch_tdb_jd, None, (str(exc),))
     returns = history.returns
     notes = list(history.notes)
-    trail_ids, scope_notes = trails_in_scope(returns, options, t_min, y_start, y_end)
+    trail_ids, scope_notes = trails_in_scope(returns, options, t_min, y_start, y_end, limit_words)
     notes += scope_notes
 
     say(0.05, "targeting")

@@ -27,8 +27,47 @@ if TYPE_CHECKING:
     from .forecast import ForecastOptions
 
 
-def trails_in_scope(returns, options, t_min, y_start, y_end):
-    """Indices of the returns whose trails are followed, and notes on what was left out."""
+#: With no trails named, a forecast follows trails at most this many revolutions old, besides
+#: its age limit in years: for parents of a few years' period (a near-Sun asteroid, an
+#: Encke-type comet) the 500-year default would mean hundreds of trails, each paired with every
+#: revolution count, for hours of computing. The outbursts on record come from trails up to
+#: about 45 revolutions old (the 2000 Ursids from 8P's return of 1405, Jenniskens & Lyytinen
+#: 2002; the 2006 Orionids, resonant, Sato & Watanabe 2007; both from memory); older trails
+#: have spread along their orbit unless a resonance holds them. A compute bound, not physics:
+#: named trails (``trails``) are followed however old.
+MAX_DEFAULT_TRAIL_REVOLUTIONS = 50
+
+
+def default_trail_start(orbit: OrbitInput, options, y_start: float) -> tuple[float, str | None]:
+    """Oldest perihelion time (TDB JD) whose trail a forecast follows when it names no trails,
+    and the limit that set it, in words, when it is the revolution limit (else None).
+
+    >>> from types import SimpleNamespace
+    >>> o = SimpleNamespace(period_days=365.25 * 1.5)
+    >>> start, why = default_trail_start(o, SimpleNamespace(max_trail_age_years=500.0), 0.0)
+    >>> round(start / 365.25, 1), why
+    (-75.0, 'the limit of 50 revolutions (75 years of its 1.5-year period)')
+    """
+    t_age = y_start - options.max_trail_age_years * DAYS_PER_JULIAN_YEAR
+    period = float(orbit.period_days)
+    if not np.isfinite(period) or period <= 0.0:
+        return t_age, None
+    t_rev = y_start - MAX_DEFAULT_TRAIL_REVOLUTIONS * period
+    if t_rev <= t_age:
+        return t_age, None
+    years = MAX_DEFAULT_TRAIL_REVOLUTIONS * period / DAYS_PER_JULIAN_YEAR
+    return t_rev, (
+        f"the limit of {MAX_DEFAULT_TRAIL_REVOLUTIONS} revolutions ({years:.0f} years of its "
+        f"{period / DAYS_PER_JULIAN_YEAR:.1f}-year period)"
+    )
+
+
+def trails_in_scope(returns, options, t_min, y_start, y_end, limit_words=None):
+    """Indices of the returns whose trails are followed, and notes on what was left out.
+
+    ``limit_words``: what set ``t_min`` when it is not the age limit in years (the revolution
+    limit of :func:`default_trail_start`), for the note on the returns left out.
+    """
     notes = []
     active = [k for k, r in enumerate(returns) if r.tp_tdb_jd < y_end and len(r.arc_t_tdb_jd)]
     inactive = [
@@ -52,11 +91,19 @@ def trails_in_scope(returns, options, t_min, y_start, y_end):
         recent = [k for k in active if returns[k].tp_tdb_jd < y_start][-2:]
         ids = [k for k in active if returns[k].tp_tdb_jd >= t_min or k in recent]
         left = [k for k in active if k not in ids]
-        if left:
+        if left and limit_words is None:
             notes.append(
                 f"{len(left)} older returns ({year_of(returns[left[0]].tp_tdb_jd)} to "
                 f"{year_of(returns[left[-1]].tp_tdb_jd)}) lie beyond the trail-age limit of "
                 f"{options.max_trail_age_years:g} years and were not followed"
+            )
+        elif left:
+            notes.append(
+                f"{len(left)} older returns ({year_of(returns[left[0]].tp_tdb_jd)} to "
+                f"{year_of(returns[left[-1]].tp_tdb_jd)}, and any before them) lie beyond "
+                f"{limit_words}, inside the trail-age limit of "
+                f"{options.max_trail_age_years:g} years, and were not followed: name them "
+                "(trails) to follow them"
             )
     if not ids:
         notes.append("no parent return in scope has an active arc: no trails")

@@ -23,6 +23,7 @@ from dynamics.ejection import EJECTION_SPEED_LAWS
 from dynamics.forecast import ForecastOptions
 from dynamics.nbody import INTEGRATORS
 from dynamics.release import EjectionModel
+from dynamics.scope import MAX_DEFAULT_TRAIL_REVOLUTIONS
 from dynamics.screening import screening_forecast_options
 from dynamics.uncertainty import DEFAULT_CLONES
 
@@ -237,7 +238,9 @@ OPTIONS: tuple[Option, ...] = (
         "--max-age",
         float,
         _engine_default(_FO, "max_trail_age_years"),
-        "oldest trail followed, years before the first forecast year (yr)",
+        "oldest trail followed, years before the first forecast year (yr); with no trails "
+        f"named, also at most {MAX_DEFAULT_TRAIL_REVOLUTIONS} revolutions old (the notes say "
+        "what either limit left out)",
         "ForecastOptions.max_trail_age_years",
         gt=0.0,
         le=MAX_TRAIL_AGE_YEARS,

@@ -59,6 +59,30 @@ def test_long_period_parent_keeps_its_previous_return_in_scope():
 
 
 @pytest.mark.invariant
+def test_a_parent_of_short_period_follows_fifty_revolutions_by_default_and_says_so():
+    # A parent of 1.5 years' period (invented): 500 years would be 333 trails. By default the
+    # forecast follows those of the last 50 revolutions (dynamics.scope, a compute bound, no
+    # source) and names the rest; named trails stay reachable however old. A 33-year parent
+    # keeps the 500-year limit (15 revolutions).
+    from types import SimpleNamespace
+
+    from dynamics.scope import MAX_DEFAULT_TRAIL_REVOLUTIONS, default_trail_start
+
+    y0, _ = calendar_year_tdb_jd(2030)
+    _, y1 = calendar_year_tdb_jd(2030)
+    opts = ForecastOptions(2030, 2030, workers=1)
+    period = 1.5 * 365.25
+    t_min, why = default_trail_start(SimpleNamespace(period_days=period), opts, y0)
+    assert t_min == pytest.approx(y0 - MAX_DEFAULT_TRAIL_REVOLUTIONS * period)
+    many = tuple(_ret(y0 - k * period) for k in range(120, 0, -1))
+    ids, notes = trails_in_scope(many, opts, t_min, y0, y1, why)
+    assert len(ids) == MAX_DEFAULT_TRAIL_REVOLUTIONS
+    assert any("the limit of 50 revolutions" in n and "name them" in n for n in notes)
+    t_33, why_33 = default_trail_start(SimpleNamespace(period_days=33.0 * 365.25), opts, y0)
+    assert why_33 is None and t_33 == pytest.approx(y0 - opts.max_trail_age_years * 365.25)
+
+
+@pytest.mark.invariant
 def test_a_named_trail_year_finds_the_nearest_return_and_says_so():
     # Published trail years come from other integrations of the parent: one return may be dated
     # a year (or, thousands of years back, decades) apart. A named year with no return of its
