@@ -123,8 +123,15 @@ def pilot(targets, trails, options, executor, say) -> int:
             options.pilot_window_days, PILOT_SPAN_PER_REVOLUTION_DAYS * tg.revolutions
         )
         tg.pool, tg.cls, tg.n_drawn = tr.pool, tr.cls, tr.n_drawn
-        tg.keep_prob = np.ones(len(tr.pool))
         x = predicted_offset(tr.pool, tg)
+        if not np.any((x >= -tg.span_days) & (x <= tg.span_days)):
+            # no candidate is predicted within the pilot's span: the pilot never picks one and
+            # no later round can (they all start from what the pilot saw). Keep no arrays over
+            # the pool for it: a short-period parent has thousands of such (trail, revolution)
+            # pairs, and these arrays of the pool's size made gigabytes.
+            tg.keep_prob = np.zeros(0)
+            continue
+        tg.keep_prob = np.ones(len(tr.pool))
         todo.append((ti, -tg.span_days, tg.span_days, per_class))
         tg.x_pool = x
     for round_ in range(1 + PILOT_EXPANSIONS):
@@ -267,14 +274,17 @@ def main_rounds(targets, trails, options, executor, say, integrated):
     """
     per_target: dict[int, list] = {}
     picked: dict[int, list] = {}
-    taken = {ti: np.zeros(len(tg.pool), dtype=bool) for ti, tg in enumerate(targets)}
-    for ti, tg in enumerate(targets):
+    for tg in targets:
+        tg.selection_mode = "shooting"
+    # targets the pilot could not reach (no arrays over the pool: see pilot) take no rounds
+    active = [ti for ti, tg in enumerate(targets) if len(tg.x_pool)]
+    taken = {ti: np.zeros(len(targets[ti].pool), dtype=bool) for ti in active}
+    for ti in active:
+        tg = targets[ti]
         if not tg.targeted_pool:  # pilot meteoroids inform the map, never the activity
             taken[ti][tg.idx_seen] = True
-        tg.selection_mode = "shooting"
     probe = max(PROBE_MIN_HITS, int(np.ceil(PROBE_FRACTION * options.particles)))
     probe = min(probe, options.particles)
-    active = list(range(len(targets)))
     for round_ in range(2 + REFINEMENT_ROUNDS):  # 0: probe, 1: the rest of the budget
         budget = probe if round_ == 0 else options.particles - probe if round_ == 1 else None
         budget = options.particles if budget is None else budget

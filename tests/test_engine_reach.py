@@ -184,6 +184,36 @@ def test_prediction_uses_the_parents_realised_period():
 
 
 @pytest.mark.invariant
+def test_a_passage_no_candidate_can_reach_costs_no_memory_and_no_meteoroids():
+    # A (trail, revolutions) pair whose candidates are all predicted 1000 days from Earth's
+    # passage (beyond the pilot's 150-day span): the pilot integrates none for it, keeps no
+    # arrays the size of the 2000-candidate pool for it (a short-period parent has thousands
+    # of such pairs), and the main rounds give it none either.
+    from dynamics.sampling import Trail, main_rounds, pilot
+    from dynamics.targeting import beta_class_edges, beta_classes
+
+    orbit = parse_orbit(PARENT_55P)
+    tp = orbit.tp_tdb_jd
+    hist = parent_history(orbit, tp - 30, tp + 30)
+    ret = min(hist.returns, key=lambda r: abs(r.tp_tdb_jd - tp))
+    model = EjectionModel()
+    pool = draw_candidates(ret, model, 2000, np.random.default_rng(3))
+    edges = beta_class_edges(pool.beta)
+    trails = {0: Trail(ret, pool, model, 2000, None, beta_classes(pool.beta, edges), edges)}
+    far = Target(0, 1998, "descending", tp + 1000.0, 0, tp, float("nan"), 12000.0)
+    opts = ForecastOptions(1998, 1998, workers=1, particles=10)
+
+    class NoExecutor:
+        def submit(self, *a, **k):
+            raise AssertionError("nothing to integrate")
+
+    assert pilot([far], trails, opts, NoExecutor(), lambda f, s: None) == 0
+    assert len(far.x_pool) == 0 and len(far.keep_prob) == 0 and len(far.idx_seen) == 0
+    per_target, _, integrated = main_rounds([far], trails, opts, NoExecutor(), lambda f, s: None, 0)
+    assert per_target == {} and integrated == 0
+
+
+@pytest.mark.invariant
 def test_selection_is_a_random_subset_with_its_inclusion_fraction():
     x = np.linspace(-100, 100, 201)
     y = 2.0 * x + 10.0  # the "integrated" map: arrivals twice as spread, 10 days late
