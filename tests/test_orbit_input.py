@@ -169,6 +169,17 @@ def test_demo_comet_is_valid_and_invented():
     assert o.e < 1.0
 
 
+def test_near_sun_example_is_placed_by_mean_anomaly_and_invented():
+    # examples/near-sun-asteroid.json shows the catalogue form (a, mean anomaly, n) of an
+    # invented parent whose whole orbit lies inside the 3 au active zone.
+    data = json.loads((EXAMPLES / "near-sun-asteroid.json").read_text())
+    assert {"a", "mean_anomaly", "n"} <= set(data) and "q" not in data
+    o = parse_orbit(data)
+    assert "invented" in o.name
+    assert o.q_au == pytest.approx(data["a"] * (1.0 - data["e"]))
+    assert o.aphelion_au < 3.0
+
+
 # 2P/Encke, solution K235/35 of the public comet elements file of the small-body service (a
 # stored copy; copied from ../shared/data/reference-orbits.json): heliocentric osculating,
 # ecliptic J2000, epoch and tp JD TDB.
