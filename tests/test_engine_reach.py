@@ -148,12 +148,18 @@ def test_planets_follow_de423_over_a_century():
         assert drift_km[name] < 1000.0, drift_km
 
 
-@pytest.mark.invariant
-def test_fragmentation_event_releases_at_its_date_with_its_speeds():
+def _return_55p():
+    """The reference comet's return at its orbit solution's perihelion (60 days of history)."""
     orbit = parse_orbit(PARENT_55P)
     tp = orbit.tp_tdb_jd
     hist = parent_history(orbit, tp - 30, tp + 30)
-    ret = min(hist.returns, key=lambda r: abs(r.tp_tdb_jd - tp))
+    return min(hist.returns, key=lambda r: abs(r.tp_tdb_jd - tp))
+
+
+@pytest.mark.invariant
+def test_fragmentation_event_releases_at_its_date_with_its_speeds():
+    ret = _return_55p()
+    tp = ret.tp_tdb_jd
     model = EjectionModel(speed_spread="fixed")
     rng = np.random.default_rng(3)
     normal = draw_candidates(ret, model, 2000, rng)
@@ -192,10 +198,8 @@ def test_a_passage_no_candidate_can_reach_costs_no_memory_and_no_meteoroids():
     from dynamics.sampling import Trail, main_rounds, pilot
     from dynamics.targeting import beta_class_edges, beta_classes
 
-    orbit = parse_orbit(PARENT_55P)
-    tp = orbit.tp_tdb_jd
-    hist = parent_history(orbit, tp - 30, tp + 30)
-    ret = min(hist.returns, key=lambda r: abs(r.tp_tdb_jd - tp))
+    ret = _return_55p()
+    tp = ret.tp_tdb_jd
     model = EjectionModel()
     pool = draw_candidates(ret, model, 2000, np.random.default_rng(3))
     edges = beta_class_edges(pool.beta)
