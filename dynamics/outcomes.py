@@ -169,6 +169,12 @@ def classify(
     )
 
 
+#: Close passes with negligible activity named one by one in the note of a forecast without
+#: encounters (the closest first; all of them are in its 'trails'): a parent of short period
+#: has dozens (no source).
+MAX_LISTED_CLOSE_PASSES = 10
+
+
 def nothing_found_note(outcomes) -> str:
     """The note of a forecast without encounters: what became of every trail passage, and the
     close passes that gave too little activity, each with its numbers."""
@@ -182,20 +188,29 @@ def nothing_found_note(outcomes) -> str:
     ]
     best = min(closest) if closest else np.inf
     tail = f"; the closest simulated approach was {best:.4f} au" if np.isfinite(best) else ""
-    weak = [o for o in outcomes if o["outcome"] == "negligible"]
+    weak = sorted(
+        (o for o in outcomes if o["outcome"] == "negligible"),
+        key=lambda o: abs(o["miss_distance_au"]),
+    )
     close = ""
     if weak:
+        listed = weak[:MAX_LISTED_CLOSE_PASSES]
+        more = len(weak) - len(listed)
         close = (
             f"; {len(weak)} passed close to Earth's path but with negligible activity "
-            f"(predicted peak ZHR below {weak[0]['zhr_level']:g}): "
+            f"(predicted peak ZHR below {weak[0]['zhr_level']:g}), the closest first: "
             + ", ".join(
-                f"the {o['trail']['perihelion_year']} trail in {o['year']} at "
+                f"the {o['trail']['perihelion_year']} trail in {o['year']} after "
+                f"{o['revolutions']} revolution{'' if o['revolutions'] == 1 else 's'} at "
                 f"{abs(o['miss_distance_au']):.5f} au, ZHR {o['peak_zhr']:.3g} "
                 f"({o['zhr_range'][0]:.3g}-{o['zhr_range'][1]:.3g})"
-                for o in weak
+                for o in listed
             )
+            + (f", and {more} more" if more else "")
         )
     return (
-        f"no encounter: {len(outcomes)} trail passages were followed ({said}){tail}{close}; "
+        f"no encounter: {len(outcomes)} trail "
+        f"{'passage was' if len(outcomes) == 1 else 'passages were'} followed ({said})"
+        f"{tail}{close}; "
         "see 'trails' for each one and what was tried"
     )

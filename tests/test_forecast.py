@@ -193,6 +193,34 @@ def test_a_close_pass_with_no_activity_is_negligible_and_said_so():
 
 
 @pytest.mark.invariant
+def test_a_note_on_many_close_passes_names_the_closest_with_their_revolutions():
+    # A parent of short period can have dozens of negligible close passes: the note names the
+    # closest ten, each with its revolutions (one trail can pass at several), then counts the
+    # rest; every one of them stays in 'trails'.
+    from dynamics.outcomes import MAX_LISTED_CLOSE_PASSES, nothing_found_note
+
+    def passage(k):
+        return {
+            "outcome": "negligible",
+            "year": 2030,
+            "trail": {"perihelion_year": 1990},
+            "revolutions": k,
+            "miss_distance_au": 0.001 + 0.0001 * (12 - k),
+            "peak_zhr": 0.0,
+            "zhr_range": [0.0, 0.0],
+            "zhr_level": 10.0,
+        }
+
+    note = nothing_found_note([passage(k) for k in range(1, 13)])
+    assert "12 passed close to Earth's path" in note
+    assert "the 1990 trail in 2030 after 12 revolutions at 0.00100 au" in note  # closest first
+    assert note.index("after 12 revolutions") < note.index("after 11 revolutions")
+    assert "after 1 revolution at" not in note and "after 2 revolutions" not in note
+    assert f"and {12 - MAX_LISTED_CLOSE_PASSES} more" in note
+    assert nothing_found_note([passage(3)]).startswith("no encounter: 1 trail passage was")
+
+
+@pytest.mark.invariant
 def test_first_passage_is_a_plain_result():
     hyperbolic = {
         "name": "invented hyperbolic comet",
