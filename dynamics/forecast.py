@@ -359,15 +359,16 @@ def _forecast(
     y_start, _ = calendar_year_tdb_jd(options.first_year)
     _, y_end = calendar_year_tdb_jd(options.last_year)
     say(0.0, "parent history")
-    t_min = y_start - options.max_trail_age_years * DAYS_PER_JULIAN_YEAR
-    limit_words = None
-    if not options.trails:  # the default scope: also at most so many revolutions old
-        t_min, limit_words = default_trail_start(orbit, options, y_start)
     period = orbit.period_days if np.isfinite(orbit.period_days) else 0.0
+    limit_words = None
     if options.trails:  # only the named trails: no need to go further back than the oldest
-        # (and the return it may stand for: up to a quarter of a period before it)
+        # (and the return it may stand for: up to a quarter of a period before it). The
+        # backward integration is the same whatever its end, so the returns it finds after
+        # this point are those a longer history has: only the years before it are not paid for
         reach = TRAIL_YEAR_MATCH_FRACTION * min(period, 300 * DAYS_PER_JULIAN_YEAR) + 400.0
-        t_min = min(t_min, calendar_year_tdb_jd(min(options.trails))[0] - reach)
+        t_min = calendar_year_tdb_jd(min(options.trails))[0] - reach
+    else:  # the default scope: the age limit, and at most so many revolutions
+        t_min, limit_words = default_trail_start(orbit, options, y_start)
     t_max = y_end + min(1.3 * period, 300 * DAYS_PER_JULIAN_YEAR) + 60.0
     try:
         history = cached_parent_history(

@@ -193,6 +193,36 @@ def test_a_close_pass_with_no_activity_is_negligible_and_said_so():
 
 
 @pytest.mark.invariant
+def test_named_trails_integrate_the_parent_back_only_to_the_oldest_of_them(monkeypatch):
+    # The parent's history is the same whatever the backward integration's end (the hindcast
+    # rows of 2011, 1998 and 2022 gave identical predictions both ways), so a forecast of named
+    # trails does not pay for the 500 years of the default age limit: it stops a quarter period
+    # and 400 days before the oldest one (dynamics.scope.TRAIL_YEAR_MATCH_FRACTION).
+    import dynamics.forecast as fc
+    from dynamics.scope import TRAIL_YEAR_MATCH_FRACTION
+
+    seen = []
+
+    class Stop(Exception):
+        pass
+
+    def spy(orbit, t_min, t_max, **kw):
+        seen.append(t_min)
+        raise Stop
+
+    monkeypatch.setattr(fc, "cached_parent_history", spy)
+    orbit = parse_orbit(json.loads((EXAMPLES / "demo-comet.json").read_text()))
+    with pytest.raises(Stop):
+        forecast(orbit, ForecastOptions(2040, 2040, trails=(2013, 2026), workers=1))
+    reach = TRAIL_YEAR_MATCH_FRACTION * orbit.period_days + 400.0
+    assert seen == [pytest.approx(iso_to_tdb_jd("2013-01-01T00:00:00Z") - reach, abs=0.01)]
+    with pytest.raises(Stop):  # the default scope still reaches back its 500 years
+        forecast(orbit, ForecastOptions(2040, 2040, workers=1))
+    y_start = iso_to_tdb_jd("2040-01-01T00:00:00Z")
+    assert seen[1] == pytest.approx(y_start - 500 * 365.25, abs=0.01)  # Julian years
+
+
+@pytest.mark.invariant
 def test_a_note_on_many_close_passes_names_the_closest_with_their_revolutions():
     # A parent of short period can have dozens of negligible close passes: the note names the
     # closest ten, each with its revolutions (one trail can pass at several), then counts the
