@@ -305,12 +305,11 @@ def parse_orbit(
         raise InvalidOrbit(path + "name", "holds a control character or line break")
 
     e = _number(data, "e", path)
-    q = _number(data, placed[0], path)  # with the mean anomaly: a, turned into q below
+    q = a = _number(data, placed[0], path)  # with the mean anomaly: a, turned into q below
     incl = _number(data, "i", path)
     node = _number(data, "node", path)
     peri = _number(data, "peri", path)
     if by_mean_anomaly:
-        a = q
         if not 0.0 <= e < 1.0:
             raise InvalidOrbit(
                 path + "a",
@@ -354,7 +353,7 @@ def parse_orbit(
 
     epoch = _time(data, "epoch", path)
     if by_mean_anomaly:
-        tp = _tp_from_mean_anomaly(data, path, epoch, q / (1.0 - e))
+        tp = _tp_from_mean_anomaly(data, path, epoch, a)
     else:
         tp = _time(data, "tp", path)
 

@@ -56,7 +56,9 @@ BAD_BODIES = [
     {
         "orbit": {
             **{k: v for k, v in DEMO_ORBIT.items() if k not in ("q", "tp")},
-            **{"a": 2.0, "mean_anomaly": 5.0, "e": 1.5},
+            "a": 2.0,
+            "mean_anomaly": 5.0,
+            "e": 1.5,
         },
         "years": [2040],
     },

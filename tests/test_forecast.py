@@ -194,8 +194,8 @@ def test_a_close_pass_with_no_activity_is_negligible_and_said_so():
 
 @pytest.mark.invariant
 def test_named_trails_integrate_the_parent_back_only_to_the_oldest_of_them(monkeypatch):
-    # The parent's history is the same whatever the backward integration's end (the hindcast
-    # rows of 2011, 1998 and 2022 gave identical predictions both ways), so a forecast of named
+    # The parent's history is the same whatever the backward integration's end (all 22
+    # hindcast rows gave identical predictions both ways, on 0a60156), so a forecast of named
     # trails does not pay for the 500 years of the default age limit: it stops a quarter period
     # and 400 days before the oldest one (dynamics.scope.TRAIL_YEAR_MATCH_FRACTION).
     import dynamics.forecast as fc

@@ -196,8 +196,9 @@ PARENT_2P = {
 
 @pytest.mark.reference
 def test_mean_anomaly_form_gives_the_perihelion_time_rebound_gives():
-    # A periodic comet's catalogued elements (PARENT_2P, source above): REBOUND, a general-purpose N-body library, turns its perihelion time into the mean
-    # anomaly at the epoch (two-body, the Sun's GM in au^3/day^2); read back in the
+    # A periodic comet's catalogued elements (PARENT_2P, source above): REBOUND, a
+    # general-purpose N-body library, turns its perihelion time into the mean anomaly at the
+    # epoch (two-body, the Sun's GM in au^3/day^2); read back in the
     # catalogue's other form (a, mean anomaly, n), the orbit must give the same q and tp.
     import rebound
 
@@ -235,7 +236,8 @@ def test_mean_anomaly_form_gives_the_perihelion_time_rebound_gives():
         }
     )
     assert o.q_au == pytest.approx(ref["q"], rel=1e-12)
-    # round-off of M (1e-13 rad) over n (0.0188 rad/day): 1e-11 day
+    # round-off of M (1e-13 rad) over n (0.0188 rad/day) is 1e-11 day; 1e-6 d (0.09 s) leaves
+    # room for REBOUND's Kepler solver (no source for its tolerance)
     assert o.tp_tdb_jd == pytest.approx(ref["tp"], abs=1e-6)
     assert "a" not in o.to_json() and o.to_json()["tp"] == o.tp_tdb_jd
 

@@ -171,7 +171,8 @@ class _OrbitFields(RequestModel):
     q: float | None = Field(
         None,
         json_schema_extra={"exclusiveMinimum": MIN_PERIHELION_AU, "maximum": MAX_PERIHELION_AU},
-        description=f"Perihelion distance (au); with tp, or else a and mean_anomaly; above the Sun's radius ({MIN_PERIHELION_AU:.5f} "
+        description="Perihelion distance (au); with tp, or else a and mean_anomaly; above the "
+        f"Sun's radius ({MIN_PERIHELION_AU:.5f} "
         "au, IAU 2015 Resolution B3: at or below it the parent plunges into the Sun) and at "
         f"most {MAX_PERIHELION_AU:g} au (no known small body has q above about 80 au; dust "
         "from farther out cannot reach Earth's orbit)",
