@@ -253,6 +253,12 @@ CROSS_CHECK_FLOOR_ZHR = 1.0
 #: ideal skies is what observers notice above the sporadic background).
 ENCOUNTER_MIN_ZHR = 10.0
 
+#: Offsets of Earth's path tried when looking for the trail's densest line (the direct hit):
+#: evenly spaced over the classes' centres +- this many widths, plus each class's own centre,
+#: then refined. A search resolution, not physics (no source).
+DIRECT_HIT_SEARCH_SIGMAS = 4.0
+DIRECT_HIT_SEARCH_POINTS = 201
+
 
 def gravitational_focusing_factor(vg_km_s, v_esc_km_s: float = EARTH_ESCAPE_KM_S):
     """Flux enhancement by Earth's gravity, 1 + v_esc^2 / Vg^2 (orientation-averaged).
@@ -325,6 +331,12 @@ class Profile:
     box_zhr: float = 0.0
     box_meteoroids: int = 0
     estimators_disagree: bool = False
+    #: Peak ZHR if Earth's path ran along the densest line of the visual sizes' cross-section,
+    #: and where that line lies (au, signed like miss distances: trail minus Earth). It
+    #: separates the trail's dust from its position: a trail the model places a few widths
+    #: from Earth can still be dense enough for a storm if its position is off by that much.
+    direct_hit_zhr: float = 0.0
+    direct_hit_miss_au: float = 0.0
 
 
 def _contiguous(mask, k):
@@ -503,12 +515,12 @@ def trail_activity(
             )
         return out
 
-    def zhr_on(grid, fitted, scale=1.0):
+    def zhr_on(grid, fitted, scale=1.0, earth_at_au=0.0):
         total = np.zeros_like(grid)
         per = []
         for _, mt, st, _, mr, sr, _, ck, fk, _ in fitted:
             g_t = np.exp(-0.5 * ((grid - mt) / st) ** 2) / (st * math.sqrt(2 * math.pi))
-            g_r = math.exp(-0.5 * (mr / sr) ** 2) / (sr * math.sqrt(2 * math.pi))
+            g_r = math.exp(-0.5 * ((mr - earth_at_au) / sr) ** 2) / (sr * math.sqrt(2 * math.pi))
             z = zhr_from_flux(scale * ck * g_t * g_r * fk * norm, population_index)
             per.append(z)
             total = total + z
@@ -542,6 +554,7 @@ def trail_activity(
     if peak > 0:
         a, b = _contiguous(zhr >= 0.5 * peak, k)
         fwhm_h = float((grid[b] - grid[a]) * 24.0)
+    hit_zhr, hit_miss = _direct_hit(fitted, grid, zhr_on)
     window = None
     if peak >= WINDOW_FLOOR_ZHR:
         a, b = _contiguous(zhr >= max(WINDOW_FRACTION_OF_PEAK * peak, WINDOW_FLOOR_ZHR), k)
@@ -594,8 +607,54 @@ def trail_activity(
     else:
         boots = np.array([peak])
     return Profile(
-        grid, zhr, t_peak, peak, fwhm_h, window, boots, classes, box_zhr, box_n, disagree
+        grid,
+        zhr,
+        t_peak,
+        peak,
+        fwhm_h,
+        window,
+        boots,
+        classes,
+        box_zhr,
+        box_n,
+        disagree,
+        max(hit_zhr, peak),
+        hit_miss if hit_zhr > peak else 0.0,
     )
+
+
+def _direct_hit(fitted, grid, zhr_on) -> tuple[float, float]:
+    """Highest peak ZHR over offsets of Earth's path across the trail, and that offset (au).
+
+    The fitted classes are moved together relative to Earth's path (their along-path shapes
+    kept); the offset is searched on a grid over the classes' centres +- their widths and at
+    each centre, then refined by a bounded scalar search between the grid neighbours.
+    """
+    if not fitted:
+        return 0.0, 0.0
+    centres = np.array([f[4] for f in fitted])
+    widths = np.array([f[5] for f in fitted])
+    lo = float(np.min(centres - DIRECT_HIT_SEARCH_SIGMAS * widths))
+    hi = float(np.max(centres + DIRECT_HIT_SEARCH_SIGMAS * widths))
+    offsets = np.union1d(np.linspace(lo, hi, DIRECT_HIT_SEARCH_POINTS), centres)
+
+    def best_at(d: float) -> float:
+        return float(zhr_on(grid, fitted, earth_at_au=d)[0].max())
+
+    values = np.array([best_at(d) for d in offsets])
+    k = int(np.argmax(values))
+    d_best, z_best = float(offsets[k]), float(values[k])
+    a, b = offsets[max(k - 1, 0)], offsets[min(k + 1, len(offsets) - 1)]
+    if b > a:
+        res = minimize_scalar(
+            lambda d: -best_at(d),
+            bounds=(float(a), float(b)),
+            method="bounded",
+            options={"xatol": 1e-3 * float(widths.min())},
+        )
+        if -res.fun > z_best:
+            d_best, z_best = float(res.x), float(-res.fun)
+    return z_best, d_best
 
 
 @dataclass(frozen=True)
@@ -623,6 +682,7 @@ def classify_crossing(
     min_zhr: float = ENCOUNTER_MIN_ZHR,
     zhr_range: tuple[float, float] | None = None,
     zhr_mode: str | None = None,
+    direct_hit: tuple[float, float] | None = None,
 ) -> Classification | None:
     """Name a trail crossing by the activity it gives, not only by its distance.
 
@@ -631,7 +691,10 @@ def classify_crossing(
     ``zhr_range`` (low, high) and ``zhr_mode`` (``absolute`` or ``calibrated``), when given, go
     into the reason: in absolute mode the ZHR is uncertain by a factor of several, so a crossing
     below the level whose high end reaches it is said to be possibly noticeable (and an
-    encounter whose low end falls below it, possibly not). They never change the label.
+    encounter whose low end falls below it, possibly not). ``direct_hit`` (ZHR, offset in au:
+    :attr:`Profile.direct_hit_zhr` and :attr:`Profile.direct_hit_miss_au`), when given and at
+    or above the level for a crossing below it, is said too: the trail's modelled position, not
+    its dust, keeps it below. None of these changes the label.
 
     - ``encounter``: predicted peak ZHR at or above the level (and the crossing within
       ``near_miss_max_au``);
@@ -649,6 +712,10 @@ def classify_crossing(
     ...     encounter_sigmas=3.0, earth_radius_au=4.26e-5, near_miss_max_au=0.05,
     ...     zhr_range=(0.02, 11.0), zhr_mode="absolute").reason.split("; ")[-1]
     'at the high end of its range it reaches 10 and could be noticeable'
+    >>> classify_crossing(3e-5, -0.0011, 0.0002, encounter_max_miss_au=0.005,
+    ...     encounter_sigmas=3.0, earth_radius_au=4.26e-5, near_miss_max_au=0.05,
+    ...     direct_hit=(6600.0, -0.00111)).reason.split("; ")[-1]
+    "on its densest line, -0.00111 au from Earth's path, the ZHR would be 6600: its modelled position, not its dust, keeps it below 10"
     """
     level = float(min_zhr) if annual_zhr is None else max(float(min_zhr), float(annual_zhr))
     miss = abs(float(miss_distance_au))
@@ -667,7 +734,14 @@ def classify_crossing(
     else:
         label = "near miss"
         reason = f"passes {where}; predicted peak ZHR {z}, below {level:g}"
-    return Classification(label, level, reason + _range_words(label, level, zhr_range, zhr_mode))
+    reason += _range_words(label, level, zhr_range, zhr_mode)
+    if direct_hit is not None and label != "encounter" and float(direct_hit[0]) >= level:
+        reason += (
+            f"; on its densest line, {float(direct_hit[1]):+.5f} au from Earth's path, the ZHR "
+            f"would be {zhr_text(direct_hit[0])}: its modelled position, not its dust, keeps "
+            f"it below {level:g}"
+        )
+    return Classification(label, level, reason)
 
 
 def zhr_text(x: float) -> str:

@@ -267,7 +267,9 @@ class ForecastResult:
                 "Q = n Vg (1 + v_esc^2/Vg^2); ZHR = Q x 37200 km^2 / c(r) (Koschack & Rendtel "
                 "1990); box_count_estimate: weighted meteoroids in a space-time box around Earth "
                 "(after Vaubaillon et al. 2005), estimators_disagree beyond a factor 3; low/high: "
-                "bootstrap 16-84 % widened by the model factor of the mode",
+                "bootstrap 16-84 % widened by the model factor of the mode; direct_hit: the "
+                "peak ZHR if Earth's path ran along the densest line of those tubes (miss_au: "
+                "where that line lies), the trail's dust apart from its modelled position",
             },
             "conventions": {
                 "times": "UTC, ISO 8601",

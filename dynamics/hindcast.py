@@ -220,6 +220,8 @@ def run_row(
         "zhr_box_count": None if prof is None else float(prof.box_zhr),
         "box_meteoroids": None if prof is None else int(prof.box_meteoroids),
         "estimators_disagree": None if prof is None else bool(prof.estimators_disagree),
+        "direct_hit_zhr": None if prof is None else float(prof.direct_hit_zhr),
+        "direct_hit_miss_au": None if prof is None else float(prof.direct_hit_miss_au),
         "fwhm_hours": float(enc.fwhm_hours),
         "vg_km_s": float(enc.vg_km_s),
         "revolutions": int(enc.revolutions),
@@ -358,6 +360,8 @@ def _row_score(row, result, factor):
         "miss_distance_au": None,
         "predicted_zhr": None,
         "zhr_ratio": None,
+        "direct_hit_zhr": None,
+        "direct_hit_ratio": None,
         "fwhm_ratio": None,
         "label": None,
         "estimators_disagree": None,
@@ -386,6 +390,10 @@ def _row_score(row, result, factor):
             s["within_tolerance"] = abs(s["offset_min"]) <= float(row["tolerance_min"])
     if obs.get("zhr"):  # no-outburst rows too: the level that was seen
         s["zhr_ratio"] = zhr / float(obs["zhr"])
+    if pred.get("direct_hit_zhr") is not None:  # results written before it have none
+        s["direct_hit_zhr"] = pred["direct_hit_zhr"] * (factor if factor is not None else 1.0)
+        if obs.get("zhr"):
+            s["direct_hit_ratio"] = s["direct_hit_zhr"] / float(obs["zhr"])
     if obs.get("fwhm_min"):
         s["fwhm_ratio"] = pred["fwhm_hours"] * 60.0 / float(obs["fwhm_min"])
     return s
@@ -398,6 +406,7 @@ def _summary(scores: list[dict]) -> dict:
     offsets = np.array([abs(s["offset_min"]) for s in timed])
     tol = [s for s in timed if s["within_tolerance"] is not None]
     ratios = [s["zhr_ratio"] for s in outbursts if s["zhr_ratio"] is not None]
+    hits = [s["direct_hit_ratio"] for s in outbursts if s.get("direct_hit_ratio") is not None]
     fwhm = [s["fwhm_ratio"] for s in outbursts if s["fwhm_ratio"] is not None]
 
     def frac(k, n):
@@ -416,6 +425,12 @@ def _summary(scores: list[dict]) -> dict:
             sum(1.0 / ZHR_FACTOR_GOAL <= r <= ZHR_FACTOR_GOAL for r in ratios), len(ratios)
         ),
         "median_zhr_ratio": float(np.median(ratios)) if ratios else None,
+        # the trail's dust apart from its position: the ZHR on its densest line (a diagnostic;
+        # the prediction is the ZHR above)
+        "fraction_direct_hit_within_x3": frac(
+            sum(1.0 / ZHR_FACTOR_GOAL <= r <= ZHR_FACTOR_GOAL for r in hits), len(hits)
+        ),
+        "median_direct_hit_ratio": float(np.median(hits)) if hits else None,
         "median_fwhm_ratio": float(np.median(fwhm)) if fwhm else None,
         "storms_predicted_where_none_seen": sum(
             (s["predicted_zhr"] or 0.0) > STORM_ZHR for s in quiet

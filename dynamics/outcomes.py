@@ -140,6 +140,9 @@ def classified(enc: TrailEncounter) -> TrailEncounter:
         enc.miss_distance_spread_au,
         zhr_range=(zhr_value(enc.zhr_low), zhr_value(enc.zhr_high)),
         zhr_mode=enc.zhr_mode,
+        direct_hit=None
+        if enc.profile is None
+        else (zhr_value(enc.profile.direct_hit_zhr), enc.profile.direct_hit_miss_au),
     )
     return replace(enc, classification=c)
 
@@ -152,6 +155,7 @@ def classify(
     zhr_range=None,
     zhr_mode=None,
     near_miss_max_au=NEAR_MISS_MAX_AU,
+    direct_hit=None,
 ):
     """:func:`dynamics.activity.classify_crossing` with the engine's distance rule and level
     (the forecast and the hindcast report name crossings alike)."""
@@ -166,6 +170,7 @@ def classify(
         min_zhr=ENCOUNTER_MIN_ZHR,  # no annual shower's ZHR is known here (module docstring)
         zhr_range=zhr_range,
         zhr_mode=zhr_mode,
+        direct_hit=direct_hit,
     )
 
 

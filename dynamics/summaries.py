@@ -167,6 +167,12 @@ class TrailEncounter:
                 "estimators_disagree": None
                 if self.profile is None
                 else self.profile.estimators_disagree,
+                "direct_hit": None
+                if self.profile is None
+                else {
+                    "zhr": zhr_value(self.profile.direct_hit_zhr),
+                    "miss_au": round(self.profile.direct_hit_miss_au, 6),
+                },
             },
             "classification": None
             if self.classification is None

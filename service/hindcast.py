@@ -186,6 +186,9 @@ def markdown(report: dict) -> str:
             f"{_fmt(s['fraction_within_row_tolerance'], '.2f')} |",
             f"| fraction ZHR within x3 | {_fmt(s['fraction_zhr_within_x3'], '.2f')} |",
             f"| median ZHR ratio | {_fmt(s['median_zhr_ratio'], '.3g')} |",
+            f"| fraction direct-hit ZHR within x3 (the trail's dust, its position aside) | "
+            f"{_fmt(s.get('fraction_direct_hit_within_x3'), '.2f')} |",
+            f"| median direct-hit ZHR ratio | {_fmt(s.get('median_direct_hit_ratio'), '.3g')} |",
             f"| median FWHM ratio | {_fmt(s['median_fwhm_ratio'], '.3g')} |",
             f"| storms (ZHR > 1000) predicted where none was seen | "
             f"{s['storms_predicted_where_none_seen']} |",
@@ -194,8 +197,9 @@ def markdown(report: dict) -> str:
             f"| rows that could not run (reasons in the JSON) | {s['rows_failed']} |",
             "",
             "| row | parent | year | trails | outburst | offset (min) | tol. | miss (au) | "
-            "ZHR pred. | ZHR obs. | ZHR ratio | FWHM ratio | label | estimators disagree |",
-            "|---|---|---|---|---|---|---|---|---|---|---|---|---|---|",
+            "ZHR pred. | ZHR obs. | ZHR ratio | direct hit | ratio | FWHM ratio | label | "
+            "estimators disagree |",
+            "|---|---|---|---|---|---|---|---|---|---|---|---|---|---|---|---|",
         ]
         for r in block["rows"]:
             lines.append(
@@ -204,7 +208,8 @@ def markdown(report: dict) -> str:
                 f"{_yes(r['outburst'])} | {_fmt(r['offset_min'], '+.1f')} | "
                 f"{_fmt(r['tolerance_min'], 'g')} | {_fmt(r['miss_distance_au'], '+.5f')} | "
                 f"{_fmt(r['predicted_zhr'], '.3g')} | {_fmt(r['observed_zhr'], 'g')} | "
-                f"{_fmt(r['zhr_ratio'], '.3g')} | {_fmt(r['fwhm_ratio'], '.3g')} | "
+                f"{_fmt(r['zhr_ratio'], '.3g')} | {_fmt(r.get('direct_hit_zhr'), '.3g')} | "
+                f"{_fmt(r.get('direct_hit_ratio'), '.3g')} | {_fmt(r['fwhm_ratio'], '.3g')} | "
                 f"{r['label'] or ('failed' if r['error'] else 'no crossing')} | "
                 f"{_yes(r['estimators_disagree'])} |"
             )
@@ -263,6 +268,12 @@ def draw(report: dict):
             hi, lo = max(hi, cp), min(lo, cp)
             ax2.plot(obs, cp, marker="s", color="#E69F00", ms=7, ls="none")
             ax2.plot([obs, obs], [pred, cp], color="#E69F00", lw=0.8)
+        hit = r.get("direct_hit_zhr")
+        if r["outburst"] and hit and hit > pred:  # the trail's dust on its densest line
+            hp = float(hit)
+            hi = max(hi, hp)
+            ax2.plot(obs, hp, marker="+", color="#009E73", ms=9, ls="none")
+            ax2.plot([obs, obs], [pred, hp], color="#009E73", lw=0.6, ls=":")
         ax2.annotate(r["id"], (obs, pred), fontsize=7, xytext=(4, 3), textcoords="offset points")
     lo, hi = lo / 3.0, hi * 3.0
     ax2.plot([lo, hi], [lo, hi], color="#444444", lw=1)
@@ -273,7 +284,10 @@ def draw(report: dict):
     ax2.set_ylim(lo, hi)
     ax2.set_xlabel("observed peak ZHR")
     ax2.set_ylabel("predicted peak ZHR")
-    ax2.set_title("ZHR (open: absolute, filled: calibrated; ^: no outburst; band: x3)")
+    ax2.set_title(
+        "ZHR (open: absolute, filled: calibrated, +: direct hit; ^: no outburst; band: x3)",
+        fontsize=10,
+    )
     fig.suptitle(f"trailcast hindcast, {report['run_utc'][:10]}", fontsize=11)
     fig.tight_layout()
     return fig

@@ -28,7 +28,13 @@ EXAMPLE_ENCOUNTER = {
     "particles": 20,
     "dilution": 0.9958,
     "population_index": 2.512,
-    "zhr": {"estimate": 12.0, "low": 3.0, "high": 40.0, "mode": "absolute"},
+    "zhr": {
+        "estimate": 12.0,
+        "low": 3.0,
+        "high": 40.0,
+        "mode": "absolute",
+        "direct_hit": {"zhr": 13.1, "miss_au": 0.004102},
+    },
     "classification": {
         "label": "encounter",
         "zhr_level": 10.0,
@@ -54,6 +60,14 @@ class RadiantOut(BaseModel):
     dec_deg: float = Field(..., description="Declination, equatorial J2000 (deg)")
 
 
+class DirectHitOut(BaseModel):
+    model_config = ConfigDict(extra="allow")
+    zhr: float = Field(..., description="Peak ZHR on the densest line (meteors per hour)")
+    miss_au: float = Field(
+        ..., description="Where that line lies from Earth's path (au, trail minus Earth)"
+    )
+
+
 class ZhrOut(BaseModel):
     """Zenithal hourly rate at the peak: meteors per hour for one observer under a clear sky
     of limiting magnitude +6.5 with the radiant at the zenith (Koschack & Rendtel 1990)."""
@@ -67,6 +81,12 @@ class ZhrOut(BaseModel):
         description="`absolute` (from a stated or default dust mass per return) or "
         "`calibrated` (scaled to a past observed outburst)",
         examples=["absolute"],
+    )
+    direct_hit: DirectHitOut | None = Field(
+        None,
+        description="The ZHR if Earth's path ran along the densest line of the visual sizes' "
+        "cross-section, and where that line lies: the trail's dust apart from its modelled "
+        "position (a crossing several widths out can still hold a storm's density)",
     )
 
 

@@ -303,6 +303,48 @@ def test_stratified_tube_sums_its_mass_classes():
 
 
 @pytest.mark.invariant
+@pytest.mark.parametrize("z", [0.0, 3.0, 6.0])
+def test_direct_hit_zhr_is_the_tube_s_core_density_wherever_earth_passes(z):
+    # The ZHR Earth would meet on the trail's densest line, and where that line lies: for a
+    # Gaussian tube centred z widths from Earth's path, the analytic core density (as in the
+    # core test above) and the tube's centre, whether Earth passes through it or 6 widths out
+    # (where the profile itself holds exp(-18) of it).
+    rng = np.random.default_rng(16)
+    sigma_r, sigma_t = 3e-4, 30.0 / 1440.0
+    t_e, y, lag, n0, vg, vz = _tube(rng, N_TUBE, sigma_r, z * sigma_r, sigma_t)
+    k = len(t_e)
+    prof = _estimate(t_e, y, lag, np.full(k, 2e-3), np.ones(k), vg, vz)
+    assert prof.direct_hit_zhr == pytest.approx(_analytic_zhr(n0, vg), rel=CORE_TOL)
+    # centre to 5 % of a width (its sampling error is ~0.5 %; the search steps ~1 %)
+    assert prof.direct_hit_miss_au == pytest.approx(z * sigma_r, abs=0.05 * sigma_r)
+    assert prof.direct_hit_zhr >= prof.peak_zhr
+
+
+@pytest.mark.invariant
+def test_direct_hit_of_a_stratified_trail_is_where_the_summed_classes_peak():
+    # Two mass decades centred 4e-4 au apart: the densest line of their weighted sum, found by
+    # brute force on the analytic tubes (1e-7 au steps), not at either class's own centre.
+    rng = np.random.default_rng(17)
+    classes = ((2e-5, 8e-4, 4e-4, 3.0), (2e-2, 1.2e-3, 3e-4, 1.0))
+    parts, n0s = [], []
+    for mass, mu, sig, count in classes:
+        t_e, y, lag, n0, vg, vz = _tube(rng, N_TUBE // 2, sig, mu, 30.0 / 1440.0)
+        parts.append((t_e, y, lag, np.full(len(t_e), mass), np.full(len(t_e), count)))
+        n0s.append(n0)
+    t_e, y, lag, mass, counts = (np.concatenate(a) for a in zip(*parts, strict=True))
+    prof = _estimate(t_e, y, lag, mass, counts, vg, vz)
+    line = np.arange(0.0, 2e-3, 1e-7)
+    # both tubes peak at Earth's passage time t = 0, so their sum peaks there too
+    density = sum(
+        count * n0 * np.exp(-0.5 * ((line - mu) / sig) ** 2)
+        for (_, mu, sig, count), n0 in zip(classes, n0s, strict=True)
+    )
+    best = int(np.argmax(density))
+    assert prof.direct_hit_zhr == pytest.approx(_analytic_zhr(density[best], vg), rel=CORE_TOL)
+    assert prof.direct_hit_miss_au == pytest.approx(line[best], abs=0.1 * 3e-4)
+
+
+@pytest.mark.invariant
 def test_zhr_is_linear_in_counts_and_ignores_meteoroids_below_the_mass_limit():
     rng = np.random.default_rng(14)
     t_e, y, lag, n0, vg, vz = _tube(rng, 4000, 3e-4, 0.0, 30.0 / 1440.0)

@@ -113,6 +113,26 @@ def test_calibration_skips_rows_where_earth_passes_outside_the_modelled_trail():
 
 
 @pytest.mark.invariant
+def test_direct_hit_is_scored_apart_from_the_prediction_and_calibrated_alike():
+    # A trail the model puts 6 widths out (predicted 3e-5) whose densest line holds ZHR 4000
+    # against 6000 seen: the prediction misses by 2e8, the trail's dust by 0.67. The calibration
+    # factor (2, from "best") scales both alike; rows written before the field have none.
+    rows = [_row("best", 1999, zhr=3700, dz=370), _row("far", 1933, zhr=6000, dz=3000)]
+    far = _pred("far", 3e-5, miss=-0.0011)
+    far["predicted"].update(direct_hit_zhr=4000.0, direct_hit_miss_au=-0.00111)
+    out = score(rows, [_pred("best", 1850.0), far])
+    a = next(r for r in out["absolute"]["rows"] if r["id"] == "far")
+    assert a["zhr_ratio"] == pytest.approx(5e-9)
+    assert a["direct_hit_ratio"] == pytest.approx(4000.0 / 6000.0)
+    assert out["absolute"]["summary"]["fraction_direct_hit_within_x3"] == pytest.approx(1.0)
+    assert out["absolute"]["summary"]["fraction_zhr_within_x3"] == pytest.approx(0.5)
+    c = out["calibrated"]["rows"][0]
+    assert c["id"] == "far" and c["direct_hit_zhr"] == pytest.approx(8000.0)
+    best = next(r for r in out["absolute"]["rows"] if r["id"] == "best")
+    assert best["direct_hit_ratio"] is None  # no direct_hit_zhr in its stored prediction
+
+
+@pytest.mark.invariant
 def test_a_parent_with_one_outburst_is_not_calibrated():
     rows = [_row("only", 1999, zhr=3700, dz=370), _row("quiet", 2006, zhr=20, outburst=False)]
     res = [_pred("only", 100.0), _pred("quiet", 70.0)]
@@ -195,6 +215,8 @@ def test_quick_row_peak_within_its_tolerance(quick_report, rid):
     row = next(r for r in report["scores"]["absolute"]["rows"] if r["id"] == rid)
     assert row["offset_min"] is not None, "no crossing predicted for an observed outburst"
     assert abs(row["offset_min"]) <= row["tolerance_min"]
+    # the densest line holds at least what Earth meets on its own path
+    assert row["direct_hit_zhr"] >= row["predicted_zhr"] > 0
 
 
 @pytest.mark.invariant
