@@ -24,8 +24,10 @@ run: $(STAMP)
 	$(BIN)/trailcast serve --host $(HOST) --port $(PORT)
 
 # pytest exit code 5 means "no tests collected": that is a failure for us, never hidden.
+# One pytest worker per core (pytest-xdist), each test file kept on one worker so that its
+# module fixtures (forecasts, servers) run once.
 test: $(STAMP)
-	$(BIN)/python -m pytest
+	$(BIN)/python -m pytest -n auto --dist loadfile
 
 # The hindcast catalogue, every row, on all cores (about 25 minutes on 2 cores with the parents'
 # histories cached, over an hour on a new machine): writes validation/report/hindcast.{json,md,
