@@ -29,9 +29,9 @@ run: $(STAMP)
 test: $(STAMP)
 	$(BIN)/python -m pytest -n auto --dist loadfile
 
-# The hindcast catalogue, every row, on all cores (about 25 minutes on 2 cores with the parents'
-# histories cached, over an hour on a new machine): writes validation/report/hindcast.{json,md,
-# png,svg}; then the long class hindcasts (a few minutes).
+# The hindcast catalogue, every row, on all cores (29 minutes on 2 cores with no parent history
+# cached, 2026-12-05): writes validation/report/hindcast.{json,md,png,svg}; then the long class
+# hindcasts (a few minutes).
 validate: $(STAMP)
 	$(BIN)/trailcast hindcast validation/hindcasts.json --out validation/report
 	$(BIN)/python -m pytest -m validation tests/test_hindcast_classes.py

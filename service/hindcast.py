@@ -285,7 +285,8 @@ def draw(report: dict):
     ax2.set_xlabel("observed peak ZHR")
     ax2.set_ylabel("predicted peak ZHR")
     ax2.set_title(
-        "ZHR (open: absolute, filled: calibrated, +: direct hit; ^: no outburst; band: x3)",
+        "ZHR (open: absolute, filled: calibrated; ^: no outburst; band: x3)\n"
+        "+: the trail's densest line (direct hit), where above the prediction",
         fontsize=10,
     )
     fig.suptitle(f"trailcast hindcast, {report['run_utc'][:10]}", fontsize=11)
