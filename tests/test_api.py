@@ -519,6 +519,7 @@ def fuzz_app_running():
 
 @pytest.mark.invariant
 @pytest.mark.slow
+@pytest.mark.serial
 @fuzz_schema.parametrize()
 @hypothesis.settings(
     max_examples=FUZZ_EXAMPLES,
