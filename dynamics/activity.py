@@ -413,6 +413,7 @@ def trail_activity(
     n_grid: int = 801,
     n_boot: int = 100,
     rng=None,
+    direct_hit: bool = True,
 ) -> Profile:
     """ZHR along Earth's path from simulated meteoroids, per mass class, with a box cross-check.
 
@@ -462,6 +463,9 @@ def trail_activity(
         Earth's heliocentric speed (au/day).
     population_index : float
     window_days : float
+    direct_hit : bool
+        Search the densest line (:attr:`Profile.direct_hit_zhr`); False leaves it 0 (replicas
+        that only need the peak).
 
     Returns
     -------
@@ -554,7 +558,7 @@ def trail_activity(
     if peak > 0:
         a, b = _contiguous(zhr >= 0.5 * peak, k)
         fwhm_h = float((grid[b] - grid[a]) * 24.0)
-    hit_zhr, hit_miss = _direct_hit(fitted, grid, zhr_on)
+    hit_zhr, hit_miss = _direct_hit(fitted, grid, zhr_on) if direct_hit else (0.0, 0.0)
     window = None
     if peak >= WINDOW_FLOOR_ZHR:
         a, b = _contiguous(zhr >= max(WINDOW_FRACTION_OF_PEAK * peak, WINDOW_FLOOR_ZHR), k)

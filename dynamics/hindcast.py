@@ -370,7 +370,8 @@ def _row_score(row, result, factor):
     }
     if pred is None:
         return s
-    zhr = pred["zhr"] * (factor if factor is not None else 1.0)
+    scale = factor if factor is not None else 1.0
+    zhr = pred["zhr"] * scale
     s.update(
         predicted_peak_utc=pred["peak_utc"],
         miss_distance_au=pred["miss_distance_au"],
@@ -391,7 +392,7 @@ def _row_score(row, result, factor):
     if obs.get("zhr"):  # no-outburst rows too: the level that was seen
         s["zhr_ratio"] = zhr / float(obs["zhr"])
     if pred.get("direct_hit_zhr") is not None:  # results written before it have none
-        s["direct_hit_zhr"] = pred["direct_hit_zhr"] * (factor if factor is not None else 1.0)
+        s["direct_hit_zhr"] = pred["direct_hit_zhr"] * scale
         if obs.get("zhr"):
             s["direct_hit_ratio"] = s["direct_hit_zhr"] / float(obs["zhr"])
     if obs.get("fwhm_min"):

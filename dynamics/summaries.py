@@ -325,7 +325,9 @@ def summarise(
     prof = activity(np.where(visual, counts, 0.0), rng=options.seed)
     # the visual limit's own uncertainty: the peak with it heavier and lighter
     limit_peaks = [
-        activity(np.where(met.mass_g >= m_lim * f, counts, 0.0), n_boot=0).peak_zhr
+        activity(
+            np.where(met.mass_g >= m_lim * f, counts, 0.0), n_boot=0, direct_hit=False
+        ).peak_zhr
         for f in (LIMITING_MASS_RANGE_FACTOR, 1.0 / LIMITING_MASS_RANGE_FACTOR)
     ]
     peak = centre

@@ -579,7 +579,6 @@ def forecast_table(res: dict) -> str:
             hit = z.get("direct_hit") or {}
             if c.get("label") != "encounter" and (hit.get("zhr") or 0) >= level:
                 high += f"  densest line {hit['miss_au']:+.5f} au: ZHR {zhr_text(hit['zhr'])}"
-
             out.append(
                 f"  {sol}{e['year']}  {e['trail']['perihelion_year']:>5}  {e['trail']['revolutions']:>3}  "
                 f"{e['peak_utc']:<20}  {e['solar_longitude_deg']:>9.4f}  {e['miss_distance_au']:+.5f}  "

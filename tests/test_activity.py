@@ -271,14 +271,27 @@ def test_drift_is_not_extrapolated_beyond_the_sampled_arrivals():
     assert cls.miss_sigma_au == pytest.approx(3e-4, rel=CORE_TOL)  # the drift is removed
 
 
+OFFSET_TUBE_SIGMA_AU = 3e-4  # a young trail's width (the 1999 trail's classes: 1e-4 - 7e-4)
+
+
+def _offset_tube(seed, z):
+    """One mass class's tube centred z widths from Earth's path, estimated: the profile, the
+    meteoroids in the window, the analytic axial density and Vg."""
+    t_e, y, lag, n0, vg, vz = _tube(
+        np.random.default_rng(seed),
+        N_TUBE,
+        OFFSET_TUBE_SIGMA_AU,
+        z * OFFSET_TUBE_SIGMA_AU,
+        30.0 / 1440.0,
+    )
+    k = len(t_e)
+    return _estimate(t_e, y, lag, np.full(k, 2e-3), np.ones(k), vg, vz), k, n0, vg
+
+
 @pytest.mark.invariant
 @pytest.mark.parametrize("z", [3.0, 4.0])
 def test_gaussian_tube_wings_are_not_inflated(z):
-    rng = np.random.default_rng(12)
-    sigma_r, sigma_t = 3e-4, 30.0 / 1440.0
-    t_e, y, lag, n0, vg, vz = _tube(rng, N_TUBE, sigma_r, z * sigma_r, sigma_t)
-    k = len(t_e)
-    prof = _estimate(t_e, y, lag, np.full(k, 2e-3), np.ones(k), vg, vz)
+    prof, k, n0, vg = _offset_tube(12, z)
     truth = _analytic_zhr(n0 * math.exp(-0.5 * z * z), vg)
     assert abs(prof.peak_zhr / truth - 1.0) < WING_TOL[z]
     # the box around Earth holds few meteoroids this far out: the two estimators must then be
@@ -309,11 +322,8 @@ def test_direct_hit_zhr_is_the_tube_s_core_density_wherever_earth_passes(z):
     # Gaussian tube centred z widths from Earth's path, the analytic core density (as in the
     # core test above) and the tube's centre, whether Earth passes through it or 6 widths out
     # (where the profile itself holds exp(-18) of it).
-    rng = np.random.default_rng(16)
-    sigma_r, sigma_t = 3e-4, 30.0 / 1440.0
-    t_e, y, lag, n0, vg, vz = _tube(rng, N_TUBE, sigma_r, z * sigma_r, sigma_t)
-    k = len(t_e)
-    prof = _estimate(t_e, y, lag, np.full(k, 2e-3), np.ones(k), vg, vz)
+    sigma_r = OFFSET_TUBE_SIGMA_AU
+    prof, _, n0, vg = _offset_tube(16, z)
     assert prof.direct_hit_zhr == pytest.approx(_analytic_zhr(n0, vg), rel=CORE_TOL)
     # centre to 5 % of a width (its sampling error is ~0.5 %; the search steps ~1 %)
     assert prof.direct_hit_miss_au == pytest.approx(z * sigma_r, abs=0.05 * sigma_r)
