@@ -86,16 +86,6 @@ PROBE_STOP_SE = 3.0
 #: there, below any ZHR level even for a storm-strength centre; more meteoroids would only
 #: sharpen a negligible number. No source: a cost rule, not a physical one.
 PROBE_STOP_WIDTHS = 8.0
-#: With fewer than PROBE_MIN_HITS meteoroids at Earth's passage, the same two stop rules read
-#: the trail's position from every meteoroid that crossed its node within this many days of
-#: Earth's passage (at least PROBE_MIN_HITS, some within the window or some on either side):
-#: miss distance fitted linearly against arrival lag (a trail's node distance drifts along
-#: its length), read at zero lag, with the residuals' spread as the width. The main rounds'
-#: arrivals spread about this far (measured: +-185 d in the default 1999 forecast of the
-#: demo's reference parent); no source: a cost rule. Measured there: five old passages that
-#: integrated a full selection round after a probe with few hits, 0.0054-0.045 au out and
-#: compact, stop after the probe (12 % of the meteoroid-years).
-TREND_MAX_LAG_DAYS = 180.0
 
 
 @dataclass
@@ -556,25 +546,13 @@ def enough_said(tg: Target, parts, options) -> str | None:
             f"a uniform sample of {n} meteoroids had none within {options.window_days:g} days "
             "of Earth's passage"
         )
-    if k >= PROBE_MIN_HITS:
-        miss = cr.miss_distance_au[hit]
-        m = abs(float(np.median(miss)))
-        q16, q84 = np.percentile(miss, [16, 84])
-        sigma = 0.5 * float(q84 - q16)
-        se = np.sqrt(np.pi / 2.0) * sigma / np.sqrt(k)  # standard error of a median
-        spread = miss - np.median(miss)
-        said, how = f"{k} of {n} meteoroids met Earth's passage", "on median"
-    else:
-        trend = miss_trend_at_passage(lag, cr.miss_distance_au, options.window_days)
-        if trend is None:
-            return None
-        m, sigma, se, spread, miss, used = trend
-        said = (
-            f"{used} of {n} meteoroids crossed within {TREND_MAX_LAG_DAYS:g} days of Earth's "
-            f"passage ({k} within {options.window_days:g}); fitted against arrival, they put "
-            "the trail"
-        )
-        how = "at Earth's passage"
+    if k < PROBE_MIN_HITS:
+        return None
+    miss = cr.miss_distance_au[hit]
+    m = abs(float(np.median(miss)))
+    q16, q84 = np.percentile(miss, [16, 84])
+    sigma = 0.5 * float(q84 - q16)
+    se = np.sqrt(np.pi / 2.0) * sigma / np.sqrt(k)  # standard error of a median
     # a scattered trail (its median no farther than a few spreads) whose tail already reached
     # Earth's neighbourhood can still hold an encounter: the median says nothing of its tail
     tail_near = bool(np.any(np.abs(miss) <= NEAR_MISS_MAX_AU)) and (
@@ -582,46 +560,18 @@ def enough_said(tg: Target, parts, options) -> str | None:
     )
     if m - PROBE_STOP_SE * se > ENCOUNTER_MAX_MISS_AU and not tail_near:
         return (
-            f"{said} {m:.4f} au (+-{se:.4f}) from Earth's path {how}, beyond the encounter "
-            f"limit of {ENCOUNTER_MAX_MISS_AU:g} au"
+            f"{k} of {n} meteoroids met Earth's passage {m:.4f} au (+-{se:.4f}) from Earth's path "
+            f"on median, beyond the encounter limit of {ENCOUNTER_MAX_MISS_AU:g} au"
         )
-    q2, q98 = np.percentile(spread, [2.5, 97.5])
+    q2, q98 = np.percentile(miss, [2.5, 97.5])
     width = max(sigma, 0.25 * float(q98 - q2))
     if width > 0 and m > PROBE_STOP_WIDTHS * width:
         return (
-            f"{said} {m:.4f} au from Earth's path {how}, {m / width:.0f} trail widths "
-            f"({width:.5f} au) away: beyond {PROBE_STOP_WIDTHS:g} widths its activity at Earth "
-            "is negligible"
+            f"{k} of {n} meteoroids met Earth's passage {m:.4f} au from Earth's path on median, "
+            f"{m / width:.0f} trail widths ({width:.5f} au) away: beyond "
+            f"{PROBE_STOP_WIDTHS:g} widths its activity at Earth is negligible"
         )
     return None
-
-
-def miss_trend_at_passage(lag, miss, window_days: float):
-    """The trail's miss distance at Earth's passage read from meteoroids that crossed its node
-    up to :data:`TREND_MAX_LAG_DAYS` early or late, when too few met the passage itself.
-
-    Least squares of miss distance against arrival lag (days), read at zero lag. Returns
-    (|miss at zero lag|, residual 16-84 % half-range, standard error of the zero-lag value
-    (a median's sqrt(pi/2) for robustness), residuals, misses used, how many), or None when
-    fewer than PROBE_MIN_HITS crossed that near or none came within the window and none
-    arrived on each side of the passage (the reading would be an extrapolation)."""
-    use = np.isfinite(lag) & np.isfinite(miss) & (np.abs(lag) <= TREND_MAX_LAG_DAYS)
-    k = int(use.sum())
-    if k < PROBE_MIN_HITS:
-        return None
-    x, y = lag[use], miss[use]
-    if np.min(np.abs(x)) > window_days and not (x.min() < 0.0 < x.max()):
-        return None
-    xm = float(np.mean(x))
-    sxx = float(np.sum((x - xm) ** 2))
-    b = float(np.sum((x - xm) * (y - np.mean(y))) / sxx) if sxx > 0 else 0.0
-    a = float(np.mean(y)) - b * xm
-    res = y - (a + b * x)
-    q16, q84 = np.percentile(res, [16, 84])
-    sigma = 0.5 * float(q84 - q16)
-    lever = 1.0 / k + (xm**2 / sxx if sxx > 0 else 0.0)
-    se = float(np.sqrt(np.pi / 2.0) * sigma * np.sqrt(lever))
-    return abs(a), sigma, se, res, y, k
 
 
 def _needs_refinement(parts, options) -> bool:
