@@ -15,7 +15,11 @@ so that ``make test`` stays quick) and, for the split comet, the break-up as an 
 - one-revolution dust of a long-period parent: the 2007 Aurigids from C/1911 N1's previous
   return (about 2,000 years earlier); run by ``make validate`` (several minutes);
 - resonant trail: the 1998 Leonid fireball outburst from 55P's 1333 trail (20 revolutions, held
-  compact by a mean-motion resonance with Jupiter); run by ``make validate``.
+  compact by a mean-motion resonance with Jupiter); run by ``make validate``;
+- old Halley-type trails: the two narrow 2009 Leonid peaks the observers' circular attributes
+  to 55P's 1533 and 1466 trails (about 14 and 16 revolutions); the catalogue rows were written
+  after a first 2009 forecast had been run, with tolerances by the rule of the other rows
+  (their ``tolerance_reason``); run by ``make validate``.
 """
 
 import json
@@ -41,6 +45,8 @@ CASES = {
     "dra-1946": (1900, {"trails": (1900,)}),
     "aur-2007-1rev": (None, {}),  # default scope: the previous return is always in it
     "leo-1998-1333": (1333, {"trails": (1333,)}),
+    "leo-2009-1533": (1533, {"trails": (1533,)}),
+    "leo-2009-1466": (1466, {"trails": (1466,)}),
 }
 
 
@@ -163,3 +169,25 @@ def test_resonant_trail_is_reached_and_stays_compact(resonant):
     branch = [e for e in found if e.revolutions == row["trails"][0]["revolutions"]]
     assert branch, res.to_json()["trails"]
     assert branch[0].miss_distance_spread_au < 5e-4
+
+
+@pytest.mark.reference
+@pytest.mark.validation
+def test_old_halley_type_trail_within_the_catalogued_tolerance():
+    # The 1533 trail after 14 revolutions: first run (both 2009 trails, 300 meteoroids) at
+    # solar longitude 235.684 against the published 235.67 +/- 0.03 (+20 min), 0.0025 au
+    # inside Earth's path, where the modelled activity is negligible.
+    _check(*_hindcast("leo-2009-1533", particles=300))
+
+
+@pytest.mark.reference
+@pytest.mark.validation
+@pytest.mark.xfail(
+    reason="known weakness, not tuned: the 1466 trail's 16-revolution meteoroids that reach "
+    "Earth's passage in 2009 cross 0.076 au outside Earth's path (IAS15 gives the same to "
+    "1e-4 au, and a pilot span 6.7x wider found no other branch), at solar longitude 235.68 "
+    "against the published 235.50; the 13-15-revolution passages arrive years away",
+    strict=False,
+)
+def test_older_halley_type_trail_within_the_catalogued_tolerance():
+    _check(*_hindcast("leo-2009-1466", particles=300))
