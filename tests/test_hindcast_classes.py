@@ -175,8 +175,8 @@ def test_resonant_trail_is_reached_and_stays_compact(resonant):
 @pytest.mark.validation
 def test_old_halley_type_trail_within_the_catalogued_tolerance():
     # The 1533 trail after 14 revolutions: first run (both 2009 trails, 300 meteoroids) at
-    # solar longitude 235.684 against the published 235.67 +/- 0.03 (+20 min), 0.0025 au
-    # from Earth's path (-0.0025 au), where the modelled activity is negligible.
+    # solar longitude 235.684 against the published 235.67 +/- 0.03 (+20 min), -0.0025 au
+    # from Earth's path, where the modelled activity is negligible.
     _check(*_hindcast("leo-2009-1533", particles=300))
 
 
