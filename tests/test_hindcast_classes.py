@@ -175,7 +175,8 @@ def test_resonant_trail_is_reached_and_stays_compact(resonant):
 @pytest.mark.validation
 def test_old_halley_type_trail_within_the_catalogued_tolerance():
     # The 1533 trail after 14 revolutions: first run (both 2009 trails, 300 meteoroids) at
-    # solar longitude 235.684 against the published 235.67 +/- 0.03 (+20 min), -0.0025 au
+    # solar longitude 235.684 against 235.67 +/- 0.03 published in CBET 2046 (the row's
+    # source, read in a stored copy): +20 min, -0.0025 au
     # from Earth's path, where the modelled activity is negligible.
     _check(*_hindcast("leo-2009-1533", particles=300))
 
@@ -186,7 +187,8 @@ def test_old_halley_type_trail_within_the_catalogued_tolerance():
     reason="known weakness, not tuned: the 1466 trail's 16-revolution meteoroids that reach "
     "Earth's passage in 2009 cross 0.076 au outside Earth's path (IAS15 gives the same to "
     "1e-4 au, and a pilot span 6.7x wider found no other branch), at solar longitude 235.68 "
-    "against the published 235.50; the 13-15-revolution passages arrive years away",
+    "against 235.50 published in CBET 2046 (the row's source); the 13-15-revolution passages "
+    "arrive years away",
     strict=False,
 )
 def test_older_halley_type_trail_within_the_catalogued_tolerance():
